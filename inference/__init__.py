@@ -1,0 +1,1 @@
+"""Orbit posteriors from past radial velocities."""

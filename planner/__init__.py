@@ -1,0 +1,1 @@
+"""Observing-run planning by expected information gain."""

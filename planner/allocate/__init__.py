@@ -1,0 +1,1 @@
+"""Allocation strategies: joint (CP-SAT), greedy and cadence."""

@@ -1,0 +1,1 @@
+"""The bundled, invented demo run (scenario, past velocities and true orbits)."""
