@@ -1,0 +1,509 @@
+"""Scenario files: one YAML document describing an observing run, validated into frozen records.
+
+A scenario names the site, the telescope and instrument, the run's nights, the observing limits,
+the targets with their past-velocity files, and the settings of the sampler and the solver.
+Every section has defaults except ``site``, ``run`` and ``targets``. The file is read with
+``yaml.safe_load`` only; every value is checked against the schema below, and a problem is
+reported as one :class:`~planner.errors.ScenarioError` sentence naming the file, the key path
+(for example ``targets[3].v_mag``), what was expected, and a did-you-mean for misspelt keys.
+Relative paths (RV files, the cache folder) are taken relative to the scenario file.
+
+The complete reference, with a commented example, is ``docs/scenario.md``.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime as _dt
+import difflib
+import math
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+import yaml
+
+from planner.errors import ScenarioError
+
+__all__ = [
+    "ConstraintsConfig",
+    "ExposureConfig",
+    "InstrumentConfig",
+    "RunConfig",
+    "SamplerConfig",
+    "Scenario",
+    "SiteConfig",
+    "SkyConfig",
+    "SolverConfig",
+    "TargetConfig",
+    "TelescopeConfig",
+    "TWILIGHT_NAMES",
+    "load_scenario",
+    "parse_scenario",
+]
+
+#: Named twilights accepted by ``run.twilight`` (Sun altitudes -6, -12 and -18 degrees).
+TWILIGHT_NAMES = ("civil", "nautical", "astronomical")
+
+_J2000 = _dt.datetime(2000, 1, 1, 12, 0, 0)  # JD 2451545.0 on the UTC scale
+_J2000_JD = 2451545.0
+_ID_PATTERN = re.compile(r"^[A-Za-z0-9][A-Za-z0-9 _.+-]{0,63}$")
+
+
+def _spec(kind: str, default: Any = dataclasses.MISSING, *, lo=None, hi=None, what="") -> Any:
+    """Declare a scenario field: its kind, default, allowed range and a short description."""
+    meta = {"kind": kind, "lo": lo, "hi": hi, "what": what}
+    if isinstance(default, tuple | list):
+        return field(default_factory=lambda d=tuple(default): d, metadata=meta)
+    return field(default=default, metadata=meta)
+
+
+@dataclass(frozen=True)
+class SiteConfig:
+    """The observatory: geodetic position, local time zone and the mount's altitude limits."""
+
+    latitude_deg: float = _spec("float", lo=-90.0, hi=90.0, what="geodetic latitude [deg]")
+    longitude_deg: float = _spec("float", lo=-180.0, hi=180.0, what="east longitude [deg]")
+    elevation_m: float = _spec("float", lo=-500.0, hi=6000.0, what="height above sea level [m]")
+    timezone: str = _spec("timezone", what="IANA time zone name such as 'America/Santiago'")
+    name: str = _spec("str", "unnamed site", what="site name for the schedule header")
+    min_altitude_deg: float = _spec("float", 15.0, lo=0.0, hi=89.0, what="lowest pointing [deg]")
+    max_altitude_deg: float = _spec("float", 89.0, lo=1.0, hi=90.0, what="highest pointing [deg]")
+
+
+@dataclass(frozen=True)
+class RunConfig:
+    """The allocated nights: the first local evening date, how many nights, and the twilight."""
+
+    first_night: str = _spec("date", what="local evening date of the first night, YYYY-MM-DD")
+    nights: int = _spec("int", lo=1, hi=60, what="number of consecutive nights")
+    twilight: str | float = _spec("twilight", "nautical", what="twilight name or Sun altitude")
+
+
+@dataclass(frozen=True)
+class ConstraintsConfig:
+    """Observing limits applied to every exposure (targets may tighten them)."""
+
+    max_airmass: float = _spec("float", 2.0, lo=1.0, hi=10.0, what="largest airmass")
+    min_moon_separation_deg: float = _spec("float", 30.0, lo=0.0, hi=180.0, what="[deg]")
+
+
+@dataclass(frozen=True)
+class TelescopeConfig:
+    """The mount: slew rates per axis, settling time and the fixed overhead per visit."""
+
+    slew_rate_az_deg_s: float = _spec("float", 2.0, lo=0.01, hi=90.0, what="[deg/s]")
+    slew_rate_alt_deg_s: float = _spec("float", 1.5, lo=0.01, hi=90.0, what="[deg/s]")
+    settle_s: float = _spec("float", 20.0, lo=0.0, hi=3600.0, what="settling after a slew [s]")
+    acquisition_s: float = _spec("float", 60.0, lo=0.0, hi=3600.0, what="target acquisition [s]")
+
+
+@dataclass(frozen=True)
+class InstrumentConfig:
+    """The spectrograph's noise model, anchored at one reference point.
+
+    The photon-limited error scales as ``sigma_ref * 10**(0.2 (m - m_ref)) * sqrt(t_ref / t)``
+    at the reference airmass 1, with extinction dimming the star by ``k (X - 1)`` magnitudes;
+    the instrumental floor adds in quadrature.
+    """
+
+    name: str = _spec("str", "default", what="instrument name matching the RV files")
+    reference_sigma_ms: float = _spec("float", 1.0, lo=0.001, hi=1000.0, what="[m/s]")
+    reference_v_mag: float = _spec("float", 8.0, lo=-2.0, hi=20.0, what="V magnitude")
+    reference_exposure_s: float = _spec("float", 900.0, lo=1.0, hi=36000.0, what="[s]")
+    floor_ms: float = _spec("float", 0.5, lo=0.0, hi=100.0, what="noise floor [m/s]")
+    extinction_mag_per_airmass: float = _spec("float", 0.15, lo=0.0, hi=2.0, what="[mag]")
+    readout_s: float = _spec("float", 30.0, lo=0.0, hi=3600.0, what="detector readout [s]")
+
+
+@dataclass(frozen=True)
+class ExposureConfig:
+    """The exposure times on offer to every target that does not name its own."""
+
+    options_s: tuple[float, ...] = _spec("floats", (600.0, 1200.0), lo=10.0, hi=14400.0,
+                                         what="exposure times [s]")
+
+
+@dataclass(frozen=True)
+class SkyConfig:
+    """The time grid on which the sky and the information curves are computed."""
+
+    step_s: float = _spec("float", 120.0, lo=10.0, hi=1800.0, what="grid step [s]")
+
+
+@dataclass(frozen=True)
+class SamplerConfig:
+    """Settings of the orbit-posterior sampler (the same for every target)."""
+
+    walkers: int = _spec("int", 32, lo=4, hi=1024, what="ensemble walkers")
+    steps: int = _spec("int", 1500, lo=10, hi=10**6, what="steps per walker after burn-in")
+    burn: int = _spec("int", 1500, lo=0, hi=10**6, what="burn-in steps per walker")
+    samples: int = _spec("int", 1000, lo=10, hi=10**6, what="posterior samples kept")
+    seed: int = _spec("int", 1, lo=0, hi=2**63 - 1, what="seed of the sampler")
+    min_period_d: float = _spec("float", 0.5, lo=0.01, hi=1e6, what="shortest period [d]")
+    max_period_d: float = _spec("float", 5000.0, lo=0.02, hi=1e7, what="longest period [d]")
+
+
+@dataclass(frozen=True)
+class SolverConfig:
+    """Settings of the allocation (CP-SAT) solver."""
+
+    time_limit_s: float = _spec("float", 25.0, lo=0.1, hi=86400.0, what="wall-clock limit [s]")
+    seed: int = _spec("int", 0, lo=0, hi=2**31 - 1, what="solver seed")
+    workers: int = _spec("int", 2, lo=1, hi=64, what="search workers")
+    strategy: str = _spec("choice:joint,greedy,cadence", "joint", what="default strategy")
+
+
+@dataclass(frozen=True)
+class TargetConfig:
+    """One star: position, brightness, its past velocities, and its rules for this run."""
+
+    id: str = _spec("id", what="target name (letters, digits, space, _ . + -)")
+    ra_deg: float = _spec("float", lo=0.0, hi=360.0, what="right ascension ICRS [deg]")
+    dec_deg: float = _spec("float", lo=-90.0, hi=90.0, what="declination ICRS [deg]")
+    v_mag: float = _spec("float", lo=-2.0, hi=20.0, what="V magnitude")
+    rv_file: Path = _spec("path", what="CSV file of past velocities")
+    planets: int = _spec("int", 1, lo=0, hi=4, what="number of Keplerian signals")
+    weight: float = _spec("float", 1.0, lo=0.0, hi=1000.0, what="weight of its bits")
+    exposures_s: tuple[float, ...] = _spec("floats", (), lo=10.0, hi=14400.0,
+                                           what="its own exposure times [s]")
+    min_visits: int = _spec("int", 0, lo=0, hi=1000, what="visits the run must hold")
+    max_visits: int | None = _spec("optint", None, lo=0, hi=1000, what="visits at most")
+    max_visits_per_night: int = _spec("int", 1, lo=1, hi=100, what="visits per night")
+    min_gap_h: float = _spec("float", 0.0, lo=0.0, hi=240.0, what="hours between its visits")
+    windows: tuple[tuple[float, float], ...] = _spec("windows", (), what="allowed UTC windows")
+    must_windows: tuple[tuple[float, float], ...] = _spec("windows", (), what="must-do windows")
+    max_airmass: float | None = _spec("optfloat", None, lo=1.0, hi=10.0, what="its own limit")
+    trend: bool = _spec("bool", False, what="fit a linear velocity trend")
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """A validated observing-run scenario.
+
+    Attributes
+    ----------
+    path : pathlib.Path
+        The scenario file (absolute); relative paths in it are resolved against its folder.
+    name : str
+        Title of the run, printed in the schedule header.
+    site, run, constraints, telescope, instrument, exposures, sky, sampler, solver
+        The sections, each a frozen record with its defaults filled in.
+    targets : tuple of TargetConfig
+        At least one target, ids unique.
+    cache_dir : pathlib.Path or None
+        Posterior cache folder from the file (``cache:``), or None for the user cache default.
+    """
+
+    path: Path
+    name: str
+    site: SiteConfig
+    run: RunConfig
+    targets: tuple[TargetConfig, ...]
+    constraints: ConstraintsConfig = ConstraintsConfig()
+    telescope: TelescopeConfig = TelescopeConfig()
+    instrument: InstrumentConfig = InstrumentConfig()
+    exposures: ExposureConfig = ExposureConfig()
+    sky: SkyConfig = SkyConfig()
+    sampler: SamplerConfig = SamplerConfig()
+    solver: SolverConfig = SolverConfig()
+    cache_dir: Path | None = None
+
+    def night_dates(self) -> tuple[str, ...]:
+        """Local evening dates of every night of the run, ``YYYY-MM-DD``."""
+        first = _dt.date.fromisoformat(self.run.first_night)
+        return tuple((first + _dt.timedelta(days=i)).isoformat() for i in range(self.run.nights))
+
+    def target_exposures(self, target: TargetConfig) -> tuple[float, ...]:
+        """Exposure options of one target: its own, or the scenario's."""
+        return target.exposures_s or self.exposures.options_s
+
+    def target(self, target_id: str) -> TargetConfig:
+        """Return the target with this id (ScenarioError with a did-you-mean if none)."""
+        ids = [t.id for t in self.targets]
+        if target_id in ids:
+            return self.targets[ids.index(target_id)]
+        raise ScenarioError(f"{self.path.name}: there is no target {target_id!r}"
+                            f"{_did_you_mean(target_id, ids)}; use one of the ids under targets.")
+
+
+_SECTIONS = {
+    "site": SiteConfig, "run": RunConfig, "constraints": ConstraintsConfig,
+    "telescope": TelescopeConfig, "instrument": InstrumentConfig, "exposures": ExposureConfig,
+    "sky": SkyConfig, "sampler": SamplerConfig, "solver": SolverConfig,
+}
+_TOP_KEYS = ("name", "cache", "targets", *_SECTIONS)
+_REQUIRED_TOP = ("site", "run", "targets")
+
+
+def load_scenario(path: str | Path) -> Scenario:
+    """Read and validate a scenario file.
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+        The YAML scenario file.
+
+    Returns
+    -------
+    Scenario
+
+    Raises
+    ------
+    planner.errors.ScenarioError
+        If the file cannot be read, is not YAML, or any value breaks the schema.
+    """
+    path = Path(path).expanduser().resolve()
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise ScenarioError(f"scenario file {path} does not exist; check the path.") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise ScenarioError(f"scenario file {path} cannot be read as UTF-8 text ({exc}).") from None
+    return parse_scenario(text, path)
+
+
+def parse_scenario(text: str, path: str | Path) -> Scenario:
+    """Validate scenario YAML text as if it were the file ``path``.
+
+    Parameters
+    ----------
+    text : str
+        The YAML document.
+    path : str or pathlib.Path
+        Where it lives: names the file in messages and anchors relative paths.
+
+    Returns
+    -------
+    Scenario
+    """
+    path = Path(path).expanduser().resolve()
+    where = path.name
+    try:
+        raw = yaml.safe_load(text)
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        line = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
+        problem = getattr(exc, "problem", None) or "invalid YAML"
+        raise ScenarioError(f"{where}: the file is not valid YAML{line} ({problem}); "
+                            "fix the indentation or quoting there.") from None
+    except (ValueError, OverflowError) as exc:
+        # The safe loader's own constructors reject values such as the date 2027-02-30.
+        raise ScenarioError(f"{where}: the file holds a value YAML cannot read ({exc}); "
+                            "check dates (YYYY-MM-DD) and numbers.") from None
+    except RecursionError:
+        raise ScenarioError(f"{where}: the YAML nests too deeply to be a scenario.") from None
+    if not isinstance(raw, dict):
+        raise ScenarioError(f"{where}: expected a mapping with the keys site, run and targets "
+                            f"at the top level, got {_describe(raw)}.")
+    _check_keys(raw, _TOP_KEYS, where, "")
+    for key in _REQUIRED_TOP:
+        if key not in raw:
+            raise ScenarioError(f"{where}: the required section {key!r} is missing; "
+                                "see docs/scenario.md for an example.")
+    base = path.parent
+    sections = {key: _build(cls, raw.get(key), where, key, base) for key, cls in _SECTIONS.items()}
+    name = _coerce("str", raw.get("name", path.stem), where, "name", {}, base)
+    cache = raw.get("cache")
+    cache_dir = None if cache is None else _coerce("path_any", cache, where, "cache", {}, base)
+    targets = _targets(raw["targets"], where, base)
+    site, sampler = sections["site"], sections["sampler"]
+    if site.min_altitude_deg >= site.max_altitude_deg:
+        raise ScenarioError(f"{where}: site.min_altitude_deg ({site.min_altitude_deg}) must be "
+                            f"below site.max_altitude_deg ({site.max_altitude_deg}).")
+    if sampler.min_period_d >= sampler.max_period_d:
+        raise ScenarioError(f"{where}: sampler.min_period_d ({sampler.min_period_d}) must be "
+                            f"below sampler.max_period_d ({sampler.max_period_d}).")
+    return Scenario(path=path, name=name, targets=targets, cache_dir=cache_dir, **sections)
+
+
+def _targets(raw: Any, where: str, base: Path) -> tuple[TargetConfig, ...]:
+    if not isinstance(raw, list):
+        raise ScenarioError(f"{where}: targets: expected a list of targets, got {_describe(raw)}.")
+    if not raw:
+        raise ScenarioError(f"{where}: targets: the target list is empty; "
+                            "add at least one target with id, ra_deg, dec_deg, v_mag, rv_file.")
+    targets, seen = [], {}
+    for i, item in enumerate(raw):
+        target = _build(TargetConfig, item, where, f"targets[{i}]", base, required=True)
+        if target.id in seen:
+            raise ScenarioError(f"{where}: targets[{i}].id: the id {target.id!r} is already used "
+                                f"by targets[{seen[target.id]}]; give every target its own id.")
+        seen[target.id] = i
+        if target.max_visits is not None and target.max_visits < target.min_visits:
+            raise ScenarioError(f"{where}: targets[{i}].max_visits ({target.max_visits}) is "
+                                f"below min_visits ({target.min_visits}); raise max_visits.")
+        targets.append(target)
+    return tuple(targets)
+
+
+def _build(cls, raw: Any, where: str, key_path: str, base: Path, required: bool = False):
+    """Validate a mapping against the fields of a config dataclass."""
+    if raw is None and not required:
+        raw = {}
+    if not isinstance(raw, dict):
+        raise ScenarioError(f"{where}: {key_path}: expected a mapping of keys, "
+                            f"got {_describe(raw)}.")
+    fields_ = {f.name: f for f in dataclasses.fields(cls)}
+    _check_keys(raw, tuple(fields_), where, key_path)
+    values = {}
+    for name, f in fields_.items():
+        sub = f"{key_path}.{name}"
+        if name in raw:
+            values[name] = _coerce(f.metadata["kind"], raw[name], where, sub, f.metadata, base)
+        elif f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING:
+            raise ScenarioError(f"{where}: {sub} is missing; expected {_expected(f.metadata)}.")
+    return cls(**values)
+
+
+def _check_keys(raw: dict, allowed: tuple[str, ...], where: str, key_path: str) -> None:
+    for key in raw:
+        if not isinstance(key, str) or key not in allowed:
+            at = f"{key_path}." if key_path else ""
+            hint = _did_you_mean(str(key), allowed)
+            raise ScenarioError(f"{where}: {at}{key}: unknown key{hint}; "
+                                f"allowed here: {', '.join(allowed)}.")
+
+
+def _coerce(kind: str, value: Any, where: str, key_path: str, meta: dict, base: Path) -> Any:
+    """Check one value against its kind and range, returning it in its stored form."""
+    def bad(note: str = "") -> ScenarioError:
+        return ScenarioError(f"{where}: {key_path}: expected {_expected(meta, kind)}, "
+                             f"got {_describe(value)}{note}.")
+
+    if value is None and kind in ("optfloat", "optint"):
+        return None
+    if kind in ("float", "optfloat", "int", "optint"):
+        return _number(value, meta, bad, integer=kind.endswith("int"))
+    if kind == "windows":
+        if not isinstance(value, list):
+            raise bad()
+        return tuple(_window(item, bad) for item in value)
+    if kind == "bool":
+        if not isinstance(value, bool):
+            raise bad()
+        return value
+    if kind == "floats":
+        items = [value] if isinstance(value, int | float) and not isinstance(value, bool) else value
+        if not isinstance(items, list) or not items:
+            raise bad()
+        numbers = sorted({_number(v, meta, bad, integer=False) for v in items})
+        return tuple(numbers)
+    if kind.startswith("choice:"):
+        choices = kind.split(":", 1)[1].split(",")
+        if not isinstance(value, str) or value not in choices:
+            raise bad(_did_you_mean(str(value), choices))
+        return value
+    if kind == "twilight":
+        if isinstance(value, str):
+            if value not in TWILIGHT_NAMES:
+                raise bad(_did_you_mean(value, TWILIGHT_NAMES))
+            return value
+        return _number(value, {"lo": -30.0, "hi": 0.0}, bad, integer=False)
+    if kind == "date":
+        if isinstance(value, _dt.datetime) or not isinstance(value, _dt.date | str):
+            raise bad()
+        try:
+            date = value if isinstance(value, _dt.date) else _dt.date.fromisoformat(value.strip())
+        except ValueError:
+            raise bad(" (not a calendar date)") from None
+        if not 1900 <= date.year <= 2200:
+            raise bad(" (outside the years 1900-2200)")
+        return date.isoformat()
+    if not isinstance(value, str) or not value.strip():
+        raise bad()
+    if kind == "id":
+        if not _ID_PATTERN.match(value):
+            raise bad()
+        return value
+    if kind == "timezone":
+        try:
+            ZoneInfo(value)
+        except (ZoneInfoNotFoundError, ValueError):
+            raise bad(" (unknown time zone)") from None
+        return value
+    if kind in ("path", "path_any"):
+        if "\x00" in value:
+            raise bad()
+        resolved = (base / Path(value).expanduser()).resolve()
+        if kind == "path" and not resolved.is_file():
+            raise ScenarioError(f"{where}: {key_path}: the file {resolved} does not exist; "
+                                "paths are relative to the scenario file's folder.")
+        return resolved
+    return value.strip()
+
+
+def _window(item: Any, bad) -> tuple[float, float]:
+    """Convert a ``[start, end]`` pair of UTC date-times to JD (UTC), start before end."""
+    if not isinstance(item, list) or len(item) != 2:
+        raise bad()
+    jd = []
+    for value in item:
+        if isinstance(value, str):
+            try:
+                value = _dt.datetime.fromisoformat(value.strip().replace("Z", "+00:00"))
+            except ValueError:
+                raise bad(" (not an ISO date-time)") from None
+        if not isinstance(value, _dt.datetime):
+            raise bad()
+        if value.tzinfo is not None:
+            value = value.astimezone(_dt.timezone.utc).replace(tzinfo=None)
+        jd.append(_J2000_JD + (value - _J2000).total_seconds() / 86400.0)
+    if jd[1] <= jd[0]:
+        raise bad(" (the window ends before it starts)")
+    return jd[0], jd[1]
+
+
+def _number(value: Any, meta: dict, bad, integer: bool) -> float | int:
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        raise bad()
+    if integer and not isinstance(value, int):
+        if not (math.isfinite(value) and float(value).is_integer()):
+            raise bad()
+    try:
+        number = int(value) if integer else float(value)
+    except OverflowError:
+        raise bad() from None
+    if not math.isfinite(number):
+        raise bad()
+    lo, hi = meta.get("lo"), meta.get("hi")
+    if (lo is not None and number < lo) or (hi is not None and number > hi):
+        raise bad()
+    return number
+
+
+def _expected(meta: dict, kind: str | None = None) -> str:
+    kind = kind or meta["kind"]
+    lo, hi, what = meta.get("lo"), meta.get("hi"), meta.get("what", "")
+    span = f" from {lo:g} to {hi:g}" if lo is not None and hi is not None else ""
+    text = {
+        "float": f"a number{span}", "optfloat": f"a number{span} or null",
+        "optint": f"a whole number{span} or null",
+        "windows": "a list of [start, end] UTC date-times such as 2027-10-05T02:00:00Z",
+        "int": f"a whole number{span}", "bool": "true or false",
+        "floats": f"a list of numbers{span}", "date": "a date YYYY-MM-DD",
+        "twilight": "civil, nautical, astronomical or a Sun altitude from -30 to 0",
+        "path": "a file path", "path_any": "a folder path", "id": "a name", "str": "a text",
+        "timezone": "an IANA time zone name",
+    }.get(kind)
+    if text is None and kind.startswith("choice:"):
+        text = "one of " + ", ".join(kind.split(":", 1)[1].split(","))
+    return f"{text} ({what})" if what and kind not in ("twilight", "date", "windows") else text
+
+
+def _describe(value: Any) -> str:
+    if isinstance(value, dict):
+        return "a mapping"
+    if isinstance(value, list):
+        return "a list"
+    if value is None:
+        return "nothing"
+    text = repr(value)
+    return text if len(text) <= 40 else text[:37] + "..."
+
+
+def _did_you_mean(word: str, options) -> str:
+    close = difflib.get_close_matches(word, list(options), n=1, cutoff=0.6)
+    return f" (did you mean {close[0]!r}?)" if close else ""
