@@ -1,0 +1,314 @@
+"""Executing a plan against known true orbits: synthetic velocities for every visit.
+
+For each visit the simulator takes the true orbit's velocity at the mid-exposure time
+(barycentric, BJD_TDB), adds Gaussian noise with the standard deviation the planner's own noise
+model predicts for that exposure at that airmass (:func:`planner.exposure.rv_sigma`, looked up at
+call time so there is one implementation only) and the star's true jitter in quadrature, and
+reports the measurement error without the jitter, as a real reduction would. Optional weather
+loss removes, with a seeded generator, whole nights or clock hours; a visit overlapping lost time
+yields nothing.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from inference.keplerian import radial_velocity
+from planner.errors import ScenarioError
+
+__all__ = [
+    "Planet",
+    "TrueOrbit",
+    "Weather",
+    "read_truths",
+    "truth_from_sample",
+    "LostTime",
+    "draw_weather",
+    "lost_mask",
+]
+
+
+@dataclass(frozen=True)
+class Planet:
+    """One true Keplerian orbit.
+
+    Attributes
+    ----------
+    period_d : float
+        Period [d].
+    semi_amplitude_ms : float
+        Semi-amplitude K [m/s].
+    eccentricity : float
+        Eccentricity, in [0, 1).
+    omega_rad : float
+        Star's argument of periastron [rad].
+    time_periastron_bjd : float
+        A time of periastron, BJD_TDB [d].
+    """
+
+    period_d: float
+    semi_amplitude_ms: float
+    eccentricity: float
+    omega_rad: float
+    time_periastron_bjd: float
+
+
+@dataclass(frozen=True)
+class TrueOrbit:
+    """A star's true velocity curve: planets, offset, jitter and an optional linear trend.
+
+    Attributes
+    ----------
+    target : str
+        Target id.
+    instrument : str
+        Instrument the offset refers to.
+    offset_ms : float
+        Systemic offset of that instrument [m/s].
+    jitter_ms : float
+        True stellar jitter, added in quadrature to the measurement noise [m/s].
+    planets : tuple of Planet
+        The planets (empty for a star without one).
+    trend_ms_per_d : float
+        Linear trend [m/s/d], zero at ``t_ref``.
+    t_ref : float
+        Reference epoch of the trend, BJD_TDB [d].
+    """
+
+    target: str
+    instrument: str
+    offset_ms: float
+    jitter_ms: float
+    planets: tuple[Planet, ...] = ()
+    trend_ms_per_d: float = 0.0
+    t_ref: float = 0.0
+
+    def velocity(self, bjd):
+        """Return the true velocity without noise.
+
+        Parameters
+        ----------
+        bjd : ndarray, shape (n,)
+            Times, BJD_TDB [d].
+
+        Returns
+        -------
+        ndarray, shape (n,)
+            Velocity [m/s], offset and trend included.
+        """
+        t = np.asarray(bjd, dtype=float)
+        v = self.offset_ms + self.trend_ms_per_d * (t - self.t_ref)
+        for p in self.planets:
+            v = v + radial_velocity(t, p.period_d, p.semi_amplitude_ms, p.eccentricity,
+                                    p.omega_rad, p.time_periastron_bjd)
+        return np.broadcast_to(v, t.shape).astype(float)
+
+
+_PLANET_KEYS = ("period_d", "semi_amplitude_ms", "eccentricity", "omega_rad",
+                "time_periastron_bjd")
+
+
+def _truth_from_dict(doc, where):
+    def fail(what):
+        raise ScenarioError(f"{where}: {what}; rewrite the file with scenarios/make_demo.py or "
+                            "follow docs/simulation.md for the truth format.")
+
+    if not isinstance(doc, dict):
+        fail("expected a JSON object")
+    for key in ("target", "instrument", "offset_ms", "jitter_ms", "planets"):
+        if key not in doc:
+            fail(f"missing key '{key}'")
+    if not isinstance(doc["planets"], list):
+        fail("'planets' must be a list")
+    planets = []
+    for k, p in enumerate(doc["planets"]):
+        if not isinstance(p, dict) or any(key not in p for key in _PLANET_KEYS):
+            fail(f"planets[{k}] needs the keys {', '.join(_PLANET_KEYS)}")
+        values = {key: float(p[key]) for key in _PLANET_KEYS}
+        if not (values["period_d"] > 0 and 0 <= values["eccentricity"] < 1
+                and values["semi_amplitude_ms"] >= 0):
+            fail(f"planets[{k}] needs period_d > 0, 0 <= eccentricity < 1 and "
+                 "semi_amplitude_ms >= 0")
+        planets.append(Planet(**values))
+    jitter = float(doc["jitter_ms"])
+    if not (math.isfinite(jitter) and jitter >= 0):
+        fail("'jitter_ms' must be a finite number >= 0")
+    return TrueOrbit(target=str(doc["target"]), instrument=str(doc["instrument"]),
+                     offset_ms=float(doc["offset_ms"]), jitter_ms=jitter,
+                     planets=tuple(planets),
+                     trend_ms_per_d=float(doc.get("trend_ms_per_d", 0.0)),
+                     t_ref=float(doc.get("t_ref", 0.0)))
+
+
+def read_truths(folder):
+    """Read every ``*.json`` true orbit in a folder.
+
+    Parameters
+    ----------
+    folder : str or Path
+        Folder of truth files (``scenarios/demo/truth``).
+
+    Returns
+    -------
+    dict of str to TrueOrbit
+        Keyed by target id.
+
+    Raises
+    ------
+    ScenarioError
+        When the folder has no truth file or a file is malformed (one sentence naming it).
+    """
+    folder = Path(folder)
+    files = sorted(folder.glob("*.json"))
+    if not files:
+        raise ScenarioError(f"{folder}: no true-orbit files (*.json) found; pass the folder "
+                            "written beside the scenario, such as scenarios/demo/truth.")
+    truths = {}
+    for path in files:
+        try:
+            doc = json.loads(path.read_text(encoding="utf-8"))
+        except json.JSONDecodeError as exc:
+            raise ScenarioError(f"{path}: not valid JSON at line {exc.lineno} ({exc.msg}); "
+                                "fix or regenerate the file.") from None
+        truth = _truth_from_dict(doc, str(path))
+        truths[truth.target] = truth
+    return truths
+
+
+def truth_from_sample(posterior, index, instrument=None):
+    """Make a true orbit equal to one complete posterior sample (for calibration runs).
+
+    Parameters
+    ----------
+    posterior : inference.posterior.Posterior
+        Posterior with complete samples.
+    index : int
+        Sample row.
+    instrument : str, optional
+        Instrument whose offset and jitter are used; default the model's first.
+
+    Returns
+    -------
+    TrueOrbit
+    """
+    names = posterior.names
+    row = posterior.samples[index]
+    value = dict(zip(names, row, strict=True))
+    inst = instrument if instrument is not None else posterior.model.instruments[0]
+    planets = tuple(
+        Planet(period_d=float(value[f"period_{k}"]),
+               semi_amplitude_ms=float(value[f"semi_amplitude_{k}"]),
+               eccentricity=float(value[f"eccentricity_{k}"]),
+               omega_rad=float(value[f"omega_{k}"]),
+               time_periastron_bjd=float(value[f"time_periastron_{k}"]))
+        for k in range(1, posterior.model.n_planets + 1)
+    )
+    return TrueOrbit(target=posterior.target, instrument=inst,
+                     offset_ms=float(value[f"offset_{inst}"]),
+                     jitter_ms=float(value[f"jitter_{inst}"]), planets=planets,
+                     trend_ms_per_d=float(value.get("trend", 0.0)),
+                     t_ref=float(posterior.model.t_ref))
+
+
+@dataclass(frozen=True)
+class Weather:
+    """Seeded weather loss.
+
+    Attributes
+    ----------
+    night_loss : float
+        Probability that a whole night is lost, independently per night.
+    hour_loss : float
+        Probability that a clock hour (UTC) of a surviving night is lost, independently.
+    """
+
+    night_loss: float = 0.0
+    hour_loss: float = 0.0
+
+    def __post_init__(self):
+        for name in ("night_loss", "hour_loss"):
+            value = getattr(self, name)
+            if not (0.0 <= value <= 1.0):
+                raise ScenarioError(f"weather {name} is {value}; give a probability between "
+                                    "0 and 1.")
+
+
+@dataclass(frozen=True)
+class LostTime:
+    """Time lost to the weather in one simulated run.
+
+    Attributes
+    ----------
+    intervals_jd : ndarray, shape (n_lost, 2)
+        Lost spans, start and end, JD (UTC) [d], sorted.
+    nights_lost : tuple of int
+        Indices of the nights lost whole.
+    """
+
+    intervals_jd: np.ndarray
+    nights_lost: tuple[int, ...] = ()
+
+
+def draw_weather(windows_jd, weather, rng):
+    """Draw the weather of a run.
+
+    Parameters
+    ----------
+    windows_jd : ndarray, shape (n_nights, 2)
+        Each night's observing window, start and end, JD (UTC) [d].
+    weather : Weather
+        Loss probabilities.
+    rng : numpy.random.Generator
+        Generator for the draws.
+
+    Returns
+    -------
+    LostTime
+
+    Notes
+    -----
+    The draws depend only on the windows and the generator, never on a plan, so every strategy
+    run with the same seed meets the same weather (common random numbers).
+    """
+    windows = np.atleast_2d(np.asarray(windows_jd, dtype=float))
+    spans, whole = [], []
+    for k, (start, end) in enumerate(windows):
+        first, last = math.floor(start * 24.0), math.floor(end * 24.0)
+        night_lost = rng.random() < weather.night_loss
+        hours_lost = rng.random(last - first + 1) < weather.hour_loss
+        if night_lost:
+            whole.append(k)
+            spans.append((start, end))
+            continue
+        for h in np.flatnonzero(hours_lost):
+            spans.append((max(start, (first + h) / 24.0), min(end, (first + h + 1) / 24.0)))
+    arr = np.array(sorted(spans), dtype=float).reshape(-1, 2)
+    return LostTime(intervals_jd=arr, nights_lost=tuple(whole))
+
+
+def lost_mask(starts_jd, ends_jd, lost):
+    """Which visits overlap lost time.
+
+    Parameters
+    ----------
+    starts_jd, ends_jd : ndarray, shape (n_visits,)
+        Shutter open and close, JD (UTC) [d].
+    lost : LostTime
+        The weather of the run.
+
+    Returns
+    -------
+    ndarray of bool, shape (n_visits,)
+        True where the exposure overlaps a lost span (a partial exposure yields nothing).
+    """
+    starts = np.asarray(starts_jd, dtype=float)[:, None]
+    ends = np.asarray(ends_jd, dtype=float)[:, None]
+    iv = lost.intervals_jd
+    if iv.shape[0] == 0:
+        return np.zeros(starts.shape[0], dtype=bool)
+    return np.any((starts < iv[None, :, 1]) & (ends > iv[None, :, 0]), axis=1)
