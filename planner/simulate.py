@@ -278,7 +278,8 @@ def draw_weather(windows_jd, weather, rng):
     windows = np.atleast_2d(np.asarray(windows_jd, dtype=float))
     spans, whole = [], []
     for k, (start, end) in enumerate(windows):
-        first, last = math.floor(start * 24.0), math.floor(end * 24.0)
+        # Clock hours overlapping the window with positive length.
+        first, last = math.floor(start * 24.0), math.ceil(end * 24.0) - 1
         night_lost = rng.random() < weather.night_loss
         hours_lost = rng.random(last - first + 1) < weather.hour_loss
         if night_lost:
