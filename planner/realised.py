@@ -1,333 +1,203 @@
-"""What a run really taught: realised information and the shrink of the posterior volume.
+"""What a run really taught each star: realised information and the shrink of its volume.
 
-The realised information of new data is the Kullback-Leibler divergence from the old posterior
-to the new one, ``KL(new || old)`` in bits. Its expectation over the data the old posterior
-predicts is the expected information the planner promises (Lindley 1956), which is what makes
-the two comparable.
-
-Three estimators, each used where it is exact or best:
-
-* ``reweight_kl_bits``: the new posterior is the old samples with normalised importance
-  weights ``w_i``; then ``KL = sum_i w_i log2(N w_i)``, exact on that support.
-* ``bridge_kl_bits``: after a refit the density ratio new/old is the likelihood of the new data
-  over its evidence ``Z``; ``KL = E_new[log L_new] - log Z`` with ``Z`` from bridge sampling
-  between the old and the new samples (Meng and Wong 1996). Needs only the likelihood of the new
-  data on both sample sets, no density estimate.
-* ``knn_kl_bits``: the k-nearest-neighbour estimator of Wang, Kulkarni and Verdu (2009) from the
-  two sample sets alone, in whitened coordinates; the fallback when the bridge's overlap is too
-  small. ``gaussian_kl_bits`` is the closed form between Gaussian approximations.
-
-The volume measure is the product of the posterior standard deviations of period,
-semi-amplitude and eccentricity (every planet), reported as its log2; the shrink in bits is
-``log2 V_before - log2 V_after``.
+Glue between posterior records and the estimators of :mod:`planner.divergence`. The new data's
+log likelihood at every complete old sample gives the importance weights; while their effective
+sample size allows, the new posterior is the reweighted old samples and the realised information
+is exact on that support (the same support the planner's expected information is computed on);
+after a refit it is the bridge estimate, or the kNN estimate where the two sample sets barely
+overlap. See ``docs/simulation.md``.
 """
 
 from __future__ import annotations
 
-import logging
 import math
+from dataclasses import dataclass
 
 import numpy as np
-from scipy.spatial import cKDTree
-from scipy.special import logsumexp
+
+from planner.divergence import (
+    bridge_kl_bits,
+    effective_sample_size,
+    knn_kl_bits,
+    log2_volume,
+    normalised_log_weights,
+    reweight_kl_bits,
+)
 
 __all__ = [
-    "LN2",
-    "reweight_kl_bits",
-    "effective_sample_size",
-    "bridge_log_evidence",
-    "bridge_kl_bits",
-    "knn_kl_bits",
-    "gaussian_kl_closed_bits",
-    "gaussian_kl_bits",
-    "log2_volume",
+    "MAX_BRIDGE_STDERR_BITS",
+    "StarRealised",
+    "measure_refit",
+    "measure_reweighted",
+    "new_data_loglike",
+    "volume_columns",
 ]
 
-logger = logging.getLogger(__name__)
 
-#: Natural log of 2: nats per bit.
-LN2 = math.log(2.0)
-
-
-def _normalised_log_weights(log_weights):
-    lw = np.asarray(log_weights, dtype=float)
-    if lw.ndim != 1 or lw.size == 0:
-        raise ValueError(
-            "log_weights must be a non-empty 1-D array; pass one log weight per old sample."
-        )
-    if not np.all(np.isfinite(lw) | (lw == -np.inf)) or np.all(lw == -np.inf):
-        raise ValueError(
-            "log_weights must be finite or -inf with at least one finite value; check the "
-            "likelihood of the new data for NaN."
-        )
-    return lw - logsumexp(lw)
-
-
-def reweight_kl_bits(log_weights):
-    """KL divergence [bits] of an importance-reweighted posterior from the equal-weight one.
+def volume_columns(posterior):
+    """Return the period, semi-amplitude and eccentricity columns of every planet.
 
     Parameters
     ----------
-    log_weights : ndarray, shape (n_samples,)
-        Unnormalised log importance weights of the old equal-weight samples (for new data:
-        the log likelihood of the new data at each sample) [nats].
+    posterior : inference.posterior.Posterior
+        Posterior with complete samples.
 
     Returns
     -------
-    float
-        ``sum_i w_i log2(N w_i)`` with ``w`` the normalised weights [bits]; 0 for equal weights,
-        ``log2 N`` when one sample takes all the weight.
-
-    Notes
-    -----
-    Exact for the discrete distribution on the old samples, which is also the distribution the
-    planner's expected information is computed on, so the calibration identity holds exactly.
+    ndarray, shape (n_samples, 3 * n_planets)
+        ``period_k`` [d], ``semi_amplitude_k`` [m/s], ``eccentricity_k`` for k = 1..n_planets.
     """
-    lwn = _normalised_log_weights(log_weights)
-    w = np.exp(lwn)
-    keep = w > 0
-    n = lwn.size
-    return float(np.sum(w[keep] * (lwn[keep] + math.log(n))) / LN2)
+    names = [f"{p}_{k}" for k in range(1, posterior.model.n_planets + 1)
+             for p in ("period", "semi_amplitude", "eccentricity")]
+    return np.column_stack([posterior.param(n) for n in names])
 
 
-def effective_sample_size(log_weights):
-    """Kish effective sample size ``1 / sum w_i^2`` of normalised importance weights.
+def new_data_loglike(predicted, rv, rv_err, jitter):
+    """Log likelihood of new velocities at every complete posterior sample.
 
     Parameters
     ----------
-    log_weights : ndarray, shape (n_samples,)
-        Unnormalised log weights [nats].
+    predicted : ndarray, shape (n_samples, n_new)
+        Model velocities of each sample at the new times, offset and trend included [m/s].
+    rv : ndarray, shape (n_new,)
+        New velocities [m/s].
+    rv_err : ndarray, shape (n_new,)
+        Their measurement errors [m/s].
+    jitter : ndarray, shape (n_samples,)
+        Each sample's jitter of the instrument [m/s].
 
     Returns
     -------
-    float
-        Between 1 and ``n_samples``.
+    ndarray, shape (n_samples,)
+        ``sum_j log Normal(rv_j; predicted_ij, rv_err_j^2 + jitter_i^2)`` [nats].
     """
-    lwn = _normalised_log_weights(log_weights)
-    return float(1.0 / np.exp(logsumexp(2.0 * lwn)))
+    var = np.asarray(rv_err, float)[None, :] ** 2 + np.asarray(jitter, float)[:, None] ** 2
+    resid = np.asarray(rv, float)[None, :] - predicted
+    return -0.5 * np.sum(resid**2 / var + np.log(2.0 * np.pi * var), axis=1)
 
 
-def bridge_log_evidence(loglike_old, loglike_new, max_iter=200, tol=1e-10):
-    """Log evidence ``log E_old[L]`` of new data by optimal bridge sampling.
+@dataclass(frozen=True)
+class StarRealised:
+    """What one star's new velocities taught.
 
-    Parameters
+    Attributes
     ----------
-    loglike_old : ndarray, shape (n_old,)
-        Log likelihood of the new data at samples of the old posterior [nats].
-    loglike_new : ndarray, shape (n_new,)
-        Log likelihood of the new data at samples of the new posterior (old times that
-        likelihood, normalised) [nats].
-    max_iter : int
-        Iterations of the fixed-point scheme.
-    tol : float
-        Convergence tolerance on the log evidence [nats].
-
-    Returns
-    -------
-    log_z : float
-        Estimate of ``log Z`` [nats].
-    rel_error : float
-        Approximate relative standard error of ``Z`` (delta method on the two means, samples
-        treated as independent; Fruhwirth-Schnatter 2004).
-
-    Notes
-    -----
-    Meng and Wong (1996), optimal bridge: with ``p_old`` normalised, ``q = p_old L`` unnormalised
-    and the optimal bridge, ``Z = E_old[L / (s1 Z + s2 L)] / E_new[1 / (s1 Z + s2 L)]``,
-    ``s_j`` the sample fractions, iterated to its fixed point.
-    """
-    lo = np.asarray(loglike_old, dtype=float)
-    ln = np.asarray(loglike_new, dtype=float)
-    n1, n2 = lo.size, ln.size
-    ls1, ls2 = math.log(n1 / (n1 + n2)), math.log(n2 / (n1 + n2))
-    # Start from the importance estimate; the scheme converges from any start.
-    log_z = float(logsumexp(lo) - math.log(n1))
-    for _ in range(max_iter):
-        # Z = mean_old[L / (s1 Z + s2 L)] / mean_new[1 / (s1 Z + s2 L)], in logs.
-        num = logsumexp(lo - np.logaddexp(ls1 + log_z, ls2 + lo)) - math.log(n1)
-        den = logsumexp(-np.logaddexp(ls1 + log_z, ls2 + ln)) - math.log(n2)
-        new = float(num - den)
-        converged = abs(new - log_z) < tol
-        log_z = new
-        if converged:
-            break
-    # Delta method on the ratio of two independent means, each bounded in [0, 1].
-    f_old = np.exp(ls2 + lo - np.logaddexp(ls1 + log_z, ls2 + lo))
-    f_new = np.exp(ls1 + log_z - np.logaddexp(ls1 + log_z, ls2 + ln))
-    re2 = 0.0
-    for f, n in ((f_old, n1), (f_new, n2)):
-        mean = float(np.mean(f))
-        re2 = math.inf if mean <= 0 else re2 + float(np.var(f)) / (n * mean**2)
-    return log_z, math.sqrt(re2)
-
-
-def bridge_kl_bits(loglike_old, loglike_new):
-    """KL divergence [bits] of a refitted posterior from the old one, by bridge sampling.
-
-    Parameters
-    ----------
-    loglike_old : ndarray, shape (n_old,)
-        Log likelihood of the new data at the old samples [nats].
-    loglike_new : ndarray, shape (n_new,)
-        Log likelihood of the new data at the new samples [nats].
-
-    Returns
-    -------
+    target : str
+        Target id.
     bits : float
-        ``(mean(loglike_new) - log Z) / ln 2`` [bits].
+        Realised information ``KL(new || old)`` [bits].
     stderr : float
-        Its approximate standard error [bits]: sample spread of the mean and the bridge error
-        of ``log Z``.
-
-    Notes
-    -----
-    Uses ``p_new / p_old = L / Z`` for conditionally independent data (Bayes' rule), and
-    ``Z`` from :func:`bridge_log_evidence` (Meng and Wong 1996).
+        Standard error of ``bits`` from the estimator (0 for the exact reweighting) [bits].
+    method : str
+        ``"reweight"`` (exact on the old samples), ``"refit-bridge"`` or ``"refit-knn"``.
+    ess : float
+        Effective sample size of the new data's weights on the old samples.
+    n_new : int
+        Number of new velocities.
+    log2_volume_before, log2_volume_after : float
+        :func:`log2_volume` of the period, semi-amplitude and eccentricity of every planet,
+        before and after.
     """
-    ln = np.asarray(loglike_new, dtype=float)
-    log_z, rel = bridge_log_evidence(loglike_old, ln)
-    bits = (float(np.mean(ln)) - log_z) / LN2
-    se_mean = float(np.std(ln)) / math.sqrt(ln.size)
-    return bits, math.hypot(se_mean, rel) / LN2
+
+    target: str
+    bits: float
+    stderr: float
+    method: str
+    ess: float
+    n_new: int
+    log2_volume_before: float
+    log2_volume_after: float
+
+    @property
+    def shrink_bits(self) -> float:
+        """Shrink of the posterior volume, ``log2 V_before - log2 V_after`` [bits]."""
+        return self.log2_volume_before - self.log2_volume_after
 
 
-def _kth_positive_distance(dist, k):
-    """k-th smallest strictly positive distance per row (duplicates count as ties)."""
-    d = np.where(dist > 0, dist, np.inf)
-    d = np.sort(d, axis=1)
-    return d[:, k - 1]
-
-
-def knn_kl_bits(new, old, k=1):
-    """k-nearest-neighbour estimate of KL(new || old) [bits] from two sample sets.
+def measure_reweighted(old, loglike_old, n_new):
+    """Realised information when the new posterior is the old samples reweighted.
 
     Parameters
     ----------
-    new : ndarray, shape (n, d)
-        Samples of the distribution ``p`` whose divergence is measured.
-    old : ndarray, shape (m, d)
-        Samples of the reference ``q``.
-    k : int
-        Neighbour order, the same in both sets.
+    old : inference.posterior.Posterior
+        Posterior before the new data.
+    loglike_old : ndarray, shape (n_samples,)
+        Log likelihood of the new data at the old samples [nats] (:func:`new_data_loglike`).
+    n_new : int
+        Number of new velocities.
 
     Returns
     -------
-    float
-        ``(d/n) sum_i log(nu_k(i) / rho_k(i)) + log(m / (n - 1))`` in bits, with ``rho_k`` the
-        distance to the k-th neighbour among the other ``new`` samples and ``nu_k`` among the
-        ``old`` samples, both in coordinates whitened by the covariance of ``old`` (an affine map,
-        which leaves KL unchanged).
-
-    Notes
-    -----
-    Wang, Kulkarni and Verdu (2009), IEEE Trans. Inf. Theory 55, 2392, with
-    ``k_n = l_m = k``. Exact duplicates (repeated MCMC states) are skipped by taking the k-th
-    strictly positive distance. Columns constant in both sets are dropped.
+    StarRealised
+        ``method="reweight"``, exact on the old samples (:func:`reweight_kl_bits`).
     """
-    p = np.atleast_2d(np.asarray(new, dtype=float))
-    q = np.atleast_2d(np.asarray(old, dtype=float))
-    if p.shape[1] != q.shape[1]:
-        raise ValueError(
-            f"new has {p.shape[1]} columns and old {q.shape[1]}; pass the same coordinates."
-        )
-    if p.shape[0] <= k or q.shape[0] < k:
-        raise ValueError(f"need more than k={k} samples in each set for the kNN estimator.")
-    keep = (np.ptp(q, axis=0) > 0) | (np.ptp(p, axis=0) > 0)
-    p, q = p[:, keep], q[:, keep]
-    mean = q.mean(axis=0)
-    cov = np.atleast_2d(np.cov(q, rowvar=False))
-    chol = np.linalg.cholesky(cov + 1e-12 * np.diag(np.diag(cov)))
-    pw = np.linalg.solve(chol, (p - mean).T).T
-    qw = np.linalg.solve(chol, (q - mean).T).T
-    n, d = pw.shape
-    m = qw.shape[0]
-    extra = k + 8
-    rho_all, _ = cKDTree(pw).query(pw, k=min(n, extra + 1))
-    nu_all, _ = cKDTree(qw).query(pw, k=min(m, extra))
-    rho = _kth_positive_distance(np.atleast_2d(rho_all), k)
-    nu = _kth_positive_distance(np.atleast_2d(nu_all), k)
-    ok = np.isfinite(rho) & np.isfinite(nu)
-    if not np.any(ok):
-        raise ValueError("every sample is a duplicate; the kNN estimator needs distinct samples.")
-    nats = d * float(np.mean(np.log(nu[ok] / rho[ok]))) + math.log(m / (n - 1))
-    return nats / LN2
+    lwn = normalised_log_weights(loglike_old)
+    cols = volume_columns(old)
+    return StarRealised(
+        target=old.target, bits=reweight_kl_bits(lwn), stderr=0.0, method="reweight",
+        ess=effective_sample_size(lwn), n_new=int(n_new),
+        log2_volume_before=log2_volume(cols), log2_volume_after=log2_volume(cols, np.exp(lwn)),
+    )
 
 
-def gaussian_kl_closed_bits(mean1, cov1, mean0, cov0):
-    """Closed-form KL(N(mean1, cov1) || N(mean0, cov0)) [bits].
+#: The bridge estimate is used while its standard error stays below this [bits]; past it the
+#: two sample sets barely overlap and the kNN estimator takes over.
+MAX_BRIDGE_STDERR_BITS = 0.5
+
+
+def _mean_anomalies(posterior):
+    t_ref = float(posterior.model.t_ref)
+    return [2.0 * np.pi * (t_ref - posterior.param(f"time_periastron_{k}"))
+            / posterior.param(f"period_{k}") for k in range(1, posterior.model.n_planets + 1)]
+
+
+def _knn_coordinates(posterior, centres):
+    """Map complete samples to coordinates without wrap-around for the kNN estimator.
+
+    Per planet: log period, eccentricity, ``K cos omega``, ``K sin omega`` and the mean anomaly
+    at ``t_ref`` unwrapped about ``centres[k]`` into (-pi, pi]; then every other column as it
+    is. The map is one-to-one on the samples, so KL is unchanged.
+    """
+    cols, used = [], set()
+    for k, ma in enumerate(_mean_anomalies(posterior), start=1):
+        amp, om = posterior.param(f"semi_amplitude_{k}"), posterior.param(f"omega_{k}")
+        cols += [np.log(posterior.param(f"period_{k}")), posterior.param(f"eccentricity_{k}"),
+                 amp * np.cos(om), amp * np.sin(om), np.angle(np.exp(1j * (ma - centres[k - 1])))]
+        used |= {f"{n}_{k}" for n in ("period", "semi_amplitude", "eccentricity", "omega",
+                                      "time_periastron")}
+    cols += [posterior.param(n) for n in posterior.names if n not in used]
+    return np.column_stack(cols)
+
+
+def measure_refit(old, new, loglike_old, loglike_new, n_new):
+    """Realised information when the new posterior was sampled afresh.
 
     Parameters
     ----------
-    mean1, mean0 : ndarray, shape (d,)
-        Means.
-    cov1, cov0 : ndarray, shape (d, d)
-        Covariances, positive definite.
+    old, new : inference.posterior.Posterior
+        Posteriors before and after the new data (same model).
+    loglike_old, loglike_new : ndarray, shape (n_old,) and (n_new_samples,)
+        Log likelihood of the new data at the old and at the new samples [nats].
+    n_new : int
+        Number of new velocities.
 
     Returns
     -------
-    float
-        ``0.5 [tr(S0^-1 S1) + dm^T S0^-1 dm - d + ln(det S0 / det S1)] / ln 2``.
-
-    Notes
-    -----
-    The standard result for multivariate normals (e.g. Kullback 1959; Cover and Thomas 2006).
+    StarRealised
+        ``method="refit-bridge"`` (:func:`bridge_kl_bits`) while its standard error is below
+        :data:`MAX_BRIDGE_STDERR_BITS`, else ``"refit-knn"`` (:func:`knn_kl_bits` on
+        wrap-free coordinates, standard error ``nan``).
     """
-    m1, m0 = np.atleast_1d(mean1).astype(float), np.atleast_1d(mean0).astype(float)
-    s1, s0 = np.atleast_2d(cov1).astype(float), np.atleast_2d(cov0).astype(float)
-    d = m1.size
-    c0 = np.linalg.cholesky(s0)
-    c1 = np.linalg.cholesky(s1)
-    a = np.linalg.solve(c0, c1)
-    dm = np.linalg.solve(c0, m0 - m1)
-    logdet = 2.0 * (np.sum(np.log(np.diag(c0))) - np.sum(np.log(np.diag(c1))))
-    nats = 0.5 * (np.sum(a**2) + dm @ dm - d + logdet)
-    return float(nats / LN2)
-
-
-def gaussian_kl_bits(new, old, new_weights=None):
-    """KL(new || old) [bits] between Gaussian approximations of two sample sets.
-
-    Parameters
-    ----------
-    new : ndarray, shape (n, d)
-        Samples of the new posterior.
-    old : ndarray, shape (m, d)
-        Samples of the old posterior.
-    new_weights : ndarray, shape (n,), optional
-        Normalised weights of the new samples.
-
-    Returns
-    -------
-    float
-        :func:`gaussian_kl_closed_bits` of the sample means and covariances; exact for
-        Gaussian posteriors, an approximation otherwise.
-    """
-    p = np.atleast_2d(np.asarray(new, dtype=float))
-    q = np.atleast_2d(np.asarray(old, dtype=float))
-    keep = (np.ptp(q, axis=0) > 0) | (np.ptp(p, axis=0) > 0)
-    p, q = p[:, keep], q[:, keep]
-    m1 = np.average(p, axis=0, weights=new_weights)
-    s1 = np.atleast_2d(np.cov(p, rowvar=False, aweights=new_weights))
-    return gaussian_kl_closed_bits(m1, s1, q.mean(axis=0), np.atleast_2d(np.cov(q, rowvar=False)))
-
-
-def log2_volume(columns, weights=None):
-    """log2 of the product of the standard deviations of the given parameter columns.
-
-    Parameters
-    ----------
-    columns : ndarray, shape (n_samples, n_columns)
-        Samples of period [d], semi-amplitude [m/s] and eccentricity of every planet.
-    weights : ndarray, shape (n_samples,), optional
-        Normalised sample weights (an importance-reweighted posterior).
-
-    Returns
-    -------
-    float
-        ``sum_j log2 std_j`` [log2 of d * m/s]; ``-inf`` if a column is constant.
-    """
-    x = np.atleast_2d(np.asarray(columns, dtype=float))
-    mean = np.average(x, axis=0, weights=weights)
-    var = np.average((x - mean) ** 2, axis=0, weights=weights)
-    with np.errstate(divide="ignore"):
-        return float(0.5 * np.sum(np.log2(var)))
+    bits, se = bridge_kl_bits(loglike_old, loglike_new)
+    method = "refit-bridge"
+    if not (math.isfinite(se) and se <= MAX_BRIDGE_STDERR_BITS):
+        centres = [math.atan2(float(np.mean(np.sin(ma))), float(np.mean(np.cos(ma))))
+                   for ma in _mean_anomalies(old)]
+        bits = knn_kl_bits(_knn_coordinates(new, centres), _knn_coordinates(old, centres))
+        se, method = math.nan, "refit-knn"
+    return StarRealised(
+        target=old.target, bits=float(bits), stderr=float(se), method=method,
+        ess=effective_sample_size(loglike_old), n_new=int(n_new),
+        log2_volume_before=log2_volume(volume_columns(old)),
+        log2_volume_after=log2_volume(volume_columns(new)),
+    )

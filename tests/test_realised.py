@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from scipy import integrate, stats
 
-from planner.realised import (
+from planner.divergence import (
     bridge_kl_bits,
     bridge_log_evidence,
     effective_sample_size,
