@@ -1,0 +1,8 @@
+"""Run the ``nightbits`` command as ``python -m planner``."""
+
+import sys
+
+from planner.cli import main
+
+if __name__ == "__main__":
+    sys.exit(main())
