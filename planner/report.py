@@ -198,8 +198,8 @@ def _night_body(night, visits, running, zone):
     idle_s = max(dark_s - exposing - slewing - lost_s, 0.0)
     lines.append("-" * len(_COLUMNS))
     plural = 's' if len(visits) != 1 else ''
-    lines.append(f"night total: {len(visits)} exposure{plural}, exposing {_duration(exposing)}, slewing "
-                 f"{_duration(slewing)}, idle {_duration(idle_s)}"
+    lines.append(f"night total: {len(visits)} exposure{plural}, exposing {_duration(exposing)}, "
+                 f"slewing {_duration(slewing)}, idle {_duration(idle_s)}"
                  f"{f', lost {_duration(lost_s)}' if lost_s else ''}; {bits:.3f} bits")
     return lines, running
 

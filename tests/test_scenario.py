@@ -220,6 +220,8 @@ def _paths(doc, prefix=()):
 
 
 _ALL_PATHS = list(_paths(VALID))
+# The folder fixture only holds a read-only RV file, so sharing it across examples is safe.
+_FIXTURE_OK = [HealthCheck.function_scoped_fixture]
 
 
 def _check_clear(text, path):
@@ -230,7 +232,7 @@ def _check_clear(text, path):
         assert message.startswith("run.yaml") and "\n" not in message and message.endswith(".")
 
 
-@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@settings(max_examples=150, deadline=None, suppress_health_check=_FIXTURE_OK)
 @given(where=st.sampled_from(_ALL_PATHS), value=_values)
 def test_mutated_documents_fail_only_with_a_sentence(folder, where, value):
     doc = copy.deepcopy(VALID)
@@ -241,7 +243,7 @@ def test_mutated_documents_fail_only_with_a_sentence(folder, where, value):
     _check_clear(yaml.safe_dump(doc), folder / "run.yaml")
 
 
-@settings(max_examples=100, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@settings(max_examples=100, deadline=None, suppress_health_check=_FIXTURE_OK)
 @given(text=st.one_of(st.text(max_size=80), _values.map(yaml.safe_dump)))
 def test_arbitrary_documents_fail_only_with_a_sentence(folder, text):
     _check_clear(text, folder / "run.yaml")
