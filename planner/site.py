@@ -167,8 +167,8 @@ def twilight_altitude(twilight: str | float) -> float:
     value = float(twilight)
     if not (math.isfinite(value) and -30.0 <= value <= 0.0):
         raise ScenarioError(
-            f"twilight altitude {twilight!r} deg is outside [-30, 0]; give the Sun's altitude at the "
-            "start of the dark window, such as -15."
+            f"twilight altitude {twilight!r} deg is outside [-30, 0]; give the Sun's altitude "
+            "at the start of the dark window, such as -15."
         )
     return value
 

@@ -44,6 +44,8 @@ class Sky:
         Index into ``nights`` of each grid time.
     step_s : float
         Grid step inside a night [s].
+    site : Site
+        The site (its altitude limits are used by :mod:`planner.observability`).
     nights : tuple of Night
         The nights the grid covers.
     names : tuple of str
@@ -68,6 +70,7 @@ class Sky:
     times_jd: NDArray[np.float64]
     night_index: NDArray[np.int64]
     step_s: float
+    site: Site
     nights: tuple[Night, ...]
     names: tuple[str, ...]
     altitude_deg: NDArray[np.float64]
@@ -190,6 +193,7 @@ def compute_sky(
         times_jd=np.concatenate(parts["t"]),
         night_index=np.concatenate(parts["i"]).astype(np.int64),
         step_s=float(step_s),
+        site=site,
         nights=nights,
         names=names,
         altitude_deg=alt,
