@@ -1,0 +1,351 @@
+"""Joint strategy: all nights at once with OR-Tools CP-SAT.
+
+The model is time-indexed: one Boolean per candidate visit (fixed start, option and target).
+Visits of one night may not overlap and must leave each slew between them:
+
+* one ``AtMostOne`` per slot clique, the candidates whose exposure plus the smallest possible gap
+  covers one start time (a clique formulation, whose linear relaxation is much stronger than one
+  NoOverlap of optional intervals);
+* one clause per remaining pair that conflicts only through its real, longer slew, so the
+  returned schedule respects the exact slew between every pair of neighbours.
+
+Per-target rules are linear constraints; the objective is the pairwise-redundancy surrogate
+(:mod:`planner.surrogate`) in integer units. The greedy plan is given as a complete hint, so the
+solver starts from a feasible plan and never returns a worse one. CP-SAT's best objective bound
+is a proven upper bound on the surrogate over every plan of the problem; the gap is reported
+against it.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+import time
+from dataclasses import dataclass
+
+import numpy as np
+from ortools.sat.python import cp_model
+
+from planner.allocate.conflicts import max_gap_min, slew_pairs, slot_cliques, spacing_cliques
+from planner.allocate.greedy import greedy_plan
+from planner.errors import PlanError
+from planner.plan import Plan, assemble_plan
+from planner.problem import Problem
+from planner.surrogate import Surrogate
+
+__all__ = ["JointHandles", "build_model", "joint_plan", "solve"]
+
+
+@dataclass(frozen=True, eq=False)
+class JointHandles:
+    """Variables of a joint model, for reading a solution back.
+
+    Attributes
+    ----------
+    problem : Problem
+        The problem the model was built from.
+    surrogate : Surrogate
+        Its objective.
+    x : list of cp_model.IntVar
+        One Boolean per candidate visit.
+    hint : ndarray of int or None
+        Candidate indices given as the solution hint.
+    stats : tuple of (str, float)
+        Model size figures.
+    """
+
+    problem: Problem
+    surrogate: Surrogate
+    x: list
+    hint: np.ndarray | None
+    stats: tuple[tuple[str, float], ...]
+
+
+def _night_counts(model, problem, x, s, n, members, cap):
+    """Number of visits of target ``s`` in night ``n`` as a linear expression or IntVar."""
+    if cap == 1:
+        return sum(x[c] for c in members)
+    y = model.NewIntVar(0, cap, f"y_{s}_{n}")
+    model.Add(y == sum(x[c] for c in members))
+    return y
+
+
+def _lower_hull(points):
+    """Lower convex hull of (x, y) points sorted by x."""
+    hull = []
+    for p in points:
+        while len(hull) >= 2 and (
+            (hull[-1][1] - hull[-2][1]) * (p[0] - hull[-2][0])
+            >= (p[1] - hull[-2][1]) * (hull[-1][0] - hull[-2][0])
+        ):
+            hull.pop()
+        hull.append(p)
+    return hull
+
+
+def _count_cuts(model, red, total, penalties, max_visits):
+    """Valid cuts: a target's summed redundancy is at least the least any N of its nights give.
+
+    With N visits in N distinct nights the pair terms add up to at least ``m_N``, the smallest
+    pair sum over N-subsets of the nights (exact by enumeration for small cases, else the sum of
+    the smallest ``N (N - 1) / 2`` pairs, which is lower still). The lower convex hull of
+    ``(N, m_N)`` gives linear cuts that tighten the relaxation of the pair products.
+    """
+    n = red.shape[0]
+    top = n if max_visits is None else min(n, max_visits)
+    pairs = np.sort(red[np.triu_indices(n, 1)])
+    points = [(0, 0), (1, 0)]
+    for k in range(2, top + 1):
+        if math.comb(n, k) <= 2000:
+            m = min(red[np.ix_(c, c)][np.triu_indices(k, 1)].sum()
+                    for c in map(list, itertools.combinations(range(n), k)))
+        else:
+            m = pairs[: k * (k - 1) // 2].sum()
+        points.append((k, int(m)))
+    hull = _lower_hull(points)
+    for (x0, y0), (x1, y1) in itertools.pairwise(hull):
+        if y1 > y0:
+            # penalty >= y0 + (y1 - y0) / (x1 - x0) * (N - x0), scaled to integers
+            model.Add((x1 - x0) * sum(penalties) >= (x1 - x0) * y0 + (y1 - y0) * (total - x0))
+
+
+def build_model(
+    problem: Problem, surrogate: Surrogate, *, hint: np.ndarray | None = None
+) -> tuple[cp_model.CpModel, JointHandles]:
+    """Build the CP-SAT model of a problem.
+
+    Parameters
+    ----------
+    problem : Problem
+        Candidate visits and rules.
+    surrogate : Surrogate
+        Integer objective.
+    hint : ndarray of int, optional
+        Candidate indices of a feasible plan, given as a full solution hint.
+
+    Returns
+    -------
+    model : cp_model.CpModel
+        The model (maximisation).
+    handles : JointHandles
+        Its variables.
+    """
+    model = cp_model.CpModel()
+    x = [model.NewBoolVar(f"x_{c}") for c in range(problem.n_candidates)]
+    cliques = slot_cliques(problem)
+    for members in cliques:
+        model.AddAtMostOne(x[c] for c in members)
+    pairs = slew_pairs(problem, max_gap_min(problem))
+    for a, b in pairs:
+        model.AddBoolOr([x[a].Not(), x[b].Not()])
+    for members in spacing_cliques(problem):
+        model.AddAtMostOne(x[c] for c in members)
+
+    objective = [surrogate.unary[c] * x[c] for c in range(problem.n_candidates)]
+    hint_set = set() if hint is None else {int(c) for c in hint}
+    n_products = 0
+    for s, rule in enumerate(problem.rules):
+        mine = np.flatnonzero(problem.target == s)
+        if mine.size == 0:
+            if rule.min_visits > 0 or rule.must_windows_jd:
+                raise PlanError(
+                    f"Target {problem.target_names[s]!r} has required visits but no observable "
+                    "start in the run; relax its rules or its limits."
+                )
+            continue
+        total = sum(x[c] for c in mine)
+        model.Add(total >= rule.min_visits)
+        if rule.max_visits is not None:
+            model.Add(total <= rule.max_visits)
+        for lo, hi in rule.must_windows_jd:
+            inside = mine[(problem.start_jd(mine) >= lo) & (problem.end_jd(mine) <= hi)]
+            model.Add(sum(x[c] for c in inside) >= 1)
+        nights = np.unique(problem.night[mine])
+        counts, caps, hinted = {}, {}, {}
+        for n in nights:
+            members = mine[problem.night[mine] == n]
+            caps[n] = min(rule.max_per_night, members.size)
+            model.Add(sum(x[c] for c in members) <= rule.max_per_night)
+            counts[n] = _night_counts(model, problem, x, s, n, members, caps[n])
+            hinted[n] = sum(int(c) in hint_set for c in members)
+        penalties = []
+        for i, a in enumerate(nights):
+            for b in nights[i:]:
+                r = int(surrogate.redundancy[s, a, b])
+                if r <= 0 or (a == b and caps[a] < 2):
+                    continue
+                n_products += 1
+                if a == b:
+                    ya = counts[a]
+                    less = model.NewIntVar(-1, caps[a] - 1, f"ym_{s}_{a}")
+                    model.Add(less == ya - 1)
+                    prod = model.NewIntVar(0, caps[a] * (caps[a] - 1), f"q_{s}_{a}")
+                    model.AddMultiplicationEquality(prod, [ya, less])
+                    half = model.NewIntVar(0, caps[a] * (caps[a] - 1) // 2, f"h_{s}_{a}")
+                    model.Add(2 * half == prod)
+                    objective.append(-r * half)
+                    if hint is not None:
+                        model.AddHint(half, hinted[a] * (hinted[a] - 1) // 2)
+                elif caps[a] == 1 and caps[b] == 1:
+                    z = model.NewBoolVar(f"z_{s}_{a}_{b}")
+                    model.Add(z >= counts[a] + counts[b] - 1)
+                    objective.append(-r * z)
+                    penalties.append(r * z)
+                    if hint is not None:
+                        model.AddHint(z, int(hinted[a] * hinted[b] > 0))
+                else:
+                    ya, yb = counts[a], counts[b]
+                    if caps[a] == 1:
+                        ya = _night_counts(model, problem, x, s, a, mine[problem.night[mine] == a], 2)
+                    if caps[b] == 1:
+                        yb = _night_counts(model, problem, x, s, b, mine[problem.night[mine] == b], 2)
+                    z = model.NewIntVar(0, caps[a] * caps[b], f"z_{s}_{a}_{b}")
+                    model.AddMultiplicationEquality(z, [ya, yb])
+                    objective.append(-r * z)
+                    if hint is not None:
+                        model.AddHint(z, hinted[a] * hinted[b])
+        if penalties and all(caps[n] == 1 for n in nights):
+            _count_cuts(model, surrogate.redundancy[s][np.ix_(nights, nights)], total,
+                        penalties, rule.max_visits)
+    model.Maximize(sum(objective))
+    if hint is not None:
+        for c in range(problem.n_candidates):
+            model.AddHint(x[c], int(c in hint_set))
+    stats = (
+        ("candidates", problem.n_candidates),
+        ("slot_cliques", len(cliques)),
+        ("slew_pairs", len(pairs)),
+        ("redundancy_terms", n_products),
+    )
+    return model, JointHandles(problem, surrogate, x, None if hint is None else np.asarray(hint),
+                               stats)
+
+
+def solve(
+    model: cp_model.CpModel,
+    handles: JointHandles,
+    *,
+    time_limit_s: float = 60.0,
+    seed: int = 0,
+    workers: int = 2,
+) -> Plan:
+    """Solve a joint model and read the plan back.
+
+    Parameters
+    ----------
+    model : cp_model.CpModel
+        From :func:`build_model`.
+    handles : JointHandles
+        Its variables.
+    time_limit_s : float
+        Wall-clock limit of the search [s].
+    seed : int
+        CP-SAT random seed.
+    workers : int
+        CP-SAT search workers.
+
+    Returns
+    -------
+    Plan
+        The best plan found (the hint's plan if the solver found none in time), with the proven
+        bound and the gap on the surrogate.
+
+    Raises
+    ------
+    PlanError
+        If the rules cannot all be met, or no plan was found and no hint was given.
+    """
+    problem, surrogate = handles.problem, handles.surrogate
+    solver = cp_model.CpSolver()
+    solver.parameters.max_time_in_seconds = float(time_limit_s)
+    solver.parameters.random_seed = int(seed)
+    solver.parameters.num_workers = int(workers)
+    if workers == 1:
+        solver.parameters.linearization_level = 2
+    elif workers == 2:
+        # CP-SAT's own two-worker portfolio leaves the bound at a weak value on these models;
+        # two LP-based workers (full and default linearisation) close it (docs/allocation.md).
+        solver.parameters.subsolvers.extend(["max_lp", "default_lp"])
+    t0 = time.perf_counter()
+    status = solver.Solve(model)
+    runtime = time.perf_counter() - t0
+    name = solver.StatusName(status)
+    if status == cp_model.INFEASIBLE:
+        raise PlanError(
+            "No plan meets every rule (minimum visits, must-do windows or spacing clash with the "
+            "sky limits); relax those rules."
+        )
+    if status in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+        chosen = np.array([c for c in range(problem.n_candidates) if solver.Value(handles.x[c])],
+                          dtype=np.int64)
+    elif handles.hint is not None:
+        chosen, name = handles.hint, "HINT_ONLY"
+    else:
+        raise PlanError(
+            f"The solver found no plan within {time_limit_s:g} s; raise the time limit."
+        )
+    bound = solver.BestObjectiveBound() / surrogate.scale
+    value = surrogate.value(problem, chosen)
+    marginal = _marginals(problem, surrogate, chosen)
+    stats = handles.stats + (
+        ("branches", solver.NumBranches()),
+        ("conflicts", solver.NumConflicts()),
+        ("wall_time_s", solver.WallTime()),
+    )
+    return assemble_plan(
+        problem, chosen, strategy="joint", objective=value / surrogate.scale,
+        marginal_bits=marginal, bound=max(bound, value / surrogate.scale), status=name,
+        runtime_s=runtime, seed=int(seed), stats=stats,
+    )
+
+
+def _marginals(problem: Problem, surrogate: Surrogate, chosen: np.ndarray) -> np.ndarray:
+    """Surrogate marginal bits of each chosen visit given the earlier ones of its target."""
+    chosen = np.asarray(chosen, dtype=np.int64)
+    out = np.zeros(chosen.size)
+    for k, c in enumerate(chosen):
+        earlier = chosen[(problem.target[chosen] == problem.target[c])
+                         & (problem.start[chosen] < problem.start[c])]
+        out[k] = surrogate.marginal(problem, [c], earlier)[0] / surrogate.scale
+    return out
+
+
+def joint_plan(
+    problem: Problem,
+    surrogate: Surrogate,
+    *,
+    time_limit_s: float = 60.0,
+    seed: int = 0,
+    workers: int = 2,
+    hint: Plan | None = None,
+) -> Plan:
+    """Build and solve the joint model, hinted with ``hint`` (default: the greedy plan).
+
+    Parameters
+    ----------
+    problem : Problem
+        Candidate visits and rules.
+    surrogate : Surrogate
+        Integer objective.
+    time_limit_s, seed, workers
+        Solver limits (see :func:`solve`); the time limit covers the search only.
+    hint : Plan, optional
+        A feasible plan of this problem to start from; default: :func:`greedy_plan` on the
+        surrogate.
+
+    Returns
+    -------
+    Plan
+        The joint plan; its ``runtime_s`` includes building the hint and the model.
+    """
+    t0 = time.perf_counter()
+    hint = greedy_plan(problem, surrogate) if hint is None else hint
+    model, handles = build_model(problem, surrogate, hint=hint.candidates)
+    plan = solve(model, handles, time_limit_s=time_limit_s, seed=seed, workers=workers)
+    if plan.objective < hint.objective:
+        plan = assemble_plan(
+            problem, hint.candidates, strategy="joint", objective=hint.objective,
+            marginal_bits=_marginals(problem, surrogate, hint.candidates), bound=plan.bound,
+            status="HINT_KEPT", runtime_s=plan.runtime_s, seed=seed, stats=plan.stats,
+        )
+    return Plan(**{**plan.__dict__, "runtime_s": time.perf_counter() - t0})
