@@ -87,15 +87,23 @@ class ConstraintsConfig:
     """Observing limits applied to every exposure (targets may tighten them)."""
 
     max_airmass: float = _spec("float", 2.0, lo=1.0, hi=10.0, what="largest airmass")
-    min_moon_separation_deg: float = _spec("float", 30.0, lo=0.0, hi=180.0, what="[deg]")
+    min_moon_separation_deg: float | None = _spec("optfloat", None, lo=0.0, hi=180.0,
+                                                  what="one separation whatever the phase [deg]")
+    moon_table: tuple[tuple[float, float], ...] = _spec("pairs", (), lo=0.0, hi=180.0,
+                                                        what="[max illumination, min sep deg]")
+    blackouts: tuple[tuple[float, float], ...] = _spec("windows", (), what="closed UTC windows")
 
 
 @dataclass(frozen=True)
 class TelescopeConfig:
-    """The mount: slew rates per axis, settling time and the fixed overhead per visit."""
+    """The alt-azimuth mount: slew rates, settling, acquisition and its azimuth range."""
 
-    slew_rate_az_deg_s: float = _spec("float", 2.0, lo=0.01, hi=90.0, what="[deg/s]")
-    slew_rate_alt_deg_s: float = _spec("float", 1.5, lo=0.01, hi=90.0, what="[deg/s]")
+    azimuth_rate_deg_s: float = _spec("float", 2.0, lo=0.01, hi=90.0, what="[deg/s]")
+    altitude_rate_deg_s: float = _spec("float", 1.5, lo=0.01, hi=90.0, what="[deg/s]")
+    acceleration_deg_s2: float | None = _spec("optfloat", None, lo=0.001, hi=100.0,
+                                              what="[deg/s^2], null for instant top rate")
+    azimuth_range_deg: tuple[float, ...] = _spec("floats", (), lo=-720.0, hi=720.0,
+                                                 what="cable-wrap limits [deg]")
     settle_s: float = _spec("float", 20.0, lo=0.0, hi=3600.0, what="settling after a slew [s]")
     acquisition_s: float = _spec("float", 60.0, lo=0.0, hi=3600.0, what="target acquisition [s]")
 
@@ -116,6 +124,8 @@ class InstrumentConfig:
     floor_ms: float = _spec("float", 0.5, lo=0.0, hi=100.0, what="noise floor [m/s]")
     extinction_mag_per_airmass: float = _spec("float", 0.15, lo=0.0, hi=2.0, what="[mag]")
     readout_s: float = _spec("float", 30.0, lo=0.0, hi=3600.0, what="detector readout [s]")
+    aperture_arcsec2: float | None = _spec("optfloat", None, lo=0.01, hi=10000.0,
+                                           what="sky area in the fibre [arcsec^2]")
 
 
 @dataclass(frozen=True)
@@ -130,7 +140,7 @@ class ExposureConfig:
 class SkyConfig:
     """The time grid on which the sky and the information curves are computed."""
 
-    step_s: float = _spec("float", 120.0, lo=10.0, hi=1800.0, what="grid step [s]")
+    step_s: float = _spec("minutes", 120.0, lo=60.0, hi=1800.0, what="grid step [s]")
 
 
 @dataclass(frozen=True)
@@ -280,6 +290,13 @@ def parse_scenario(text: str, path: str | Path) -> Scenario:
     Scenario
     """
     path = Path(path).expanduser().resolve()
+    try:
+        return _parse(text, path)
+    except ScenarioError as exc:  # one line, whatever the file held
+        raise ScenarioError(" ".join(str(exc).split())) from None
+
+
+def _parse(text: str, path: Path) -> Scenario:
     where = path.name
     try:
         raw = yaml.safe_load(text)
@@ -310,6 +327,14 @@ def parse_scenario(text: str, path: str | Path) -> Scenario:
     cache_dir = None if cache is None else _coerce("path_any", cache, where, "cache", {}, base)
     targets = _targets(raw["targets"], where, base)
     site, sampler = sections["site"], sections["sampler"]
+    limits, telescope = sections["constraints"], sections["telescope"]
+    if limits.min_moon_separation_deg is not None and limits.moon_table:
+        raise ScenarioError(f"{where}: constraints: give min_moon_separation_deg or moon_table, "
+                            "not both.")
+    wrap = telescope.azimuth_range_deg
+    if wrap and (len(wrap) != 2 or wrap[1] - wrap[0] < 360.0):
+        raise ScenarioError(f"{where}: telescope.azimuth_range_deg: expected two limits at least "
+                            f"360 deg apart such as [-270, 270], got {list(wrap)}.")
     if site.min_altitude_deg >= site.max_altitude_deg:
         raise ScenarioError(f"{where}: site.min_altitude_deg ({site.min_altitude_deg}) must be "
                             f"below site.max_altitude_deg ({site.max_altitude_deg}).")
@@ -363,7 +388,8 @@ def _check_keys(raw: dict, allowed: tuple[str, ...], where: str, key_path: str) 
         if not isinstance(key, str) or key not in allowed:
             at = f"{key_path}." if key_path else ""
             hint = _did_you_mean(str(key), allowed)
-            raise ScenarioError(f"{where}: {at}{key}: unknown key{hint}; "
+            shown = key if isinstance(key, str) and key.isidentifier() else repr(key)
+            raise ScenarioError(f"{where}: {at}{shown}: unknown key{hint}; "
                                 f"allowed here: {', '.join(allowed)}.")
 
 
@@ -377,6 +403,20 @@ def _coerce(kind: str, value: Any, where: str, key_path: str, meta: dict, base: 
         return None
     if kind in ("float", "optfloat", "int", "optint"):
         return _number(value, meta, bad, integer=kind.endswith("int"))
+    if kind == "minutes":
+        number = _number(value, meta, bad, integer=False)
+        if not float(number / 60.0).is_integer():
+            raise bad(" (the solver clock counts whole minutes)")
+        return number
+    if kind == "pairs":
+        if not isinstance(value, list) or not all(isinstance(v, list) and len(v) == 2
+                                                  for v in value):
+            raise bad()
+        rows = tuple((_number(a, {"lo": 0.0, "hi": 1.0}, bad, integer=False),
+                      _number(b, meta, bad, integer=False)) for a, b in value)
+        if [r[0] for r in rows] != sorted(r[0] for r in rows) or (rows and rows[-1][0] != 1.0):
+            raise bad(" (illuminations must increase and end at 1)")
+        return rows
     if kind == "windows":
         if not isinstance(value, list):
             raise bad()
@@ -481,6 +521,8 @@ def _expected(meta: dict, kind: str | None = None) -> str:
     text = {
         "float": f"a number{span}", "optfloat": f"a number{span} or null",
         "optint": f"a whole number{span} or null",
+        "minutes": f"a whole number of minutes in seconds{span}",
+        "pairs": "a list of [max illumination 0-1, separation 0-180 deg] rows",
         "windows": "a list of [start, end] UTC date-times such as 2027-10-05T02:00:00Z",
         "int": f"a whole number{span}", "bool": "true or false",
         "floats": f"a list of numbers{span}", "date": "a date YYYY-MM-DD",
@@ -490,7 +532,8 @@ def _expected(meta: dict, kind: str | None = None) -> str:
     }.get(kind)
     if text is None and kind.startswith("choice:"):
         text = "one of " + ", ".join(kind.split(":", 1)[1].split(","))
-    return f"{text} ({what})" if what and kind not in ("twilight", "date", "windows") else text
+    plain = ("twilight", "date", "windows", "pairs")
+    return f"{text} ({what})" if what and kind not in plain else text
 
 
 def _describe(value: Any) -> str:

@@ -181,10 +181,10 @@ run:
   twilight: nautical
 constraints:
   max_airmass: 2.0
-  min_moon_separation_deg: 30
+  moon_table: [[0.25, 15], [0.6, 25], [1.0, 35]]
 telescope:
-  slew_rate_az_deg_s: 2.0
-  slew_rate_alt_deg_s: 1.5
+  azimuth_rate_deg_s: 2.0
+  altitude_rate_deg_s: 1.5
   settle_s: 20
   acquisition_s: 60
 instrument:
