@@ -147,10 +147,9 @@ class SkyConfig:
 class SamplerConfig:
     """Settings of the orbit-posterior sampler (the same for every target)."""
 
-    walkers: int = _spec("int", 32, lo=4, hi=1024, what="ensemble walkers")
-    steps: int = _spec("int", 1500, lo=10, hi=10**6, what="steps per walker after burn-in")
-    burn: int = _spec("int", 1500, lo=0, hi=10**6, what="burn-in steps per walker")
-    samples: int = _spec("int", 1000, lo=10, hi=10**6, what="posterior samples kept")
+    walkers: int = _spec("int", 48, lo=8, hi=1024, what="ensemble walkers, even")
+    samples: int = _spec("int", 1000, lo=50, hi=10**6, what="independent samples wanted")
+    max_steps: int = _spec("int", 20000, lo=100, hi=10**7, what="ensemble steps at most")
     seed: int = _spec("int", 1, lo=0, hi=2**63 - 1, what="seed of the sampler")
     min_period_d: float = _spec("float", 0.5, lo=0.01, hi=1e6, what="shortest period [d]")
     max_period_d: float = _spec("float", 5000.0, lo=0.02, hi=1e7, what="longest period [d]")
@@ -338,6 +337,9 @@ def _parse(text: str, path: Path) -> Scenario:
     if site.min_altitude_deg >= site.max_altitude_deg:
         raise ScenarioError(f"{where}: site.min_altitude_deg ({site.min_altitude_deg}) must be "
                             f"below site.max_altitude_deg ({site.max_altitude_deg}).")
+    if sampler.walkers % 2:
+        raise ScenarioError(f"{where}: sampler.walkers: expected an even number of walkers, "
+                            f"got {sampler.walkers}.")
     if sampler.min_period_d >= sampler.max_period_d:
         raise ScenarioError(f"{where}: sampler.min_period_d ({sampler.min_period_d}) must be "
                             f"below sampler.max_period_d ({sampler.max_period_d}).")

@@ -132,9 +132,9 @@ def main() -> None:
     (OUT / "truth").mkdir(parents=True, exist_ok=True)
     targets = []
     for name, kind in zip(names, [kinds[i] for i in order], strict=True):
-        # Right ascension 17 h - 7 h (through 0 h) and declination -75 to +20 deg: up at night
+        # Right ascension 20 h - 7 h (through 0 h) and declination -75 to +20 deg: up at night
         # in early October from latitude -27.5 deg.
-        ra = float((rng.uniform(255.0, 465.0)) % 360.0)
+        ra = float((rng.uniform(300.0, 465.0)) % 360.0)
         dec = float(np.degrees(np.arcsin(rng.uniform(np.sin(np.radians(-75.0)),
                                                      np.sin(np.radians(20.0))))))
         v_mag = float(rng.uniform(5.5, 10.5))
@@ -201,9 +201,8 @@ sky:
   step_s: 300
 sampler:
   walkers: 32
-  burn: 600
-  steps: 400
-  samples: 512
+  samples: 400
+  max_steps: 6000
   seed: 7
   min_period_d: 1.0
   max_period_d: 3000
