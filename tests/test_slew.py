@@ -1,0 +1,99 @@
+"""The slew and overhead model: closed forms, symmetry, cable wrap."""
+
+import numpy as np
+import pytest
+
+from planner.errors import ScenarioError
+from planner.slew import Mount, axis_seconds, slew_seconds
+
+
+def test_symmetric_and_zero_to_itself_apart_from_overheads(rng):
+    mount = Mount(rate1_deg_s=2.0, rate2_deg_s=2.0, accel_deg_s2=0.5, az_wrap_deg=(-270.0, 270.0))
+    alt = rng.uniform(20, 85, 50)
+    az = rng.uniform(0, 360, 50)
+    pairs = slew_seconds(mount, alt[:, None], az[:, None], alt[None, :], az[None, :])
+    assert pairs.shape == (50, 50)
+    np.testing.assert_allclose(pairs, pairs.T, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(np.diag(pairs), mount.overhead_s(), atol=1e-12)
+    assert mount.overhead_s() == mount.readout_s + mount.settle_s + mount.acquisition_s
+    motion = slew_seconds(
+        mount, alt[:, None], az[:, None], alt[None, :], az[None, :], include_overhead=False
+    )
+    np.testing.assert_allclose(pairs - motion, mount.overhead_s())
+
+
+def test_axis_profile_closed_forms():
+    # Kinematics: trapezoid d / v + v / a above the ramp distance v^2 / a, triangle 2 sqrt(d / a)
+    # below it, continuous at the ramp; no acceleration gives d / v.
+    assert axis_seconds(90.0, 2.0, 0.5) == pytest.approx(45.0 + 4.0)
+    assert axis_seconds(2.0, 2.0, 0.5) == pytest.approx(2 * np.sqrt(4.0))
+    assert axis_seconds(8.0, 2.0, 0.5) == pytest.approx(8.0)
+    assert axis_seconds(8.0 - 1e-9, 2.0, 0.5) == pytest.approx(8.0, abs=1e-6)
+    assert axis_seconds(-30.0, 3.0, None) == pytest.approx(10.0)
+
+
+def test_slower_axis_sets_the_time():
+    mount = Mount(rate1_deg_s=3.0, rate2_deg_s=1.0, settle_s=0, acquisition_s=0, readout_s=0)
+    assert slew_seconds(mount, 30.0, 100.0, 60.0, 130.0) == pytest.approx(30.0)  # altitude: 30 s
+    assert slew_seconds(mount, 30.0, 100.0, 35.0, 190.0) == pytest.approx(30.0)  # azimuth: 30 s
+    # Without a wrap the short way round is taken: 350 -> 10 deg is 20 deg.
+    assert slew_seconds(mount, 40.0, 350.0, 40.0, 10.0) == pytest.approx(20.0 / 3.0)
+
+
+def test_cable_wrap_forces_the_long_way_round():
+    # Wrap range (-180, 180): the limit is at azimuth 180 (south). From 170 to 190 deg the
+    # short way (20 deg) crosses it, so the mount turns 340 deg the other way.
+    free = Mount(rate1_deg_s=2.0, rate2_deg_s=2.0, settle_s=0, acquisition_s=0, readout_s=0)
+    wrapped = Mount(
+        rate1_deg_s=2.0,
+        rate2_deg_s=2.0,
+        settle_s=0,
+        acquisition_s=0,
+        readout_s=0,
+        az_wrap_deg=(-180.0, 180.0),
+    )
+    assert slew_seconds(free, 50.0, 170.0, 50.0, 190.0) == pytest.approx(10.0)
+    assert slew_seconds(wrapped, 50.0, 170.0, 50.0, 190.0) == pytest.approx(170.0)
+    # Away from the limit the wrap changes nothing.
+    assert slew_seconds(wrapped, 50.0, 350.0, 50.0, 10.0) == pytest.approx(10.0)
+    # A wide range (-270, 270) has its canonical window centred on north: limit at south.
+    wide = Mount(
+        rate1_deg_s=2.0,
+        rate2_deg_s=2.0,
+        settle_s=0,
+        acquisition_s=0,
+        readout_s=0,
+        az_wrap_deg=(-270.0, 270.0),
+    )
+    assert slew_seconds(wide, 50.0, 175.0, 50.0, 185.0) > slew_seconds(
+        free, 50.0, 175.0, 50.0, 185.0
+    )
+
+
+def test_equatorial_mount_moves_in_hour_angle_and_declination():
+    mount = Mount(
+        kind="equatorial",
+        rate1_deg_s=1.0,
+        rate2_deg_s=1.0,
+        settle_s=5,
+        acquisition_s=0,
+        readout_s=0,
+    )
+    # Hour angle 170 -> -170 deg is 20 deg the short way; declination 10 deg.
+    t = slew_seconds(
+        mount, 0, 0, 0, 0, ha1_deg=170.0, dec1_deg=-20.0, ha2_deg=-170.0, dec2_deg=-10.0
+    )
+    assert t == pytest.approx(25.0)
+    with pytest.raises(ScenarioError, match="equatorial mount needs"):
+        slew_seconds(mount, 0, 0, 0, 0)
+
+
+def test_bad_mounts_get_a_sentence():
+    with pytest.raises(ScenarioError, match="kind"):
+        Mount(kind="fork")
+    with pytest.raises(ScenarioError, match="rate1_deg_s"):
+        Mount(rate1_deg_s=0.0)
+    with pytest.raises(ScenarioError, match="360"):
+        Mount(az_wrap_deg=(-90.0, 180.0))
+    with pytest.raises(ScenarioError, match="altaz"):
+        Mount(kind="equatorial", az_wrap_deg=(-270.0, 270.0))
