@@ -14,6 +14,7 @@ vector (under 0.5 arcsec) are neglected.
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -162,6 +163,9 @@ class NodeEphemeris:
 def node_ephemeris(location, span_start_jd: ArrayLike, span_days: float = 1.0) -> NodeEphemeris:
     """Evaluate astropy at hourly nodes over spans ``[start, start + span_days]``.
 
+    The last few results are kept (keyed by site and spans), so computing the
+    nights and then the sky of the same run evaluates astropy once.
+
     Parameters
     ----------
     location : astropy.coordinates.EarthLocation
@@ -175,10 +179,26 @@ def node_ephemeris(location, span_start_jd: ArrayLike, span_days: float = 1.0) -
     -------
     NodeEphemeris
     """
-    from astropy.coordinates import TETE, get_body, get_body_barycentric
+    starts = np.atleast_1d(np.asarray(span_start_jd, dtype=float))
+    key = (
+        float(location.lon.deg),
+        float(location.lat.deg),
+        float(location.height.to_value("m")),
+        tuple(starts.tolist()),
+        float(span_days),
+    )
+    return _cached_nodes(key)
+
+
+@functools.lru_cache(maxsize=8)
+def _cached_nodes(key) -> NodeEphemeris:
+    import astropy.units as u
+    from astropy.coordinates import TETE, EarthLocation, get_body, get_body_barycentric
     from astropy.time import Time
 
-    starts = np.atleast_1d(np.asarray(span_start_jd, dtype=float))
+    lon, lat, height, starts, span_days = key
+    location = EarthLocation.from_geodetic(lon * u.deg, lat * u.deg, height * u.m)
+    starts = np.array(starts)
     n_nodes = int(np.ceil(span_days / NODE_STEP_D - 1e-9)) + 1
     jd = (starts[:, None] + NODE_STEP_D * np.arange(n_nodes)).ravel()
     with offline.quiet_astropy():
