@@ -8,7 +8,12 @@ import numpy as np
 
 from .errors import ModelError
 
-__all__ = ["ECCENTRICITY_MAX", "eccentric_anomaly", "kepler_residual"]
+__all__ = [
+    "ECCENTRICITY_MAX",
+    "eccentric_anomaly",
+    "eccentric_anomaly_sincos",
+    "kepler_residual",
+]
 
 #: Largest eccentricity for which the residual bound of 1e-12 rad is guaranteed.
 ECCENTRICITY_MAX = 0.999
@@ -30,8 +35,12 @@ def _check_eccentricity(e):
         )
 
 
-def _solve_block(m, e, out):
-    """Solve one 1-D block in place; ``e`` is a scalar or an array of the block's length."""
+def _solve_block(m, e, out, out_sin=None, out_cos=None):
+    """Solve one 1-D block in place; ``e`` is a scalar or an array of the block's length.
+
+    When `out_sin` and `out_cos` are given, sin E and cos E are written there too, from the
+    starter's sine and cosine and the angle-addition formulas (series in the tiny step).
+    """
     k = np.rint(m * _INV_TWO_PI)
     x = m - k * _TWO_PI  # reduced mean anomaly in [-pi, pi]
     np.multiply(k, _TWO_PI, out=k)  # k now holds the whole turns, in radians
@@ -59,10 +68,10 @@ def _solve_block(m, e, out):
     big_e += x
     big_e /= d
     # One fifth-order correction (Markley 1995, eq. 20-21).
-    s = np.sin(big_e)
-    s *= e
-    c = np.cos(big_e)
-    c *= e
+    sin_1 = np.sin(big_e)
+    cos_1 = np.cos(big_e)
+    s = sin_1 * e
+    c = cos_1 * e
     f0 = big_e - s
     f0 -= x
     f1 = 1.0 - c
@@ -72,6 +81,52 @@ def _solve_block(m, e, out):
     big_e += d5
     np.copysign(big_e, sign, out=big_e)
     np.add(big_e, k, out=out)
+    if out_sin is not None:
+        # |d5| < 1e-2, so the series below are exact to rounding (next terms d^6 / 720).
+        d2 = d5 * d5
+        sin_d = d5 * (1.0 - d2 * (1.0 / 6.0 - d2 * (1.0 / 120.0)))
+        cos_d = 1.0 - d2 * (0.5 - d2 * (1.0 / 24.0 - d2 * (1.0 / 720.0)))
+        np.copysign(sin_1 * cos_d + cos_1 * sin_d, sign, out=out_sin)
+        np.subtract(cos_1 * cos_d, sin_1 * sin_d, out=out_cos)
+
+
+def _run(mean_anomaly, eccentricity, with_sincos):
+    m = np.asarray(mean_anomaly, dtype=float)
+    e = np.asarray(eccentricity, dtype=float)
+    _check_eccentricity(e)
+    shape = np.broadcast_shapes(m.shape, e.shape)
+    outs = [np.empty(shape) for _ in range(3 if with_sincos else 1)]
+    flats = [o.reshape(-1) for o in outs]
+    n = flats[0].size
+    flat_m = np.broadcast_to(m, shape).reshape(-1)
+    scalar_e = e.size == 1
+    if scalar_e:
+        e_value = float(e.reshape(-1)[0])
+    else:
+        flat_e = np.broadcast_to(e, shape).reshape(-1)
+    for lo in range(0, n, _BLOCK):
+        hi = min(lo + _BLOCK, n)
+        e_block = e_value if scalar_e else flat_e[lo:hi]
+        _solve_block(flat_m[lo:hi], e_block, *(f[lo:hi] for f in flats))
+    return outs
+
+
+def eccentric_anomaly_sincos(mean_anomaly, eccentricity):
+    """Eccentric anomaly with its sine and cosine, saving two trigonometric calls.
+
+    Parameters
+    ----------
+    mean_anomaly : array_like, any shape
+        Mean anomaly M [rad].
+    eccentricity : array_like, broadcastable with `mean_anomaly`
+        Eccentricity, 0 <= e < 1.
+
+    Returns
+    -------
+    E, sin_E, cos_E : ndarray, broadcast shape of the inputs
+        As :func:`eccentric_anomaly`, plus sin E and cos E (to rounding error).
+    """
+    return tuple(_run(mean_anomaly, eccentricity, True))
 
 
 def eccentric_anomaly(mean_anomaly, eccentricity):
@@ -101,26 +156,7 @@ def eccentric_anomaly(mean_anomaly, eccentricity):
     M is first reduced to [-pi, pi] and the odd symmetry E(-M) = -E(M) is used. The residual
     ``|E - e sin E - M|`` (with M reduced) stays below 1e-12 rad for 0 <= e <= 0.999.
     """
-    m = np.asarray(mean_anomaly, dtype=float)
-    e = np.asarray(eccentricity, dtype=float)
-    _check_eccentricity(e)
-    shape = np.broadcast_shapes(m.shape, e.shape)
-    out = np.empty(shape)
-    flat_out = out.reshape(-1)
-    n = flat_out.size
-    if e.ndim == 0 or e.size == 1:
-        flat_m = np.broadcast_to(m, shape).reshape(-1)
-        e_scalar = float(e.reshape(-1)[0]) if e.size else 0.0
-        for lo in range(0, n, _BLOCK):
-            hi = min(lo + _BLOCK, n)
-            _solve_block(flat_m[lo:hi], e_scalar, flat_out[lo:hi])
-        return out
-    flat_m = np.broadcast_to(m, shape).reshape(-1)
-    flat_e = np.broadcast_to(e, shape).reshape(-1)
-    for lo in range(0, n, _BLOCK):
-        hi = min(lo + _BLOCK, n)
-        _solve_block(flat_m[lo:hi], flat_e[lo:hi], flat_out[lo:hi])
-    return out
+    return _run(mean_anomaly, eccentricity, False)[0]
 
 
 def kepler_residual(eccentric, mean_anomaly, eccentricity):

@@ -7,7 +7,12 @@ from hypothesis import strategies as st
 from scipy.optimize import brentq
 
 from inference.errors import ModelError
-from inference.kepler import ECCENTRICITY_MAX, eccentric_anomaly, kepler_residual
+from inference.kepler import (
+    ECCENTRICITY_MAX,
+    eccentric_anomaly,
+    eccentric_anomaly_sincos,
+    kepler_residual,
+)
 
 
 def test_meeus_example_30a():
@@ -89,3 +94,15 @@ def test_identities_and_broadcasting():
 def test_bad_eccentricity_is_refused(bad):
     with pytest.raises(ModelError, match=r"outside \[0, 1\)"):
         eccentric_anomaly(np.array([0.1, 0.2]), np.array([0.2, bad]))
+
+
+def test_sincos_variant_matches_numpy():
+    # sin E and cos E from the angle-addition series equal numpy's sin/cos of the returned E
+    # to rounding error.
+    rng = np.random.default_rng(5)
+    m = rng.uniform(-30.0, 30.0, 50_000)
+    e = rng.uniform(0.0, ECCENTRICITY_MAX, 50_000)
+    big_e, s, c = eccentric_anomaly_sincos(m, e)
+    np.testing.assert_array_equal(big_e, eccentric_anomaly(m, e))
+    np.testing.assert_allclose(s, np.sin(big_e), rtol=0, atol=1e-14)
+    np.testing.assert_allclose(c, np.cos(big_e), rtol=0, atol=1e-14)
