@@ -4,312 +4,192 @@ For each visit the simulator takes the true orbit's velocity at the mid-exposure
 (barycentric, BJD_TDB), adds Gaussian noise with the standard deviation the planner's own noise
 model predicts for that exposure at that airmass (:func:`planner.exposure.rv_sigma`, looked up at
 call time so there is one implementation only) and the star's true jitter in quadrature, and
-reports the measurement error without the jitter, as a real reduction would. Optional weather
-loss removes, with a seeded generator, whole nights or clock hours; a visit overlapping lost time
-yields nothing.
+reports the measurement error without the jitter, as a real reduction would. Weather loss
+(:mod:`planner.weather`) removes visits that overlap lost time. True orbits:
+:mod:`planner.truth`.
 """
 
 from __future__ import annotations
 
-import json
-import math
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 
-from inference.keplerian import radial_velocity
-from planner.errors import ScenarioError
+from inference.data import RVData
+from planner import exposure
+from planner.errors import PlanError
+from planner.sky import pointing_at
+from planner.weather import lost_mask
 
-__all__ = [
-    "Planet",
-    "TrueOrbit",
-    "Weather",
-    "read_truths",
-    "truth_from_sample",
-    "LostTime",
-    "draw_weather",
-    "lost_mask",
-]
+__all__ = ["Conditions", "Execution", "execute", "visit_conditions"]
 
 
 @dataclass(frozen=True)
-class Planet:
-    """One true Keplerian orbit.
+class Execution:
+    """The outcome of executing visits: one synthetic velocity per visit the weather allowed.
 
     Attributes
     ----------
-    period_d : float
-        Period [d].
-    semi_amplitude_ms : float
-        Semi-amplitude K [m/s].
-    eccentricity : float
-        Eccentricity, in [0, 1).
-    omega_rad : float
-        Star's argument of periastron [rad].
-    time_periastron_bjd : float
-        A time of periastron, BJD_TDB [d].
-    """
-
-    period_d: float
-    semi_amplitude_ms: float
-    eccentricity: float
-    omega_rad: float
-    time_periastron_bjd: float
-
-
-@dataclass(frozen=True)
-class TrueOrbit:
-    """A star's true velocity curve: planets, offset, jitter and an optional linear trend.
-
-    Attributes
-    ----------
-    target : str
-        Target id.
+    visits : tuple of planner.plan.Visit
+        Executed visits, in time order.
+    lost : tuple of planner.plan.Visit
+        Visits lost to the weather.
+    bjd_tdb : ndarray, shape (n_executed,)
+        Mid-exposure times, BJD_TDB [d].
+    rv : ndarray, shape (n_executed,)
+        Synthetic velocities [m/s].
+    rv_err : ndarray, shape (n_executed,)
+        Reported measurement errors: the noise model's sigma, without jitter [m/s].
+    airmass : ndarray, shape (n_executed,)
+        Airmass at mid-exposure.
     instrument : str
-        Instrument the offset refers to.
-    offset_ms : float
-        Systemic offset of that instrument [m/s].
-    jitter_ms : float
-        True stellar jitter, added in quadrature to the measurement noise [m/s].
-    planets : tuple of Planet
-        The planets (empty for a star without one).
-    trend_ms_per_d : float
-        Linear trend [m/s/d], zero at ``t_ref``.
-    t_ref : float
-        Reference epoch of the trend, BJD_TDB [d].
+        Instrument name of every velocity.
     """
 
-    target: str
+    visits: tuple
+    lost: tuple
+    bjd_tdb: np.ndarray
+    rv: np.ndarray
+    rv_err: np.ndarray
+    airmass: np.ndarray
     instrument: str
-    offset_ms: float
-    jitter_ms: float
-    planets: tuple[Planet, ...] = ()
-    trend_ms_per_d: float = 0.0
-    t_ref: float = 0.0
 
-    def velocity(self, bjd):
-        """Return the true velocity without noise.
+    def targets(self):
+        """Return the targets with at least one new velocity, in order of first visit."""
+        return tuple(dict.fromkeys(v.target for v in self.visits))
 
-        Parameters
-        ----------
-        bjd : ndarray, shape (n,)
-            Times, BJD_TDB [d].
+    def rows(self, target):
+        """Return the indices of one target's new velocities, ndarray of int (n,)."""
+        return np.array([k for k, v in enumerate(self.visits) if v.target == target], dtype=int)
 
-        Returns
-        -------
-        ndarray, shape (n,)
-            Velocity [m/s], offset and trend included.
-        """
-        t = np.asarray(bjd, dtype=float)
-        v = self.offset_ms + self.trend_ms_per_d * (t - self.t_ref)
-        for p in self.planets:
-            v = v + radial_velocity(t, p.period_d, p.semi_amplitude_ms, p.eccentricity,
-                                    p.omega_rad, p.time_periastron_bjd)
-        return np.broadcast_to(v, t.shape).astype(float)
-
-
-_PLANET_KEYS = ("period_d", "semi_amplitude_ms", "eccentricity", "omega_rad",
-                "time_periastron_bjd")
-
-
-def _truth_from_dict(doc, where):
-    def fail(what):
-        raise ScenarioError(f"{where}: {what}; rewrite the file with scenarios/make_demo.py or "
-                            "follow docs/simulation.md for the truth format.")
-
-    if not isinstance(doc, dict):
-        fail("expected a JSON object")
-    for key in ("target", "instrument", "offset_ms", "jitter_ms", "planets"):
-        if key not in doc:
-            fail(f"missing key '{key}'")
-    if not isinstance(doc["planets"], list):
-        fail("'planets' must be a list")
-    planets = []
-    for k, p in enumerate(doc["planets"]):
-        if not isinstance(p, dict) or any(key not in p for key in _PLANET_KEYS):
-            fail(f"planets[{k}] needs the keys {', '.join(_PLANET_KEYS)}")
-        values = {key: float(p[key]) for key in _PLANET_KEYS}
-        if not (values["period_d"] > 0 and 0 <= values["eccentricity"] < 1
-                and values["semi_amplitude_ms"] >= 0):
-            fail(f"planets[{k}] needs period_d > 0, 0 <= eccentricity < 1 and "
-                 "semi_amplitude_ms >= 0")
-        planets.append(Planet(**values))
-    jitter = float(doc["jitter_ms"])
-    if not (math.isfinite(jitter) and jitter >= 0):
-        fail("'jitter_ms' must be a finite number >= 0")
-    return TrueOrbit(target=str(doc["target"]), instrument=str(doc["instrument"]),
-                     offset_ms=float(doc["offset_ms"]), jitter_ms=jitter,
-                     planets=tuple(planets),
-                     trend_ms_per_d=float(doc.get("trend_ms_per_d", 0.0)),
-                     t_ref=float(doc.get("t_ref", 0.0)))
-
-
-def read_truths(folder):
-    """Read every ``*.json`` true orbit in a folder.
-
-    Parameters
-    ----------
-    folder : str or Path
-        Folder of truth files (``scenarios/demo/truth``).
-
-    Returns
-    -------
-    dict of str to TrueOrbit
-        Keyed by target id.
-
-    Raises
-    ------
-    ScenarioError
-        When the folder has no truth file or a file is malformed (one sentence naming it).
-    """
-    folder = Path(folder)
-    files = sorted(folder.glob("*.json"))
-    if not files:
-        raise ScenarioError(f"{folder}: no true-orbit files (*.json) found; pass the folder "
-                            "written beside the scenario, such as scenarios/demo/truth.")
-    truths = {}
-    for path in files:
-        try:
-            doc = json.loads(path.read_text(encoding="utf-8"))
-        except json.JSONDecodeError as exc:
-            raise ScenarioError(f"{path}: not valid JSON at line {exc.lineno} ({exc.msg}); "
-                                "fix or regenerate the file.") from None
-        truth = _truth_from_dict(doc, str(path))
-        truths[truth.target] = truth
-    return truths
-
-
-def truth_from_sample(posterior, index, instrument=None):
-    """Make a true orbit equal to one complete posterior sample (for calibration runs).
-
-    Parameters
-    ----------
-    posterior : inference.posterior.Posterior
-        Posterior with complete samples.
-    index : int
-        Sample row.
-    instrument : str, optional
-        Instrument whose offset and jitter are used; default the model's first.
-
-    Returns
-    -------
-    TrueOrbit
-    """
-    names = posterior.names
-    row = posterior.samples[index]
-    value = dict(zip(names, row, strict=True))
-    inst = instrument if instrument is not None else posterior.model.instruments[0]
-    planets = tuple(
-        Planet(period_d=float(value[f"period_{k}"]),
-               semi_amplitude_ms=float(value[f"semi_amplitude_{k}"]),
-               eccentricity=float(value[f"eccentricity_{k}"]),
-               omega_rad=float(value[f"omega_{k}"]),
-               time_periastron_bjd=float(value[f"time_periastron_{k}"]))
-        for k in range(1, posterior.model.n_planets + 1)
-    )
-    return TrueOrbit(target=posterior.target, instrument=inst,
-                     offset_ms=float(value[f"offset_{inst}"]),
-                     jitter_ms=float(value[f"jitter_{inst}"]), planets=planets,
-                     trend_ms_per_d=float(value.get("trend", 0.0)),
-                     t_ref=float(posterior.model.t_ref))
+    def data(self, target):
+        """Return one target's new velocities as an RVData record (None if it has none)."""
+        rows = self.rows(target)
+        if rows.size == 0:
+            return None
+        return RVData.from_arrays(self.bjd_tdb[rows], self.rv[rows], self.rv_err[rows],
+                                  [self.instrument] * rows.size, source=f"simulated {target}")
 
 
 @dataclass(frozen=True)
-class Weather:
-    """Seeded weather loss.
+class Conditions:
+    """What the sky and the instrument give each visit, fixed once the visits are fixed.
 
     Attributes
     ----------
-    night_loss : float
-        Probability that a whole night is lost, independently per night.
-    hour_loss : float
-        Probability that a clock hour (UTC) of a surviving night is lost, independently.
+    visits : tuple of planner.plan.Visit
+        The visits, in time order.
+    bjd_tdb : ndarray, shape (n_visits,)
+        Mid-exposure times, BJD_TDB [d].
+    airmass : ndarray, shape (n_visits,)
+        Exact airmass at mid-exposure.
+    sigma_ms : ndarray, shape (n_visits,)
+        Measurement noise from the planner's noise model, without jitter [m/s].
     """
 
-    night_loss: float = 0.0
-    hour_loss: float = 0.0
-
-    def __post_init__(self):
-        for name in ("night_loss", "hour_loss"):
-            value = getattr(self, name)
-            if not (0.0 <= value <= 1.0):
-                raise ScenarioError(f"weather {name} is {value}; give a probability between "
-                                    "0 and 1.")
+    visits: tuple
+    bjd_tdb: np.ndarray
+    airmass: np.ndarray
+    sigma_ms: np.ndarray
 
 
-@dataclass(frozen=True)
-class LostTime:
-    """Time lost to the weather in one simulated run.
-
-    Attributes
-    ----------
-    intervals_jd : ndarray, shape (n_lost, 2)
-        Lost spans, start and end, JD (UTC) [d], sorted.
-    nights_lost : tuple of int
-        Indices of the nights lost whole.
-    """
-
-    intervals_jd: np.ndarray
-    nights_lost: tuple[int, ...] = ()
-
-
-def draw_weather(windows_jd, weather, rng):
-    """Draw the weather of a run.
+def visit_conditions(visits, stars, site, sky, instrument):
+    """Mid-exposure barycentric time, exact airmass and measurement noise of every visit.
 
     Parameters
     ----------
-    windows_jd : ndarray, shape (n_nights, 2)
-        Each night's observing window, start and end, JD (UTC) [d].
-    weather : Weather
-        Loss probabilities.
-    rng : numpy.random.Generator
-        Generator for the draws.
+    visits : sequence of planner.plan.Visit
+        The visits (any order; returned in time order).
+    stars : mapping of str to object with ``ra_deg``, ``dec_deg``, ``v_mag``
+        Position [deg] and V magnitude of every visited target (scenario target records).
+    site : planner.site.Site
+        The observatory.
+    sky : planner.sky.Sky
+        The planner's sky of the run: barycentric correction, Moon altitude and illumination
+        are interpolated from it at mid-exposure.
+    instrument : planner.exposure.Instrument
+        The noise model's instrument.
 
     Returns
     -------
-    LostTime
+    Conditions
 
     Notes
     -----
-    The draws depend only on the windows and the generator, never on a plan, so every strategy
-    run with the same seed meets the same weather (common random numbers).
+    The noise is ``planner.exposure.rv_sigma`` looked up at call time (one implementation),
+    evaluated at the exact mid-exposure airmass from astropy (:func:`planner.sky.pointing_at`)
+    and the Moon's sky brightness (:func:`planner.exposure.moon_sky_brightness`).
     """
-    windows = np.atleast_2d(np.asarray(windows_jd, dtype=float))
-    spans, whole = [], []
-    for k, (start, end) in enumerate(windows):
-        # Clock hours overlapping the window with positive length.
-        first, last = math.floor(start * 24.0), math.ceil(end * 24.0) - 1
-        night_lost = rng.random() < weather.night_loss
-        hours_lost = rng.random(last - first + 1) < weather.hour_loss
-        if night_lost:
-            whole.append(k)
-            spans.append((start, end))
-            continue
-        for h in np.flatnonzero(hours_lost):
-            spans.append((max(start, (first + h) / 24.0), min(end, (first + h + 1) / 24.0)))
-    arr = np.array(sorted(spans), dtype=float).reshape(-1, 2)
-    return LostTime(intervals_jd=arr, nights_lost=tuple(whole))
+    ordered = tuple(sorted(visits, key=lambda v: (v.start_jd, v.target)))
+    n = len(ordered)
+    if n == 0:
+        empty = np.zeros(0)
+        return Conditions(visits=(), bjd_tdb=empty, airmass=empty, sigma_ms=empty)
+    unknown = sorted({v.target for v in ordered} - set(stars))
+    if unknown:
+        raise PlanError(f"visit of target {unknown[0]!r} is not a target of the scenario; plan "
+                        "with the same scenario.")
+    mid = np.array([0.5 * (v.start_jd + v.end_jd) for v in ordered])
+    ra = np.array([stars[v.target].ra_deg for v in ordered], dtype=float)
+    dec = np.array([stars[v.target].dec_deg for v in ordered], dtype=float)
+    v_mag = np.array([stars[v.target].v_mag for v in ordered], dtype=float)
+    exp_s = np.array([v.exposure_s for v in ordered], dtype=float)
+    column = {name: k for k, name in enumerate(sky.names)}
+    bary = sky.bjd_tdb - sky.times_jd[None, :]
+    bjd = mid + np.array([np.interp(m, sky.times_jd, bary[column[v.target]])
+                          for m, v in zip(mid, ordered, strict=True)])
+    point = pointing_at(site, ra, dec, mid)
+    sky_mag = exposure.moon_sky_brightness(
+        np.interp(mid, sky.times_jd, sky.moon_illumination), point.moon_separation_deg,
+        np.interp(mid, sky.times_jd, sky.moon_altitude_deg), point.altitude_deg,
+        instrument.k_mag_per_airmass)
+    sigma = exposure.rv_sigma(instrument, v_mag, exp_s, point.airmass, sky_mag)
+    return Conditions(visits=ordered, bjd_tdb=bjd, airmass=np.asarray(point.airmass, float),
+                      sigma_ms=np.asarray(sigma, float))
 
 
-def lost_mask(starts_jd, ends_jd, lost):
-    """Which visits overlap lost time.
+def execute(conditions, truths, instrument_name, rng, lost=None):
+    """Execute visits against true orbits: one noisy velocity per visit not lost.
 
     Parameters
     ----------
-    starts_jd, ends_jd : ndarray, shape (n_visits,)
-        Shutter open and close, JD (UTC) [d].
-    lost : LostTime
-        The weather of the run.
+    conditions : Conditions
+        The visits with their times and noise (:func:`visit_conditions`).
+    truths : mapping of str to TrueOrbit
+        True orbit of every visited target.
+    instrument_name : str
+        Name the velocities are reported under (the posteriors' instrument).
+    rng : numpy.random.Generator
+        Generator of the measurement noise.
+    lost : LostTime, optional
+        Weather of the run; None loses nothing.
 
     Returns
     -------
-    ndarray of bool, shape (n_visits,)
-        True where the exposure overlaps a lost span (a partial exposure yields nothing).
+    Execution
+
+    Notes
+    -----
+    One standard normal is drawn per visit in time order, lost visits included, so a visit's
+    noise does not depend on which other visits the weather removed.
     """
-    starts = np.asarray(starts_jd, dtype=float)[:, None]
-    ends = np.asarray(ends_jd, dtype=float)[:, None]
-    iv = lost.intervals_jd
-    if iv.shape[0] == 0:
-        return np.zeros(starts.shape[0], dtype=bool)
-    return np.any((starts < iv[None, :, 1]) & (ends > iv[None, :, 0]), axis=1)
+    c = conditions
+    missing = sorted({v.target for v in c.visits} - set(truths))
+    if missing:
+        raise PlanError(f"visit of target {missing[0]!r} has no true orbit; add its truth file "
+                        "or drop the target from the plan.")
+    z = rng.standard_normal(len(c.visits))
+    starts = np.array([v.start_jd for v in c.visits], dtype=float)
+    ends = np.array([v.end_jd for v in c.visits], dtype=float)
+    gone = lost_mask(starts, ends, lost) if lost is not None else np.zeros(starts.size, bool)
+    rv = np.empty(starts.size)
+    for target in dict.fromkeys(v.target for v in c.visits):
+        rows = np.array([k for k, v in enumerate(c.visits) if v.target == target], dtype=int)
+        truth = truths[target]
+        total = np.sqrt(c.sigma_ms[rows] ** 2 + truth.jitter_ms**2)
+        rv[rows] = truth.velocity(c.bjd_tdb[rows]) + total * z[rows]
+    keep = ~gone
+    return Execution(visits=tuple(v for v, k in zip(c.visits, keep, strict=True) if k),
+                     lost=tuple(v for v, k in zip(c.visits, keep, strict=True) if not k),
+                     bjd_tdb=c.bjd_tdb[keep], rv=rv[keep], rv_err=c.sigma_ms[keep],
+                     airmass=c.airmass[keep], instrument=instrument_name)
