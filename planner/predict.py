@@ -280,12 +280,11 @@ class Predictor:
 
 def _hermite(t, period, tp, coef, first, n_rows, n):
     """Evaluate rows ``first:first+n_rows`` of a group's table at times t -> (n_rows, n_t)."""
-    x = (t[None, :] - tp[:, None]) * (1.0 / period)[:, None]
-    x -= np.floor(x)
-    x *= n
+    x = (t[None, :] - tp[:, None]) * (n / period)[:, None]  # node units, any revolution
     k = np.floor(x)
     x -= k  # position inside the interval, [0, 1)
-    idx = np.minimum(k.astype(np.int64), n - 1)
+    idx = k.astype(np.int64)
+    idx %= n
     idx += ((first + np.arange(n_rows)) * n)[:, None]
     c = np.take(coef, idx, axis=0)  # (n_rows, n_t, 4); take is far faster than [idx]
     v = c[..., 3] * x
