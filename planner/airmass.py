@@ -93,16 +93,9 @@ def hadec_from_altaz(
     dec_deg : ndarray
         Declination [deg].
     """
-    a = np.radians(altitude_deg)
-    z = np.radians(azimuth_deg)
-    phi = np.radians(latitude_deg)
-    sin_d = np.sin(phi) * np.sin(a) + np.cos(phi) * np.cos(a) * np.cos(z)
-    dec = np.degrees(np.arcsin(np.clip(sin_d, -1.0, 1.0)))
-    ha = np.degrees(
-        np.arctan2(
-            -np.cos(a) * np.sin(z), np.sin(a) * np.cos(phi) - np.cos(a) * np.sin(phi) * np.cos(z)
-        )
-    )
+    # The transformation is its own inverse with (H, dec) and (A, h) swapped
+    # (Meeus 1998, eqs. 13.5 and 13.6 against their inversion).
+    dec, ha = altaz_from_hadec(azimuth_deg, altitude_deg, latitude_deg)
     return wrap_degrees(ha), dec
 
 

@@ -7,6 +7,11 @@ from planner.errors import ScenarioError
 from planner.slew import Mount, axis_seconds, slew_seconds
 
 
+def _bare(**kwargs):
+    """A mount without fixed overheads, so results are pure motion."""
+    return Mount(settle_s=0, acquisition_s=0, readout_s=0, **kwargs)
+
+
 def test_symmetric_and_zero_to_itself_apart_from_overheads(rng):
     mount = Mount(rate1_deg_s=2.0, rate2_deg_s=2.0, accel_deg_s2=0.5, az_wrap_deg=(-270.0, 270.0))
     alt = rng.uniform(20, 85, 50)
@@ -33,7 +38,7 @@ def test_axis_profile_closed_forms():
 
 
 def test_slower_axis_sets_the_time():
-    mount = Mount(rate1_deg_s=3.0, rate2_deg_s=1.0, settle_s=0, acquisition_s=0, readout_s=0)
+    mount = _bare(rate1_deg_s=3.0, rate2_deg_s=1.0)
     assert slew_seconds(mount, 30.0, 100.0, 60.0, 130.0) == pytest.approx(30.0)  # altitude: 30 s
     assert slew_seconds(mount, 30.0, 100.0, 35.0, 190.0) == pytest.approx(30.0)  # azimuth: 30 s
     # Without a wrap the short way round is taken: 350 -> 10 deg is 20 deg.
@@ -43,28 +48,14 @@ def test_slower_axis_sets_the_time():
 def test_cable_wrap_forces_the_long_way_round():
     # Wrap range (-180, 180): the limit is at azimuth 180 (south). From 170 to 190 deg the
     # short way (20 deg) crosses it, so the mount turns 340 deg the other way.
-    free = Mount(rate1_deg_s=2.0, rate2_deg_s=2.0, settle_s=0, acquisition_s=0, readout_s=0)
-    wrapped = Mount(
-        rate1_deg_s=2.0,
-        rate2_deg_s=2.0,
-        settle_s=0,
-        acquisition_s=0,
-        readout_s=0,
-        az_wrap_deg=(-180.0, 180.0),
-    )
+    free = _bare(rate1_deg_s=2.0, rate2_deg_s=2.0)
+    wrapped = _bare(rate1_deg_s=2.0, rate2_deg_s=2.0, az_wrap_deg=(-180.0, 180.0))
     assert slew_seconds(free, 50.0, 170.0, 50.0, 190.0) == pytest.approx(10.0)
     assert slew_seconds(wrapped, 50.0, 170.0, 50.0, 190.0) == pytest.approx(170.0)
     # Away from the limit the wrap changes nothing.
     assert slew_seconds(wrapped, 50.0, 350.0, 50.0, 10.0) == pytest.approx(10.0)
     # A wide range (-270, 270) has its canonical window centred on north: limit at south.
-    wide = Mount(
-        rate1_deg_s=2.0,
-        rate2_deg_s=2.0,
-        settle_s=0,
-        acquisition_s=0,
-        readout_s=0,
-        az_wrap_deg=(-270.0, 270.0),
-    )
+    wide = _bare(rate1_deg_s=2.0, rate2_deg_s=2.0, az_wrap_deg=(-270.0, 270.0))
     assert slew_seconds(wide, 50.0, 175.0, 50.0, 185.0) > slew_seconds(
         free, 50.0, 175.0, 50.0, 185.0
     )
