@@ -16,6 +16,7 @@ from planner.errors import ScenarioError
 __all__ = [
     "DEFAULT_EXPOSURES_S",
     "Instrument",
+    "grid_sigma",
     "moon_sky_brightness",
     "photon_sigma",
     "rv_sigma",
@@ -225,3 +226,44 @@ def moon_sky_brightness(
         * 10.0 ** (-0.4 * k_mag_per_airmass * (x - 1.0))
     )
     return _mag_from_nanolambert(b_dark + b_moon)
+
+
+def grid_sigma(
+    instrument: Instrument, sky, v_mag: ArrayLike, exposures_s: ArrayLike
+) -> NDArray[np.float64]:
+    """Measurement noise of every target, exposure option and grid time [m/s].
+
+    Parameters
+    ----------
+    instrument : Instrument
+    sky : planner.sky.Sky
+        The run's sky grid (airmass, Moon geometry).
+    v_mag : array_like, shape (n_targets,)
+        V magnitudes.
+    exposures_s : array_like, shape (n_options,)
+        Exposure options [s].
+
+    Returns
+    -------
+    ndarray, shape (n_targets, n_options, n_times)
+        :func:`rv_sigma` at each grid airmass; the Moon-brightened sky of
+        :func:`moon_sky_brightness` enters when the instrument gives an aperture.
+    """
+    v = np.asarray(v_mag, dtype=float)
+    if v.shape != (sky.n_targets,):
+        raise ScenarioError(
+            f"grid_sigma: {v.size} magnitudes given for {sky.n_targets} targets; give one each."
+        )
+    exposures = np.asarray(exposures_s, dtype=float).ravel()
+    sky_mag = None
+    if instrument.aperture_arcsec2 is not None:
+        sky_mag = moon_sky_brightness(
+            sky.moon_illumination[None, :],
+            sky.moon_separation_deg,
+            sky.moon_altitude_deg[None, :],
+            sky.altitude_deg,
+            instrument.k_mag_per_airmass,
+        )[:, None, :]
+    return rv_sigma(
+        instrument, v[:, None, None], exposures[None, :, None], sky.airmass[:, None, :], sky_mag
+    )

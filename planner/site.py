@@ -108,9 +108,11 @@ class Night:
     date : str
         Local evening date, ``YYYY-MM-DD``.
     sunset_jd, sunrise_jd : float
-        Sun's centre at -0.833 deg going down / coming up.
+        Sun's centre at -0.833 deg going down / coming up (where the Sun does not
+        rise that day, the ends of the dark window).
     dark_start_jd, dark_end_jd : float
-        Sun at the twilight altitude going down / coming up: the usable window.
+        Sun at the twilight altitude going down / coming up: the usable window
+        (in polar night, when the Sun stays below it, local noon to local noon).
     twilight_altitude_deg : float
         The Sun altitude that defines the dark window [deg].
     moon_illumination : float

@@ -65,6 +65,8 @@ class Sky:
         Geometric altitudes of the Sun's and the Moon's centres [deg].
     moon_illumination : ndarray, shape (n_times,)
         Moon's illuminated fraction, 0 to 1.
+
+    The arrays made by :func:`compute_sky` are read-only.
     """
 
     times_jd: NDArray[np.float64]
@@ -189,7 +191,7 @@ def compute_sky(
             parts[key].append(altaz_from_hadec(e.last_deg - b_ra, b_dec, site.latitude_deg)[0])
         parts["ill"].append(e.moon_illumination)
     alt = np.concatenate(parts["alt"], axis=1)
-    return Sky(
+    sky = Sky(
         times_jd=np.concatenate(parts["t"]),
         night_index=np.concatenate(parts["i"]).astype(np.int64),
         step_s=float(step_s),
@@ -206,6 +208,10 @@ def compute_sky(
         moon_altitude_deg=np.concatenate(parts["moon"]),
         moon_illumination=np.concatenate(parts["ill"]),
     )
+    for value in vars(sky).values():
+        if isinstance(value, np.ndarray):
+            value.flags.writeable = False
+    return sky
 
 
 def _apparent_places(ra, dec, times_jd):

@@ -7,6 +7,7 @@ from planner.errors import ScenarioError
 from planner.exposure import (
     DEFAULT_EXPOSURES_S,
     Instrument,
+    grid_sigma,
     moon_sky_brightness,
     photon_sigma,
     rv_sigma,
@@ -76,6 +77,28 @@ def test_sky_term_matters_for_faint_stars_only():
     sky_equal = v + inst0.k_mag_per_airmass * x
     ratio = rv_sigma(inst0, v, 900.0, x, sky_equal) / rv_sigma(inst0, v, 900.0, x)
     assert ratio == pytest.approx(np.sqrt(2.0), rel=1e-12)
+
+
+def test_grid_sigma_per_target_option_and_time():
+    # Built from the same closed forms: the grid equals rv_sigma at each grid airmass, and the
+    # Moon-sky term only ever adds noise.
+    from planner.site import Site, dark_windows
+    from planner.sky import compute_sky
+
+    site = Site(-29.3, -70.7, 2400.0, "America/Santiago")  # invented
+    sky = compute_sky(
+        site, dark_windows(site, ["2027-09-16"], "nautical"), [20.0, 300.0], [-30.0, 5.0]
+    )
+    v = np.array([8.0, 13.0])
+    s = grid_sigma(INST, sky, v, DEFAULT_EXPOSURES_S)
+    assert s.shape == (2, len(DEFAULT_EXPOSURES_S), sky.times_jd.size)
+    np.testing.assert_allclose(
+        s[1, 0], rv_sigma(INST, 13.0, DEFAULT_EXPOSURES_S[0], sky.airmass[1])
+    )
+    with_sky = grid_sigma(Instrument(aperture_arcsec2=1.0), sky, v, DEFAULT_EXPOSURES_S)
+    assert np.all(with_sky >= grid_sigma(Instrument(), sky, v, DEFAULT_EXPOSURES_S))
+    with pytest.raises(ScenarioError, match="one each"):
+        grid_sigma(INST, sky, [8.0], DEFAULT_EXPOSURES_S)
 
 
 def test_bad_instrument_and_exposure():

@@ -73,6 +73,16 @@ def test_midnight_sun_gives_a_sentence():
         dark_windows(polar, ["2027-06-21"], "civil")
 
 
+def test_polar_night_is_dark_from_noon_to_noon():
+    # At 75 deg north on the December solstice the Sun culminates at 90 - 75 - 23.44 = -8.4 deg
+    # (closed form), so it stays below civil twilight all day: the window spans the whole day.
+    polar = Site(75.0, 15.0, 10.0, "Europe/Oslo", min_altitude_deg=10.0)
+    (n,) = dark_windows(polar, ["2027-12-21"], "civil")
+    assert n.dark_hours == pytest.approx(24.0, abs=1e-6)
+    assert n.sunset_jd == n.dark_start_jd and n.sunrise_jd == n.dark_end_jd
+    assert _sun_altitude(polar, n.dark_start_jd + 0.5) < -6.0
+
+
 def test_moon_up_intervals_end_on_the_horizon():
     # Reference: astropy's AltAz of the topocentric Moon at the interval edges (0.05 deg).
     nights = dark_windows(SOUTH, run_dates("2027-05-10", 6), "nautical")

@@ -114,6 +114,8 @@ def test_grid_layout(sky):
     for field in ("altitude_deg", "azimuth_deg", "airmass", "moon_separation_deg", "bjd_tdb"):
         assert getattr(sky, field).shape == (sky.n_targets, n)
     assert sky.moon_illumination.shape == (n,)
+    with pytest.raises(ValueError, match="read-only"):
+        sky.altitude_deg[0, 0] = 0.0
     assert np.all((sky.moon_illumination >= 0) & (sky.moon_illumination <= 1))
 
 
