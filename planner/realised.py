@@ -29,7 +29,6 @@ __all__ = [
     "StarRealised",
     "measure_refit",
     "measure_reweighted",
-    "new_data_loglike",
     "volume_columns",
 ]
 
@@ -50,30 +49,6 @@ def volume_columns(posterior):
     names = [f"{p}_{k}" for k in range(1, posterior.model.n_planets + 1)
              for p in ("period", "semi_amplitude", "eccentricity")]
     return np.column_stack([posterior.param(n) for n in names])
-
-
-def new_data_loglike(predicted, rv, rv_err, jitter):
-    """Log likelihood of new velocities at every complete posterior sample.
-
-    Parameters
-    ----------
-    predicted : ndarray, shape (n_samples, n_new)
-        Model velocities of each sample at the new times, offset and trend included [m/s].
-    rv : ndarray, shape (n_new,)
-        New velocities [m/s].
-    rv_err : ndarray, shape (n_new,)
-        Their measurement errors [m/s].
-    jitter : ndarray, shape (n_samples,)
-        Each sample's jitter of the instrument [m/s].
-
-    Returns
-    -------
-    ndarray, shape (n_samples,)
-        ``sum_j log Normal(rv_j; predicted_ij, rv_err_j^2 + jitter_i^2)`` [nats].
-    """
-    var = np.asarray(rv_err, float)[None, :] ** 2 + np.asarray(jitter, float)[:, None] ** 2
-    resid = np.asarray(rv, float)[None, :] - predicted
-    return -0.5 * np.sum(resid**2 / var + np.log(2.0 * np.pi * var), axis=1)
 
 
 @dataclass(frozen=True)
@@ -122,7 +97,8 @@ def measure_reweighted(old, loglike_old, n_new):
     old : inference.posterior.Posterior
         Posterior before the new data.
     loglike_old : ndarray, shape (n_samples,)
-        Log likelihood of the new data at the old samples [nats] (:func:`new_data_loglike`).
+        Log likelihood of the new data at the old samples [nats]
+        (``planner.update.new_data_log_likelihood``).
     n_new : int
         Number of new velocities.
 

@@ -139,10 +139,12 @@ def visit_conditions(visits, stars, site, sky, instrument):
     bjd = mid + np.array([np.interp(m, sky.times_jd, bary[column[v.target]])
                           for m, v in zip(mid, ordered, strict=True)])
     point = pointing_at(site, ra, dec, mid)
-    sky_mag = exposure.moon_sky_brightness(
-        np.interp(mid, sky.times_jd, sky.moon_illumination), point.moon_separation_deg,
-        np.interp(mid, sky.times_jd, sky.moon_altitude_deg), point.altitude_deg,
-        instrument.k_mag_per_airmass)
+    sky_mag = None
+    if instrument.aperture_arcsec2 is not None:  # as planner.exposure.grid_sigma does
+        sky_mag = exposure.moon_sky_brightness(
+            np.interp(mid, sky.times_jd, sky.moon_illumination), point.moon_separation_deg,
+            np.interp(mid, sky.times_jd, sky.moon_altitude_deg), point.altitude_deg,
+            instrument.k_mag_per_airmass)
     sigma = exposure.rv_sigma(instrument, v_mag, exp_s, point.airmass, sky_mag)
     return Conditions(visits=ordered, bjd_tdb=bjd, airmass=np.asarray(point.airmass, float),
                       sigma_ms=np.asarray(sigma, float))
