@@ -287,6 +287,7 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
             "a total noise variance is zero; every velocity needs a positive noise (measurement "
             "error or jitter), so give the exposure's sigma or a jitter above zero."
         )
+    e_min = np.where(wanted, e_min, 1.0)  # columns not wanted: any positive placeholder
     c_max = 0.0 if comp is None else comp.max(axis=0)
     sd_max = np.sqrt(c_max + e_max)
     h = bin_fraction * np.sqrt(e_min)

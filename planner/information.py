@@ -99,7 +99,7 @@ def noise_entropy_bits(sigma, shape, weights=None):
 
 
 def one_visit_bits(predicted, sigma, weights=None):
-    """Expected information gain of one velocity at each time.
+    """Return the expected information gain of one velocity at each time.
 
     Parameters
     ----------
@@ -144,7 +144,7 @@ def _outcomes(v, s, rng, n_outcomes):
 
 
 def _log_likelihoods(y, v, s):
-    """log prod_v N(y_mv; v_iv, s_iv^2) for outcomes y (M, V) -> (M, n_s), in nats."""
+    """Return log prod_v N(y_mv; v_iv, s_iv^2) for outcomes y (M, V), shape (M, n_s), nats."""
     inv = 1.0 / np.broadcast_to(s, v.shape) ** 2
     centre = v.mean(axis=0)
     vc, yc = v - centre, y - centre
@@ -219,7 +219,7 @@ def joint_bits(predicted, sigma, rng, n_outcomes=512):
 
 def conditional_bits(predicted_set, sigma_set, predicted_new, sigma_new, rng, n_outcomes=64,
                      return_stderr=False):
-    """Expected gain of one more visit at each candidate time, given a planned set.
+    """Return the expected gain of one more visit at each candidate time, given a planned set.
 
     Parameters
     ----------

@@ -99,8 +99,9 @@ class Predictor:
 
     Attributes
     ----------
-    period, semi_amplitude, eccentricity, omega, time_periastron : ndarray, shape (n_samples, n_planets)
-        Orbit of every sample: period [d], K [m/s], e, omega [rad], periastron BJD_TDB [d].
+    period, semi_amplitude, eccentricity, omega, time_periastron : ndarray
+        Shape (n_samples, n_planets). Orbit of every sample: period [d], K [m/s], e,
+        omega [rad], periastron BJD_TDB [d].
     offset : ndarray, shape (n_samples,)
         The instrument's velocity offset [m/s].
     jitter : ndarray, shape (n_samples,)
@@ -142,8 +143,9 @@ class Predictor:
 
         Parameters
         ----------
-        period, semi_amplitude, eccentricity, omega, time_periastron : array_like, shape (n_samples,) or (n_samples, n_planets)
-            Orbits: period [d], K [m/s], e in [0, 1), omega [rad], periastron BJD_TDB [d].
+        period, semi_amplitude, eccentricity, omega, time_periastron : array_like
+            Shape (n_samples,) or (n_samples, n_planets). Orbits: period [d], K [m/s],
+            e in [0, 1), omega [rad], periastron BJD_TDB [d].
         offset, jitter : array_like, shape (n_samples,) or scalar
             Instrument offset [m/s] and jitter [m/s] (>= 0).
         trend : array_like, shape (n_samples,) or scalar, optional
@@ -180,7 +182,13 @@ class Predictor:
             )
 
         def per_sample(name, value):
-            arr = np.array(np.broadcast_to(np.asarray(value, dtype=float), (n_s,)))
+            try:
+                arr = np.array(np.broadcast_to(np.asarray(value, dtype=float), (n_s,)))
+            except ValueError:
+                raise InformationError(
+                    f"{name} has {np.size(value)} values but the orbits have {n_s} samples; "
+                    "pass one value per sample or a single value."
+                ) from None
             if not np.all(np.isfinite(arr)):
                 raise InformationError(f"{name} must be finite for every sample.")
             return arr
@@ -268,9 +276,9 @@ class Predictor:
                 rows = g.rows[a : a + step]
                 if g.nodes == 0 or exact:
                     v = radial_velocity(
-                        t[None, :], self.period[rows, pl, None], self.semi_amplitude[rows, pl, None],
-                        self.eccentricity[rows, pl, None], self.omega[rows, pl, None],
-                        self.time_periastron[rows, pl, None])
+                        t[None, :], self.period[rows, pl, None],
+                        self.semi_amplitude[rows, pl, None], self.eccentricity[rows, pl, None],
+                        self.omega[rows, pl, None], self.time_periastron[rows, pl, None])
                 else:
                     v = _hermite(t, self.period[rows, pl], self.time_periastron[rows, pl],
                                  g.coef, a, rows.size, g.nodes)

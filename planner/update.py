@@ -85,7 +85,7 @@ def importance_weights(log_likelihood):
 
 
 def systematic_resample(weights, rng):
-    """Indices of an equal-weight resample by systematic resampling.
+    """Return the indices of an equal-weight resample by systematic resampling.
 
     Parameters
     ----------

@@ -1,0 +1,97 @@
+"""Information curves: the one-visit bits at mid-exposure, shared between exposure options."""
+
+import numpy as np
+import pytest
+
+from planner.curves import InformationCurve, _mean_noise_entropy_bits, build_curve
+from planner.entropy import InformationError
+from planner.information import one_visit_bits
+from planner.predict import Predictor
+
+STEP = 120.0 / 86400.0
+
+
+def star(rng, n=800, jitter=None):
+    return Predictor.from_parameters(
+        rng.normal(6.0, 0.2, n), rng.normal(15, 2, n), np.abs(rng.normal(0.15, 0.05, n)),
+        rng.normal(2.0, 0.3, n), 2460000 + rng.normal(0, 0.3, n), offset=rng.normal(0, 0.5, n),
+        jitter=np.abs(rng.normal(2.0, 0.5, n)) if jitter is None else jitter)
+
+
+def grid(n_nights=2):
+    t = np.concatenate([2460010.0 + night + np.arange(0, 0.3, STEP) for night in range(n_nights)])
+    obs = np.zeros((2, t.size), bool)
+    for night in range(n_nights):
+        obs[:, (t > 2460010.02 + night) & (t < 2460010.25 + night)] = True
+    obs[1, :5] = True  # a start whose mid-exposure time is off the observable part
+    return t, obs
+
+
+def test_curve_is_one_visit_bits_at_its_prediction_times(rng):
+    # Consistency with one_visit_bits (checked against closed forms in test_information.py):
+    # each observable start's bits are the one-visit gain at its recorded prediction time with
+    # noise sqrt(sigma_meas^2 + jitter^2).
+    pred = star(rng)
+    t, obs = grid()
+    sig = np.stack([np.full(t.size, 2.5), np.linspace(1.0, 1.6, t.size)])
+    curve = build_curve(pred, t, sig, obs, [300.0, 900.0], target="star 7", weight=2.0)
+    assert isinstance(curve, InformationCurve)
+    assert curve.bits.shape == (2, t.size) and np.all(np.isnan(curve.bits[~obs]))
+    for o in range(2):
+        j = np.flatnonzero(obs[o])
+        v = pred.velocities(curve.prediction_bjd[o, j])
+        total = np.sqrt(sig[o, j][None, :] ** 2 + pred.jitter[:, None] ** 2)
+        np.testing.assert_allclose(curve.bits[o, j], one_visit_bits(v, total), atol=5e-4)
+    np.testing.assert_allclose(curve.weighted_bits, 2.0 * curve.bits, equal_nan=True)
+
+
+def test_prediction_time_is_mid_exposure_within_half_a_step(rng):
+    # Documented choice: mid-exposure, snapped to the grid when within half a grid step.
+    pred = star(rng, 200)
+    t, obs = grid()
+    curve = build_curve(pred, t, np.full((2, t.size), 2.0), obs, [300.0, 900.0])
+    for o, exp_s in enumerate((300.0, 900.0)):
+        j = np.flatnonzero(obs[o])
+        off = curve.prediction_bjd[o, j] - (t[j] + 0.5 * exp_s / 86400.0)
+        assert np.all(np.abs(off) <= 0.5 * STEP + 1e-9)
+    # Starts whose snapped column is shared by both options use one prediction time.
+    shared = np.intersect1d(curve.prediction_bjd[0][obs[0]], curve.prediction_bjd[1][obs[1]])
+    assert shared.size > 0.5 * obs[0].sum()
+
+
+def test_mean_noise_entropy_spline_matches_direct(rng):
+    # Reference: the direct mean over samples of 0.5 log2(2 pi e (s_i^2 + x)).
+    jit2 = rng.uniform(0.1, 16.0, 2000)
+    x = rng.uniform(0.3, 30.0, 5000)
+    direct = np.mean(0.5 * np.log2(2 * np.pi * np.e * (jit2[:, None] + x[None, :])), axis=0)
+    np.testing.assert_allclose(_mean_noise_entropy_bits(jit2, x), direct, atol=1e-9)
+
+
+def test_more_noise_gives_fewer_bits(rng):
+    # Fact of the method: information falls as the noise grows (data-processing inequality).
+    pred = star(rng, 500, jitter=1.0)
+    t, obs = grid(1)
+    obs[:] = True
+    curve = build_curve(pred, t, np.stack([np.full(t.size, 1.0), np.full(t.size, 3.0)]), obs,
+                        [600.0, 600.0])
+    assert np.all(curve.bits[1] < curve.bits[0])
+
+
+@pytest.mark.parametrize(
+    "change",
+    [
+        {"sigma_meas": np.zeros((2, 3))},
+        {"observable": np.ones((1, 3), bool)},
+        {"exposures_s": [300.0]},
+        {"bjd": np.array([3.0, 2.0, 1.0])},
+        {"weight": -1.0},
+    ],
+)
+def test_bad_input_is_one_clear_error(change, rng):
+    args = {"bjd": np.array([1.0, 1.1, 1.2]) + 2460000, "sigma_meas": np.ones((2, 3)),
+            "observable": np.ones((2, 3), bool), "exposures_s": [300.0, 600.0]}
+    weight = change.pop("weight", 1.0)
+    args.update(change)
+    with pytest.raises(InformationError):
+        build_curve(star(rng, 50), args["bjd"], args["sigma_meas"], args["observable"],
+                    args["exposures_s"], weight=weight)
