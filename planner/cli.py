@@ -158,8 +158,10 @@ def _fit(args, pipeline, scenario, cache):
 
 def _run_fit(args) -> int:
     pipeline, scenario, cache = _session(args)
+    from planner.report import fit_summary
+
     posteriors = _fit(args, pipeline, scenario, cache)
-    sys.stdout.write(pipeline.fit_summary(scenario, posteriors))
+    sys.stdout.write(fit_summary(scenario, posteriors))
     return EXIT_OK
 
 
@@ -169,11 +171,14 @@ def _run_curves(args) -> int:
         scenario.target(target)
     posteriors = _fit(args, pipeline, scenario, cache)
     run = pipeline.prepare(scenario, posteriors)
-    sys.stdout.write(pipeline.curves_summary(run, args.target))
-    if args.plot:
-        from planner.plot_curves import plot_curves
+    from planner.report import curves_summary
 
-        plot_curves(run.curves, args.plot, targets=args.target)
+    sys.stdout.write(curves_summary(run, args.target))
+    if args.plot:
+        from planner.plots import plot_curves
+
+        plot_curves(run, args.plot, targets=args.target)
+        sys.stderr.write(f"wrote {args.plot}\n")
     return EXIT_OK
 
 
@@ -185,7 +190,7 @@ def _run_plan(args) -> int:
     pipeline.check_out_folder(args.out, args.force)
     posteriors = _fit(args, pipeline, scenario, cache)
     run = pipeline.prepare(scenario, posteriors)
-    result = pipeline.plan(run, strategy=args.strategy, time_limit_s=args.time_limit)
+    result = pipeline.make_plan(run, strategy=args.strategy, time_limit_s=args.time_limit)
     sys.stdout.write(render_schedule(result.plan_file))
     paths = write_plan(args.out, result.plan_file, force=args.force)
     sys.stderr.write(f"wrote {paths[0]} and {paths[1]}\n")

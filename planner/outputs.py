@@ -141,8 +141,9 @@ class PlanFile:
         Sun altitude that bounds the dark window [deg].
     max_airmass : float
         Largest airmass allowed by the scenario.
-    min_moon_separation_deg : float
-        Smallest Moon separation allowed [deg].
+    moon_table : tuple of (float, float)
+        Moon rule: rows ``(max_illumination, min_separation_deg)``; the first row whose
+        illumination is not exceeded gives the separation required while the Moon is up.
     target_bits : dict of str to float
         Weighted joint expected bits per target (planned and done visits together).
     nights : tuple of NightSummary
@@ -150,6 +151,9 @@ class PlanFile:
         In time order.
     notes : tuple of str
         Lines the re-plan or the solver left for the reader (what changed, solver status).
+    objective_bits : float or None
+        The strategy's own objective (the solver's redundancy-aware surrogate of the bits), the
+        quantity ``bound_bits`` bounds.
     """
 
     strategy: str
@@ -160,11 +164,12 @@ class PlanFile:
     site: dict
     twilight_sun_altitude_deg: float
     max_airmass: float
-    min_moon_separation_deg: float
+    moon_table: tuple[tuple[float, float], ...]
     target_bits: dict
     nights: tuple[NightSummary, ...]
     visits: tuple[ScheduledVisit, ...]
     notes: tuple[str, ...] = ()
+    objective_bits: float | None = None
 
     def to_json(self) -> str:
         """Return the plan.json text (UTF-8, indented, with a format version)."""
@@ -299,7 +304,7 @@ def read_plan(path: str | Path) -> PlanFile:
     if not isinstance(raw, dict) or raw.get("format_version") != FORMAT_VERSION:
         raise PlanError(f"{where}: not a nightbits plan file of format version {FORMAT_VERSION}; "
                         "write it again with `nightbits plan`.")
-    top = _record(PlanFile, raw, where, skip=("nights", "visits"))
+    top = _record(PlanFile, raw, where, skip=("nights", "visits"), pairs=("moon_table",))
     nights = tuple(_record(NightSummary, n, f"{where}: nights[{i}]", pairs=("moon_up", "lost"))
                    for i, n in enumerate(_list(raw, "nights", where)))
     visits = tuple(_record(ScheduledVisit, v, f"{where}: visits[{i}]")

@@ -18,9 +18,11 @@ from __future__ import annotations
 import datetime as _dt
 from zoneinfo import ZoneInfo
 
+import numpy as np
+
 from planner.outputs import PlanFile, ScheduledVisit, parse_utc
 
-__all__ = ["CAUTION", "WIDTH", "render_schedule"]
+__all__ = ["CAUTION", "WIDTH", "curves_summary", "fit_summary", "render_schedule"]
 
 #: Widest line of the schedule [characters].
 WIDTH = 100
@@ -78,6 +80,14 @@ def _wrap(text: str, indent: str = "") -> list[str]:
     return lines + [line] if line else lines
 
 
+def _moon_rule(table) -> str:
+    rows = [(float(a), float(b)) for a, b in table]
+    if len(rows) == 1:
+        return f"Moon at least {rows[0][1]:.0f} deg away while up"
+    parts = [f"{b:.0f} deg up to {a:.0%} lit" for a, b in rows]
+    return "Moon separation while up: " + ", ".join(parts)
+
+
 def render_schedule(plan: PlanFile) -> str:
     """Render a plan as the hour-by-hour text schedule.
 
@@ -97,9 +107,9 @@ def render_schedule(plan: PlanFile) -> str:
            f"strategy {plan.strategy}; times local ({site['timezone']}) and UTC"[:WIDTH],
            (f"site {site.get('name', '')}: latitude {site['latitude_deg']:.3f} deg, longitude "
             f"{site['longitude_deg']:.3f} deg, {site['elevation_m']:.0f} m")[:WIDTH],
-           (f"limits: airmass up to {plan.max_airmass:.2f}, Moon at least "
-            f"{plan.min_moon_separation_deg:.0f} deg away, dark while the Sun is below "
-            f"{plan.twilight_sun_altitude_deg:.0f} deg"),
+           *_wrap(f"limits: airmass up to {plan.max_airmass:.2f}; dark while the Sun is below "
+                  f"{plan.twilight_sun_altitude_deg:.0f} deg; {_moon_rule(plan.moon_table)}",
+                  "  "),
            *_wrap("columns: exposure [s], airmass at start>end, Moon separation [deg], slew and "
                   "acquisition before the exposure [s], marginal expected bits, running total; "
                   "idle and lost time on lines of their own", "  "),
@@ -126,8 +136,10 @@ def render_schedule(plan: PlanFile) -> str:
         out.extend(body)
         out.append("")
     done = sum(v.status == "done" for v in plan.visits)
-    bound = ("" if plan.bound_bits is None else
-             f"; the solver's proven bound on its objective is {plan.bound_bits:.2f} bits")
+    bound = ""
+    if plan.bound_bits is not None and plan.objective_bits is not None:
+        bound = (f"; on the solver's own surrogate objective this plan has "
+                 f"{plan.objective_bits:.2f} bits and no plan can exceed {plan.bound_bits:.2f}")
     summary = (f"run total: {len(plan.visits)} exposures over {n_nights} nights"
                f"{f' ({done} executed)' if done else ''}, {running:.2f} bits by the visit "
                f"marginals; exact joint score {plan.total_bits:.2f} bits{bound}.")
@@ -203,3 +215,50 @@ def _night_body(night, visits, running, zone):
                  f"{f', lost {_duration(lost_s)}' if lost_s else ''}; {bits:.3f} bits")
     return lines, running
 
+
+def fit_summary(scenario, posteriors: dict) -> str:
+    """Tabulate the fitted posteriors: size, convergence, period and semi-amplitude."""
+    lines = [f"{'target':<16} {'RVs':>4} {'pl':>2} {'samples':>7} {'conv':>4}  "
+             f"{'period_1 [d] (16-50-84%)':<30} {'K_1 [m/s]':>14}"]
+    for target in scenario.targets:
+        post = posteriors[target.id]
+        n_rv = int(getattr(post.diagnostics, "n_data", 0)) or len(_read(target.rv_file))
+        conv = "yes" if getattr(post.diagnostics, "converged", False) else "no"
+        period = k_text = ""
+        if post.model.n_planets:
+            lo, mid, hi = np.percentile(post.param("period_1"), [16, 50, 84])
+            period = f"{lo:.4g} {mid:.4g} {hi:.4g}"
+            k_text = f"{np.median(post.param('semi_amplitude_1')):.3g}"
+        lines.append(f"{target.id[:16]:<16} {n_rv:>4} {post.model.n_planets:>2} "
+                     f"{post.samples.shape[0]:>7} {conv:>4}  {period:<30} {k_text:>14}")
+    return "\n".join(lines) + "\n"
+
+
+def _read(path):
+    from inference.data import read_rv_csv
+
+    return read_rv_csv(path)
+
+
+def curves_summary(run, targets=None) -> str:
+    """Tabulate the best one-visit bits per target and night, and the local time of each."""
+    zone = ZoneInfo(run.site.timezone)
+    wanted = set(targets or [t.id for t in run.scenario.targets])
+    head = f"{'target':<16}" + "".join(f" {n.date[5:]:>13}" for n in run.nights)
+    lines = ["best expected bits of one more velocity per night (local time of the best start)",
+             head]
+    for s, target in enumerate(run.scenario.targets):
+        if target.id not in wanted:
+            continue
+        cells = []
+        best = run.bits[:, s].max(axis=0)
+        for k in range(len(run.nights)):
+            cols = np.flatnonzero((run.sky.night_index == k) & run.observable[:, s].any(axis=0))
+            if cols.size == 0:
+                cells.append(f" {'not up':>13}")
+                continue
+            c = cols[np.argmax(best[cols])]
+            moment = _hm(_moment_jd(run.sky.times_jd[c]), zone)
+            cells.append(f" {best[c]:>6.3f}@{moment}")
+        lines.append(f"{target.id[:16]:<16}" + "".join(cells))
+    return "\n".join(lines) + "\n"

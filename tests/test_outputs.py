@@ -41,8 +41,9 @@ def make_plan(**changes) -> PlanFile:
     plan = PlanFile("joint", 2.0, 2.5, "/runs/run.yaml", "Test run",
                     {"name": "Test site", "latitude_deg": -27.45, "longitude_deg": -69.95,
                      "elevation_m": 2410.0, "timezone": "America/Santiago"},
-                    -12.0, 2.0, 30.0, {"Star-1": 1.25, "Star-2": 0.75}, nights, visits,
-                    ("solver status OPTIMAL",))
+                    -12.0, 2.0, ((0.5, 20.0), (1.0, 30.0)), {"Star-1": 1.25, "Star-2": 0.75},
+                    nights, visits,
+                    ("solver status OPTIMAL",), objective_bits=2.2)
     return replace(plan, **changes)
 
 

@@ -118,7 +118,14 @@ def test_run_total_and_notes():
     text = " ".join(render_schedule(plan).split())
     assert "run total: 3 exposures over 2 nights (1 executed)" in text
     assert "exact joint score 2.00 bits" in text
-    assert "proven bound on its objective is 2.50 bits" in text
+    assert "this plan has 2.20 bits and no plan can exceed 2.50" in text
     assert "solver status OPTIMAL" in text
     text = " ".join(render_schedule(replace(plan, bound_bits=None)).split())
-    assert "proven bound" not in text
+    assert "no plan can exceed" not in text
+
+
+def test_moon_rule_in_header():
+    text = " ".join(render_schedule(make_plan()).split())
+    assert "Moon separation while up: 20 deg up to 50% lit, 30 deg up to 100% lit" in text
+    single = replace(make_plan(), moon_table=((1.0, 30.0),))
+    assert "Moon at least 30 deg away while up" in render_schedule(single)
