@@ -1,6 +1,7 @@
 """Candidate visits on the integer solver clock: the :class:`Problem` every strategy solves.
 
-The solver clock counts whole minutes from ``Problem.epoch_jd`` (the first grid time). A
+The solver clock counts whole minutes from ``Problem.epoch_jd`` (the first grid time); inside a
+night, differences on it are exact because the run grid's step is a whole number of minutes. A
 candidate visit is one target, one exposure option and one fixed start on the run grid; its
 exposure occupies ``duration`` minutes (the exposure rounded up to the minute) and the telescope
 needs ``gap_min(i, j)`` minutes between the end of candidate ``i`` and the start of ``j``: the
@@ -20,7 +21,7 @@ import numpy as np
 from planner.errors import PlanError
 from planner.rules import TargetRules, validate_rules
 
-__all__ = ["Problem", "build_problem"]
+__all__ = ["Problem", "build_problem", "mount_slew", "problem_from_sky"]
 
 MINUTES_PER_DAY = 1440.0
 
@@ -44,8 +45,10 @@ class Problem:
         Per-target rules.
     night_dates : tuple of str, length n_nights
         Night names (local evening date, ``YYYY-MM-DD``).
+    dark_jd : ndarray, shape (n_nights, 2)
+        Dark window of each night, start and end, JD UTC [d]; exposures lie inside.
     dark_min : ndarray of int, shape (n_nights, 2)
-        Dark window of each night, start and end [min on the solver clock]; exposures lie inside.
+        The same on the solver clock, rounded to the minute [min].
     exposure_s : ndarray, shape (n_options,)
         Exposure time of each option [s].
     default_option : int
@@ -57,12 +60,15 @@ class Problem:
     slew : callable or None
         Slew model ``(alt1, az1, alt2, az2) -> seconds`` (degrees, broadcasting); None: no slews,
         only the overhead.
-    reserved_min : ndarray of int, shape (n_reserved, 2)
-        Blocks when the telescope is not ours [min]; no exposure or overhead overlaps them.
+    reserved_jd : ndarray, shape (n_reserved, 2)
+        Blocks when the telescope is not ours, JD UTC [d]; no exposure or overhead overlaps them.
     target, night, option : ndarray of int, shape (n_candidates,)
         Target, night and exposure-option index of each candidate.
     start : ndarray of int, shape (n_candidates,)
-        Exposure start of each candidate [min on the solver clock].
+        Exposure start of each candidate [min on the solver clock]; exact differences inside a
+        night.
+    start_jd_grid : ndarray, shape (n_candidates,)
+        Exact exposure start (the grid time it came from), JD UTC [d].
     duration : ndarray of int, shape (n_candidates,)
         Exposure length rounded up to the minute [min].
     bits : ndarray, shape (n_candidates,)
@@ -82,17 +88,19 @@ class Problem:
     target_names: tuple[str, ...]
     rules: tuple[TargetRules, ...]
     night_dates: tuple[str, ...]
+    dark_jd: np.ndarray
     dark_min: np.ndarray
     exposure_s: np.ndarray
     default_option: int
     overhead_s: float
     slew_margin_s: float
     slew: SlewModel | None
-    reserved_min: np.ndarray
+    reserved_jd: np.ndarray
     target: np.ndarray
     night: np.ndarray
     option: np.ndarray
     start: np.ndarray
+    start_jd_grid: np.ndarray
     duration: np.ndarray
     bits: np.ndarray
     sigma: np.ndarray
@@ -130,7 +138,7 @@ class Problem:
 
     def start_jd(self, idx) -> np.ndarray:
         """Exact exposure start, JD UTC [d], of candidates ``idx``."""
-        return self.epoch_jd + self.start[idx] / MINUTES_PER_DAY
+        return self.start_jd_grid[idx]
 
     def end_jd(self, idx) -> np.ndarray:
         """Exact exposure end, JD UTC [d] (start plus the exposure time, not rounded)."""
@@ -223,7 +231,7 @@ def build_problem(
     Parameters
     ----------
     times_jd : ndarray, shape (n_times,)
-        Run grid, JD UTC [d]; evenly spaced by a whole number of minutes.
+        Run grid, JD UTC [d], increasing; inside each night spaced by whole minutes.
     night_index : ndarray of int, shape (n_times,)
         Night of each grid time (negative: not in any night).
     dark_jd : ndarray, shape (n_nights, 2)
@@ -276,11 +284,10 @@ def build_problem(
     names = tuple(str(n) for n in target_names)
     exposure = np.asarray(exposure_s, dtype=float)
     n_opt, n_tgt = exposure.size, len(names)
-    if n_times < 2:
-        raise PlanError("The run grid needs at least two times; widen the run or shrink the step.")
-    step_min = int(round((times[1] - times[0]) * MINUTES_PER_DAY))
-    if step_min < 1 or np.max(np.abs(np.diff(times) * MINUTES_PER_DAY - step_min)) > 1e-3:
-        raise PlanError("The run grid must be evenly spaced by a whole number of minutes.")
+    night_index = np.asarray(night_index, dtype=np.int64)
+    dark_jd = np.asarray(dark_jd, dtype=float).reshape(-1, 2)
+    if n_times < 2 or night_index.shape != times.shape:
+        raise PlanError("The run grid needs at least two times and one night index per time.")
     if len(rules) != n_tgt:
         raise PlanError(f"Got {len(rules)} rule records for {n_tgt} targets; give one per target.")
     for name, rule in zip(names, rules, strict=True):
@@ -305,36 +312,41 @@ def build_problem(
     if np.any(bits[observable] < 0):
         raise PlanError("One-visit bits must be >= 0 wherever a start is observable.")
 
+    # Solver clock: exact whole minutes inside each night (the grid step is whole minutes),
+    # each night's first grid time rounded to the minute from the epoch (nights never meet).
     epoch = float(times[0])
-    grid_min = np.rint((times - epoch) * MINUTES_PER_DAY).astype(np.int64)
-    dark = np.rint((np.asarray(dark_jd, dtype=float) - epoch) * MINUTES_PER_DAY).astype(np.int64)
-    dark = dark.reshape(-1, 2)
-    reserved = np.rint((np.asarray(reserved_jd, dtype=float).reshape(-1, 2) - epoch)
-                       * MINUTES_PER_DAY).astype(np.int64)
+    same = np.diff(night_index) == 0
+    steps = np.diff(times)[same] * MINUTES_PER_DAY
+    step_min = int(round(steps.min())) if steps.size else 1
+    if step_min < 1 or np.any(np.abs(steps - np.rint(steps)) > 1e-3):
+        raise PlanError("Grid times inside a night must be a whole number of minutes apart.")
+    first = np.r_[True, ~same]
+    night_first = np.maximum.accumulate(np.where(first, np.arange(n_times), 0))
+    grid_min = (np.rint((times[night_first] - epoch) * MINUTES_PER_DAY)
+                + np.rint((times - times[night_first]) * MINUTES_PER_DAY)).astype(np.int64)
+    reserved_jd = np.asarray(reserved_jd, dtype=float).reshape(-1, 2)
     duration = np.ceil(exposure / 60.0 - 1e-9).astype(np.int64)
-    lead = int(math.ceil((overhead_s + slew_margin_s) / 60.0 - 1e-9))
-    night_index = np.asarray(night_index, dtype=np.int64)
     spacing = max(1, int(math.ceil(thin_spacing_min / step_min)))
+    in_night = (night_index >= 0) & (night_index < len(dark_jd))
+    nights_of = np.clip(night_index, 0, len(dark_jd) - 1)
 
     parts = {k: [] for k in ("target", "night", "option", "time")}
     for o in range(n_opt):
-        end = grid_min + duration[o]
+        end = times + exposure[o] / 86400.0
+        ok_time = in_night & (times >= dark_jd[nights_of, 0] - 1e-9) & (
+            end <= dark_jd[nights_of, 1] + 1e-9)
+        if reserved_jd.size:
+            early = times - overhead_s / 86400.0
+            ok_time &= ~((early[:, None] < reserved_jd[:, 1]) & (end[:, None] > reserved_jd[:, 0])
+                         ).any(axis=1)
         for s in range(n_tgt):
-            ok = observable[o, s] & (night_index >= 0)
-            nights = np.clip(night_index, 0, len(dark) - 1)
-            ok &= (grid_min >= dark[nights, 0]) & (end <= dark[nights, 1])
             rule = rules[s]
-            fixed = np.rint((np.asarray(rule.windows_jd, float).reshape(-1, 2) - epoch)
-                            * MINUTES_PER_DAY)
-            ok &= _inside_any(grid_min, end, fixed)
-            if reserved.size:
-                hits = (grid_min[:, None] - lead < reserved[:, 1]) & (end[:, None] > reserved[:, 0])
-                ok &= ~hits.any(axis=1)
-            must = np.rint((np.asarray(rule.must_windows_jd, float).reshape(-1, 2) - epoch)
-                           * MINUTES_PER_DAY)
+            ok = observable[o, s] & ok_time
+            ok &= _inside_any(times, end, np.asarray(rule.windows_jd, float).reshape(-1, 2))
+            must = np.asarray(rule.must_windows_jd, float).reshape(-1, 2)
             for n in np.unique(night_index[ok]):
                 idx = np.flatnonzero(ok & (night_index == n))
-                groups = [idx] + [idx[_inside_any(grid_min[idx], end[idx], w[None])] for w in must]
+                groups = [idx] + [idx[_inside_any(times[idx], end[idx], w[None])] for w in must]
                 kept = [g[_thin(bits[o, s, g], keep_per_night, spacing)] for g in groups if g.size]
                 if o == default_option:  # the cadence plan's start: lowest airmass of the night
                     kept.append(idx[[np.argmin(np.asarray(airmass)[s, idx])]])
@@ -347,34 +359,41 @@ def build_problem(
            for k, v in parts.items()}
     order = np.lexsort((cat["target"], cat["option"], grid_min[cat["time"]], cat["night"]))
     tgt, nig, opt, tix = (cat[k][order] for k in ("target", "night", "option", "time"))
-    exp_d = exposure[opt] / 86400.0
-    frac_end = (times[tix] + exp_d - epoch) / (step_min / MINUTES_PER_DAY)
-    frac_mid = (times[tix] + 0.5 * exp_d - epoch) / (step_min / MINUTES_PER_DAY)
+    per_step = exposure[opt] / (60.0 * step_min)
     alt = np.asarray(altitude_deg, float)
     az = np.asarray(azimuth_deg, float)
-    alt_end, az_end = _interp_position(alt[tgt], az[tgt], frac_end[:, None])
+    alt_end, az_end = _interp_position(alt[tgt], az[tgt], (tix + per_step)[:, None])
+    frac_mid = tix + 0.5 * per_step
     mid_lo = np.clip(np.floor(frac_mid).astype(np.int64), 0, n_times - 1)
     mid_hi = np.clip(mid_lo + 1, 0, n_times - 1)
     w = np.clip(frac_mid - mid_lo, 0.0, 1.0)
     am = np.asarray(airmass, float)
     bj = np.asarray(bjd_tdb, float)
+    night_min = np.zeros((len(dark_jd), 2), dtype=np.int64)
+    for n in range(len(dark_jd)):
+        here = np.flatnonzero(night_index == n)
+        if here.size:
+            k = here[0]
+            night_min[n] = grid_min[k] + np.rint((dark_jd[n] - times[k]) * MINUTES_PER_DAY)
     return Problem(
         epoch_jd=epoch,
         step_min=step_min,
         target_names=names,
         rules=tuple(rules),
         night_dates=tuple(str(d) for d in night_dates),
-        dark_min=dark,
+        dark_jd=dark_jd,
+        dark_min=night_min,
         exposure_s=exposure,
         default_option=int(default_option),
         overhead_s=float(overhead_s),
         slew_margin_s=float(slew_margin_s),
         slew=slew,
-        reserved_min=reserved,
+        reserved_jd=reserved_jd,
         target=tgt,
         night=nig,
         option=opt,
         start=grid_min[tix],
+        start_jd_grid=times[tix],
         duration=duration[opt],
         bits=bits[opt, tgt, tix],
         sigma=np.asarray(sigma, float)[opt, tgt, tix],
@@ -384,4 +403,66 @@ def build_problem(
         alt_end=alt_end[:, 0],
         az_end=az_end[:, 0],
         bjd_mid=(1 - w) * bj[tgt, mid_lo] + w * bj[tgt, mid_hi],
+    )
+
+
+def mount_slew(mount) -> SlewModel:
+    """The slew model of a :class:`planner.slew.Mount` (motion only; overhead kept apart)."""
+    from planner.slew import slew_seconds
+
+    def slew(alt1, az1, alt2, az2):
+        return slew_seconds(mount, alt1, az1, alt2, az2, include_overhead=False)
+
+    return slew
+
+
+def problem_from_sky(
+    sky,
+    *,
+    rules: Sequence[TargetRules],
+    exposure_s: Sequence[float],
+    observable: np.ndarray,
+    bits: np.ndarray,
+    sigma: np.ndarray,
+    mount=None,
+    **options,
+) -> Problem:
+    """Build the problem from a :class:`planner.sky.Sky` and an alt-azimuth mount.
+
+    Parameters
+    ----------
+    sky : planner.sky.Sky
+        Grid geometry of every target.
+    rules, exposure_s, observable, bits, sigma
+        As in :func:`build_problem`.
+    mount : planner.slew.Mount or None
+        Slew and overhead model (alt-azimuth); None: no slews and no overhead.
+    **options
+        Passed to :func:`build_problem` (``reserved_jd``, ``default_option``,
+        ``keep_per_night``, ``thin_spacing_min``, ``slew_margin_s``).
+
+    Returns
+    -------
+    Problem
+    """
+    if mount is not None and getattr(mount, "kind", "altaz") != "altaz":
+        raise PlanError("The allocation slews by altitude and azimuth; give an alt-azimuth mount.")
+    return build_problem(
+        times_jd=sky.times_jd,
+        night_index=sky.night_index,
+        dark_jd=np.array([[n.dark_start_jd, n.dark_end_jd] for n in sky.nights]),
+        night_dates=[n.date for n in sky.nights],
+        target_names=sky.names,
+        rules=rules,
+        exposure_s=exposure_s,
+        observable=observable,
+        bits=bits,
+        sigma=sigma,
+        airmass=sky.airmass,
+        altitude_deg=sky.altitude_deg,
+        azimuth_deg=sky.azimuth_deg,
+        bjd_tdb=sky.bjd_tdb,
+        slew=None if mount is None else mount_slew(mount),
+        overhead_s=0.0 if mount is None else float(mount.overhead_s()),
+        **options,
     )

@@ -18,8 +18,6 @@ against it.
 
 from __future__ import annotations
 
-import itertools
-import math
 import time
 from dataclasses import dataclass
 
@@ -61,54 +59,6 @@ class JointHandles:
     stats: tuple[tuple[str, float], ...]
 
 
-def _night_counts(model, problem, x, s, n, members, cap):
-    """Number of visits of target ``s`` in night ``n`` as a linear expression or IntVar."""
-    if cap == 1:
-        return sum(x[c] for c in members)
-    y = model.NewIntVar(0, cap, f"y_{s}_{n}")
-    model.Add(y == sum(x[c] for c in members))
-    return y
-
-
-def _lower_hull(points):
-    """Lower convex hull of (x, y) points sorted by x."""
-    hull = []
-    for p in points:
-        while len(hull) >= 2 and (
-            (hull[-1][1] - hull[-2][1]) * (p[0] - hull[-2][0])
-            >= (p[1] - hull[-2][1]) * (hull[-1][0] - hull[-2][0])
-        ):
-            hull.pop()
-        hull.append(p)
-    return hull
-
-
-def _count_cuts(model, red, total, penalties, max_visits):
-    """Valid cuts: a target's summed redundancy is at least the least any N of its nights give.
-
-    With N visits in N distinct nights the pair terms add up to at least ``m_N``, the smallest
-    pair sum over N-subsets of the nights (exact by enumeration for small cases, else the sum of
-    the smallest ``N (N - 1) / 2`` pairs, which is lower still). The lower convex hull of
-    ``(N, m_N)`` gives linear cuts that tighten the relaxation of the pair products.
-    """
-    n = red.shape[0]
-    top = n if max_visits is None else min(n, max_visits)
-    pairs = np.sort(red[np.triu_indices(n, 1)])
-    points = [(0, 0), (1, 0)]
-    for k in range(2, top + 1):
-        if math.comb(n, k) <= 2000:
-            m = min(red[np.ix_(c, c)][np.triu_indices(k, 1)].sum()
-                    for c in map(list, itertools.combinations(range(n), k)))
-        else:
-            m = pairs[: k * (k - 1) // 2].sum()
-        points.append((k, int(m)))
-    hull = _lower_hull(points)
-    for (x0, y0), (x1, y1) in itertools.pairwise(hull):
-        if y1 > y0:
-            # penalty >= y0 + (y1 - y0) / (x1 - x0) * (N - x0), scaled to integers
-            model.Add((x1 - x0) * sum(penalties) >= (x1 - x0) * y0 + (y1 - y0) * (total - x0))
-
-
 def build_model(
     problem: Problem, surrogate: Surrogate, *, hint: np.ndarray | None = None
 ) -> tuple[cp_model.CpModel, JointHandles]:
@@ -141,9 +91,9 @@ def build_model(
     for members in spacing_cliques(problem):
         model.AddAtMostOne(x[c] for c in members)
 
-    objective = [surrogate.unary[c] * x[c] for c in range(problem.n_candidates)]
+    objective = [int(surrogate.unary[c]) * x[c] for c in range(problem.n_candidates)]
     hint_set = set() if hint is None else {int(c) for c in hint}
-    n_products = 0
+    n_patterns = 0
     for s, rule in enumerate(problem.rules):
         mine = np.flatnonzero(problem.target == s)
         if mine.size == 0:
@@ -160,53 +110,50 @@ def build_model(
         for lo, hi in rule.must_windows_jd:
             inside = mine[(problem.start_jd(mine) >= lo) & (problem.end_jd(mine) <= hi)]
             model.Add(sum(x[c] for c in inside) >= 1)
-        nights = np.unique(problem.night[mine])
-        counts, caps, hinted = {}, {}, {}
-        for n in nights:
+        # One Boolean per night pattern; y_n (target seen in night n) is the sum of the
+        # patterns holding n, so the relaxation is the convex hull of the pattern values.
+        hinted_mask = sum(1 << int(problem.night[c]) for c in hint_set if problem.target[c] == s)
+        chooser = []
+        used = {}
+        for mask, value in surrogate.patterns[s].items():
+            if mask == 0:
+                continue
+            p = model.NewBoolVar(f"p_{s}_{mask}")
+            chooser.append(p)
+            objective.append(int(value) * p)
+            for n in range(problem.n_nights):
+                if mask >> n & 1:
+                    used.setdefault(n, []).append(p)
+            if hint is not None:
+                model.AddHint(p, int(mask == hinted_mask))
+        n_patterns += len(chooser)
+        model.AddAtMostOne(chooser)
+        for n in np.unique(problem.night[mine]):
             members = mine[problem.night[mine] == n]
-            caps[n] = min(rule.max_per_night, members.size)
-            model.Add(sum(x[c] for c in members) <= rule.max_per_night)
-            counts[n] = _night_counts(model, problem, x, s, n, members, caps[n])
-            hinted[n] = sum(int(c) in hint_set for c in members)
-        penalties = []
-        for i, a in enumerate(nights):
-            for b in nights[i:]:
-                r = int(surrogate.redundancy[s, a, b])
-                if r <= 0 or (a == b and caps[a] < 2):
-                    continue
-                n_products += 1
-                if a == b:
-                    ya = counts[a]
-                    less = model.NewIntVar(-1, caps[a] - 1, f"ym_{s}_{a}")
-                    model.Add(less == ya - 1)
-                    prod = model.NewIntVar(0, caps[a] * (caps[a] - 1), f"q_{s}_{a}")
-                    model.AddMultiplicationEquality(prod, [ya, less])
-                    half = model.NewIntVar(0, caps[a] * (caps[a] - 1) // 2, f"h_{s}_{a}")
-                    model.Add(2 * half == prod)
-                    objective.append(-r * half)
-                    if hint is not None:
-                        model.AddHint(half, hinted[a] * (hinted[a] - 1) // 2)
-                elif caps[a] == 1 and caps[b] == 1:
-                    z = model.NewBoolVar(f"z_{s}_{a}_{b}")
-                    model.Add(z >= counts[a] + counts[b] - 1)
-                    objective.append(-r * z)
-                    penalties.append(r * z)
-                    if hint is not None:
-                        model.AddHint(z, int(hinted[a] * hinted[b] > 0))
-                else:
-                    ya, yb = counts[a], counts[b]
-                    if caps[a] == 1:
-                        ya = _night_counts(model, problem, x, s, a, mine[problem.night[mine] == a], 2)
-                    if caps[b] == 1:
-                        yb = _night_counts(model, problem, x, s, b, mine[problem.night[mine] == b], 2)
-                    z = model.NewIntVar(0, caps[a] * caps[b], f"z_{s}_{a}_{b}")
-                    model.AddMultiplicationEquality(z, [ya, yb])
-                    objective.append(-r * z)
-                    if hint is not None:
-                        model.AddHint(z, hinted[a] * hinted[b])
-        if penalties and all(caps[n] == 1 for n in nights):
-            _count_cuts(model, surrogate.redundancy[s][np.ix_(nights, nights)], total,
-                        penalties, rule.max_visits)
+            seen = sum(used.get(int(n), []))
+            count = sum(x[c] for c in members)
+            cap = min(rule.max_per_night, members.size)
+            objective.append(-int(surrogate.best[s, n]) * seen)
+            if cap == 1:
+                model.Add(count == seen)
+                continue
+            model.Add(count >= seen)
+            model.Add(count <= cap * seen)
+            r = int(surrogate.within[s, n])
+            if r <= 0:
+                continue
+            extra = model.NewIntVar(0, cap * (cap - 1) // 2, f"pairs_{s}_{n}")
+            if cap == 2:
+                model.Add(extra >= count - seen)
+            else:
+                y = model.NewIntVar(0, cap, f"y_{s}_{n}")
+                model.Add(y == count)
+                less = model.NewIntVar(-1, cap - 1, f"ym_{s}_{n}")
+                model.Add(less == y - 1)
+                prod = model.NewIntVar(-1, cap * (cap - 1), f"q_{s}_{n}")
+                model.AddMultiplicationEquality(prod, [y, less])
+                model.Add(2 * extra >= prod)
+            objective.append(-r * extra)
     model.Maximize(sum(objective))
     if hint is not None:
         for c in range(problem.n_candidates):
@@ -215,7 +162,7 @@ def build_model(
         ("candidates", problem.n_candidates),
         ("slot_cliques", len(cliques)),
         ("slew_pairs", len(pairs)),
-        ("redundancy_terms", n_products),
+        ("night_patterns", n_patterns),
     )
     return model, JointHandles(problem, surrogate, x, None if hint is None else np.asarray(hint),
                                stats)
