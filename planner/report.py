@@ -135,7 +135,7 @@ def render_schedule(plan: PlanFile) -> str:
         out.extend(_wrap(moon, "     "))
         out.extend(body)
         out.append("")
-    done = sum(v.status == "done" for v in plan.visits)
+    done = sum(v.status != "planned" for v in plan.visits)
     bound = ""
     if plan.bound_bits is not None and plan.objective_bits is not None:
         bound = (f"; on the solver's own surrogate objective this plan has "
@@ -196,7 +196,7 @@ def _night_body(night, visits, running, zone):
         bits += visit.expected_bits
         exposing += visit.exposure_s
         slewing += visit.slew_s
-        mark = "*" if visit.status == "done" else " "
+        mark = " " if visit.status == "planned" else "*"
         moment = _moment_jd(start)
         airmass = f"{visit.airmass_start:.2f}>{visit.airmass_end:.2f}"
         lines.append(f"{mark}{_hm(moment, zone):>5}  {moment.strftime('%H:%M'):>5}  "
