@@ -23,9 +23,14 @@ from planner.divergence import (
     normalised_log_weights,
     reweight_kl_bits,
 )
+from planner.errors import PlanError
+from planner.update import MIN_ESS_FRACTION, new_data_log_likelihood
 
 __all__ = [
     "MAX_BRIDGE_STDERR_BITS",
+    "cost_to_reach",
+    "measure_execution",
+    "support_curve",
     "StarRealised",
     "measure_refit",
     "measure_reweighted",
@@ -177,3 +182,120 @@ def measure_refit(old, new, loglike_old, loglike_new, n_new):
         log2_volume_before=log2_volume(volume_columns(old)),
         log2_volume_after=log2_volume(volume_columns(new)),
     )
+
+
+def measure_execution(posteriors, execution, rng, past=None, refit=False,
+                      min_ess_fraction=MIN_ESS_FRACTION, fit_settings=None):
+    """Measure what every visited target learnt, against the posteriors before the run.
+
+    Parameters
+    ----------
+    posteriors : mapping of str to inference.posterior.Posterior
+        Posteriors before the run.
+    execution : planner.simulate.Execution
+        All new velocities of the run.
+    rng : numpy.random.Generator
+        Generator for refits.
+    past : mapping of str to inference.data.RVData, optional
+        The data each posterior was fitted to (needed for refits).
+    refit : bool
+        Refit a target when the effective sample size of its weights is below
+        ``min_ess_fraction`` of the samples; False keeps the exact on-support reweighting
+        for every target (the estimator the expected bits are comparable with).
+    min_ess_fraction : float
+        Threshold of the refit.
+    fit_settings : inference.sample.SamplerSettings, optional
+        Settings of the refits.
+
+    Returns
+    -------
+    tuple of StarRealised
+        One per target with new velocities, in order of first visit.
+    """
+    out = []
+    for target in execution.targets():
+        old = posteriors[target]
+        data = execution.data(target)
+        ll = new_data_log_likelihood(old, data)
+        star = measure_reweighted(old, ll, len(data))
+        if refit and star.ess < min_ess_fraction * old.n_samples:
+            from inference.sample import fit
+
+            if past is None:
+                raise PlanError("refits need the data the posteriors were fitted to; pass past.")
+            new = fit(past[target].concat(data), old.model, fit_settings, rng, target=target)
+            star = measure_refit(old, new, ll, new_data_log_likelihood(new, data), len(data))
+        out.append(star)
+    return tuple(out)
+
+
+def support_curve(posteriors, execution, weights=None):
+    """On-support realised bits of the whole run after each executed exposure.
+
+    Parameters
+    ----------
+    posteriors : mapping of str to inference.posterior.Posterior
+        Posteriors before the run.
+    execution : planner.simulate.Execution
+        The run's velocities, in time order.
+    weights : mapping of str to float, optional
+        Weight of each target's bits (default 1).
+
+    Returns
+    -------
+    ndarray, shape (n_executed,)
+        Weighted total ``sum_stars reweight_kl_bits`` after the first k exposures [bits].
+
+    Notes
+    -----
+    Only the star of the k-th exposure changes at step k, so the curve costs one reweighting
+    per exposure. The last value equals the total of :func:`measure_execution` without refits.
+    """
+    w = dict(weights or {})
+    columns = {}
+    for target in execution.targets():
+        post = posteriors[target]
+        rows = execution.rows(target)
+        # One column per exposure: the new data's log likelihood, one velocity at a time.
+        columns[target] = [new_data_log_likelihood(post, execution.data(target, row))
+                           for row in rows]
+    running = {t: np.zeros(posteriors[t].n_samples) for t in columns}
+    seen = dict.fromkeys(columns, 0)
+    bits = dict.fromkeys(columns, 0.0)
+    total = 0.0
+    curve = np.empty(len(execution.visits))
+    for k, visit in enumerate(execution.visits):
+        t = visit.target
+        running[t] = running[t] + columns[t][seen[t]]
+        seen[t] += 1
+        new = reweight_kl_bits(running[t])
+        total += w.get(t, 1.0) * (new - bits[t])
+        bits[t] = new
+        curve[k] = total
+    return curve
+
+
+def cost_to_reach(curve_bits, curve_hours, goal_bits):
+    """Exposures and hours a strategy needs to first reach a realised-information goal.
+
+    Parameters
+    ----------
+    curve_bits : ndarray, shape (n,)
+        Realised bits after each exposure, in time order.
+    curve_hours : ndarray, shape (n,)
+        Hours used after each exposure.
+    goal_bits : float
+        The goal (cadence's whole-run realised bits in the same seed).
+
+    Returns
+    -------
+    exposures : int or None
+        Smallest k with ``curve_bits[k-1] >= goal_bits``; None if never reached.
+    hours : float or None
+        ``curve_hours[k-1]``; None if never reached.
+    """
+    bits = np.asarray(curve_bits, dtype=float)
+    hit = np.flatnonzero(bits >= goal_bits - 1e-12)
+    if hit.size == 0:
+        return None, None
+    return int(hit[0]) + 1, float(np.asarray(curve_hours, dtype=float)[hit[0]])
