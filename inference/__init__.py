@@ -1,1 +1,31 @@
 """Orbit posteriors from past radial velocities."""
+
+from .batch import FitFailure, FitJob, fit_many
+from .cache import FitCache
+from .data import RVData, read_rv_csv
+from .errors import InferenceError, ModelError, RVDataError
+from .kepler import eccentric_anomaly
+from .keplerian import radial_velocity, semi_amplitude
+from .model import ModelSpec
+from .posterior import Posterior
+from .sample import Diagnostics, SamplerSettings, fit
+
+__all__ = [
+    "Diagnostics",
+    "FitCache",
+    "FitFailure",
+    "FitJob",
+    "InferenceError",
+    "ModelError",
+    "ModelSpec",
+    "Posterior",
+    "RVData",
+    "RVDataError",
+    "SamplerSettings",
+    "eccentric_anomaly",
+    "fit",
+    "fit_many",
+    "radial_velocity",
+    "read_rv_csv",
+    "semi_amplitude",
+]

@@ -10,7 +10,6 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 
 from .errors import RVDataError
 
@@ -184,6 +183,8 @@ class RVData:
 
 
 def _numeric_column(frame, column, path):
+    import pandas as pd
+
     text = frame[column].astype(object)
     values = pd.to_numeric(text.where(text.str.strip() != "", None), errors="coerce")
     values = values.to_numpy(dtype=float, na_value=np.nan)
@@ -217,6 +218,8 @@ def read_rv_csv(path):
     RVDataError
         With one sentence naming the file, line and column of the first problem.
     """
+    import pandas as pd  # imported here: pandas is slow to import and only the reader needs it
+
     path = Path(path)
     try:
         frame = pd.read_csv(

@@ -6,7 +6,6 @@ times of shape ``(n_times,)`` to get ``(n_samples, n_times)``.
 """
 
 import numpy as np
-from astropy import constants as const
 
 from .errors import ModelError
 from .kepler import eccentric_anomaly
@@ -22,9 +21,14 @@ __all__ = [
 ]
 
 _DAY_S = 86400.0
-_G = const.G.si.value
-_M_SUN = const.M_sun.si.value  # IAU 2015 nominal solar mass parameter / G
-_M_JUP = const.M_jup.si.value  # IAU 2015 nominal Jovian mass parameter / G
+
+
+def _constants():
+    """G, the solar and Jovian masses [SI] from astropy (imported here: astropy is slow)."""
+    from astropy import constants as const
+
+    # IAU 2015 nominal mass parameters divided by the CODATA G, as astropy defines them.
+    return const.G.si.value, const.M_sun.si.value, const.M_jup.si.value
 
 
 def mean_anomaly(t, period, time_periastron):
@@ -178,12 +182,13 @@ def semi_amplitude(m_sin_i, m_star, period, eccentricity=0.0):
     mass in the total (e.g. Lovis & Fischer 2010, in *Exoplanets*, ed. Seager, eq. 14), taking
     sin i = 1 in the total mass.
     """
-    m_p = np.asarray(m_sin_i, dtype=float) * _M_JUP
-    m_s = np.asarray(m_star, dtype=float) * _M_SUN
+    g, m_sun, m_jup = _constants()
+    m_p = np.asarray(m_sin_i, dtype=float) * m_jup
+    m_s = np.asarray(m_star, dtype=float) * m_sun
     p = np.asarray(period, dtype=float) * _DAY_S
     e = np.asarray(eccentricity, dtype=float)
     return (
-        (2.0 * np.pi * _G / p) ** (1.0 / 3.0)
+        (2.0 * np.pi * g / p) ** (1.0 / 3.0)
         * m_p
         / (m_s + m_p) ** (2.0 / 3.0)
         / np.sqrt(1.0 - e * e)
@@ -221,10 +226,11 @@ def minimum_mass(semi_amplitude, m_star, period, eccentricity=0.0):
             "a semi-amplitude passed to minimum_mass is negative: K is an amplitude, so pass "
             "its absolute value."
         )
-    m_s = np.asarray(m_star, dtype=float) * _M_SUN
+    g, m_sun, m_jup = _constants()
+    m_s = np.asarray(m_star, dtype=float) * m_sun
     p = np.asarray(period, dtype=float) * _DAY_S
     e = np.asarray(eccentricity, dtype=float)
-    f = k**3 * (1.0 - e * e) ** 1.5 * p / (2.0 * np.pi * _G)
+    f = k**3 * (1.0 - e * e) ** 1.5 * p / (2.0 * np.pi * g)
     m = np.cbrt(f * m_s * m_s)
     for _ in range(200):
         new = np.cbrt(f * (m_s + m) ** 2)
@@ -232,4 +238,4 @@ def minimum_mass(semi_amplitude, m_star, period, eccentricity=0.0):
         m = new
         if done:
             break
-    return m / _M_JUP
+    return m / m_jup
