@@ -20,7 +20,7 @@ from planner.plan import Plan, assemble_plan
 from planner.problem import Problem
 from planner.surrogate import Surrogate
 
-__all__ = ["greedy_plan", "surrogate_gain"]
+__all__ = ["exact_gain", "greedy_plan", "surrogate_gain"]
 
 #: Gain model: (problem, candidates of one target, chosen visits of that target) -> weighted bits.
 GainModel = Callable[[Problem, np.ndarray, np.ndarray], np.ndarray]
@@ -31,6 +31,31 @@ def surrogate_gain(surrogate: Surrogate) -> GainModel:
 
     def gain(problem: Problem, candidates: np.ndarray, chosen: np.ndarray) -> np.ndarray:
         return surrogate.marginal(problem, candidates, chosen) / surrogate.scale
+
+    return gain
+
+
+def exact_gain(predictors, *, rng: np.random.Generator, n_outcomes: int = 64) -> GainModel:
+    """Exact conditional gains from :func:`planner.information.conditional_bits` [weighted bit].
+
+    The gain of a candidate given the target's chosen visits is the expected one-visit
+    information under the posterior reweighted by simulated outcomes of those visits
+    (equal to ``I(S + c) - I(S)``); with nothing chosen it is the candidate's one-visit bits.
+    """
+    from planner.information import conditional_bits
+
+    def gain(problem: Problem, candidates: np.ndarray, chosen: np.ndarray) -> np.ndarray:
+        s = int(problem.target[candidates[0]])
+        weight = problem.rules[s].weight
+        if chosen.size == 0:
+            return weight * problem.bits[candidates]
+        pred = predictors[s]
+        jitter = np.asarray(pred.jitter, dtype=float)[:, None]
+        v_set = pred.velocities(problem.bjd_mid[chosen])
+        v_new = pred.velocities(problem.bjd_mid[candidates])
+        s_set = np.sqrt(problem.sigma[chosen][None, :] ** 2 + jitter**2)
+        s_new = np.sqrt(problem.sigma[candidates][None, :] ** 2 + jitter**2)
+        return weight * conditional_bits(v_set, s_set, v_new, s_new, rng, n_outcomes)
 
     return gain
 
