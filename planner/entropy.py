@@ -106,37 +106,38 @@ def _chunk_entropy(x, comp, w, extra, h, size, nodes, floor):
     """
     n_c, n_s = x.shape
     lo = 0.5 * (x.min(axis=1) + x.max(axis=1)) - 0.5 * size * h
-    pos = x - lo[:, None]
-    pos *= (1.0 / h)[:, None]
-    cell = np.floor(pos)
-    u = pos
-    u -= cell  # fractional position in [0, 1)
-    cell = cell.astype(np.int64)
-    uu = u * (1.0 - u)
-    if w is None:
-        cic = np.mean(uu, axis=1) * (h * h)  # variance cloud-in-cell added, per column
-        wb = u * (1.0 / n_s)
-        wa = (1.0 / n_s) - wb
-    else:
-        cic = np.sum(w * uu, axis=1) * (h * h)
-        wb = w * u
-        wa = w - wb
     n_nodes = 1 if nodes is None else nodes.size
-    if nodes is None:
-        cv = 0.0 if comp is None else (
-            np.mean(comp, axis=1) if w is None else np.sum(w * comp, axis=1))
-        node_var = np.broadcast_to(cv - cic, (1, n_c))
-        cell += (np.arange(n_c) * size)[:, None]
-    else:
+    # Grid position; each column's (and each variance node's) block offset is added before the
+    # floor as an exact integer-valued float, so one floor gives the flat histogram index.
+    inv_h = 1.0 / h
+    pos = x * inv_h[:, None]
+    pos += (np.arange(n_c) * (n_nodes * size) - lo * inv_h)[:, None]
+    if nodes is not None:
         s = np.log((comp + floor) / (nodes[0] + floor)) / math.log(
             (nodes[1] + floor) / (nodes[0] + floor))
         k = np.clip(np.floor(s + 1e-9).astype(np.int64), 0, n_nodes - 2)
         v0, v1 = nodes[k], nodes[k + 1]
         lam = np.clip((v1 - comp) / (v1 - v0), 0.0, 1.0)  # share of the lower node
-        cell += (np.arange(n_c) * n_nodes * size)[:, None] + k * size
+        pos += k * size
+    cell = np.floor(pos)
+    u = pos
+    u -= cell  # fractional position in [0, 1)
+    idx = cell.astype(np.int64).ravel()
+    if w is None:
+        wb = u * (1.0 / n_s)
+        wa = (1.0 / n_s) - wb
+    else:
+        wb = w * u
+        wa = w - wb
+    u *= wa
+    cic = np.sum(u, axis=1) * (h * h)  # variance cloud-in-cell added: sum_i w_i u_i (1 - u_i)
+    if nodes is None:
+        cv = 0.0 if comp is None else (
+            np.mean(comp, axis=1) if w is None else np.sum(w * comp, axis=1))
+        node_var = np.broadcast_to(cv - cic, (1, n_c))
+    else:
         node_var = nodes[:, None] - cic[None, :]
     total = n_c * n_nodes * size
-    idx = cell.ravel()
     if nodes is None:
         hist = np.bincount(idx, wa.ravel(), total)
         hist[1:] += np.bincount(idx, wb.ravel(), total)[:-1]
@@ -256,10 +257,13 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
         extra = extra + comp[None, :]
         comp = None
     elif kind == "full":
-        # Fold what is common to a column into the extra variance.
+        # Fold what is common to a column into the extra variance; when what is left is the
+        # same in every column (jitter^2 + sigma_t^2), it is a per-sample variance.
         col = comp.min(axis=0)
         comp = comp - col[None, :]
         extra = extra + col[None, :]
+        if np.allclose(comp, comp[:, :1], rtol=0.0, atol=1e-9 * float(extra.max(initial=1.0))):
+            comp = np.ascontiguousarray(comp[:, :1])
     elif kind == "sample":
         low = float(comp.min())
         comp = comp - low
