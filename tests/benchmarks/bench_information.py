@@ -82,7 +82,7 @@ def bench_curves(n_targets, repeats):
     pred_times = []
     for pred, (t, _, _) in zip(stars[:20], runs[:20], strict=True):
         pred_times.append(_timed(lambda p=pred, tt=t: p.velocities(tt))[0])
-    build = [_timed(lambda: invented_posterior(np.random.default_rng(i)))[0] for i in range(20)]
+    build = [_timed(lambda i=i: invented_posterior(np.random.default_rng(i)))[0] for i in range(20)]
     med = statistics.median(totals)
     scale = 200 / n_targets
     print(f"curves: {n_targets} targets x {runs[0][0].size} grid times x 2 options, "
