@@ -17,6 +17,8 @@ import logging
 import sys
 import time
 
+from planner.cli_simulate import add_simulate
+
 __all__ = ["COMMANDS", "build_parser", "main"]
 
 log = logging.getLogger(__name__)
@@ -126,7 +128,7 @@ def _add_replan(sub) -> None:
 
 
 #: The subcommands, in the order ``--help`` lists them.
-COMMANDS = (_add_fit, _add_curves, _add_plan, _add_compare, _add_replan)
+COMMANDS = (_add_fit, _add_curves, _add_plan, _add_compare, _add_replan, add_simulate)
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -30,6 +30,7 @@ __all__ = [
     "StrategyRun",
     "StrategySummary",
     "Experiment",
+    "build_setup",
     "expected_bits",
     "run_strategy",
     "run_experiment",
@@ -125,6 +126,8 @@ class StrategyRun:
         On-support realised bits of the whole run after each executed exposure, in time order.
     curve_hours : ndarray, shape (exposures,)
         Telescope hours used up to and including each exposure.
+    execution : planner.simulate.Execution
+        The simulated velocities (for plots of a star's posterior before and after).
     """
 
     strategy: str
@@ -138,6 +141,7 @@ class StrategyRun:
     hours: float
     curve_bits: np.ndarray = field(repr=False)
     curve_hours: np.ndarray = field(repr=False)
+    execution: Execution = field(repr=False, default=None)
 
 
 #: Simulated outcomes behind each target's expected joint bits (as the plan score uses).
@@ -192,6 +196,7 @@ def _finish(setup, strategy, seed, planned, expected, execution, rng, refit):
         shrink_bits=float(sum(setup.weight(s.target) * s.shrink_bits for s in stars)),
         exposures=len(execution.visits), planned=len(planned.visits),
         hours=float(hours[-1]) if hours.size else 0.0, curve_bits=curve, curve_hours=hours,
+        execution=execution,
     )
 
 
@@ -447,3 +452,57 @@ def run_experiment(setup, strategies=STRATEGIES, seeds=(0,), weather=None, refit
                 progress(len(runs), total, f"{name} seed {seed}")
     return Experiment(seeds=seeds, runs=tuple(runs),
                       summaries=summarise(runs, strategies, tuple(setup.posteriors)))
+
+
+def build_setup(scenario, posteriors, truths, time_limit_s=None):
+    """Build the Setup of a scenario: its sky, noise and the pipeline's strategies as planners.
+
+    Parameters
+    ----------
+    scenario : planner.scenario.Scenario
+        The run.
+    posteriors : dict of str to inference.posterior.Posterior
+        Every target's posterior before the run (``planner.pipeline.fit_posteriors``).
+    truths : mapping of str to planner.truth.TrueOrbit
+        True orbit of every target.
+    time_limit_s : float, optional
+        Solver limit of every joint plan, the adaptive re-plans included (default the
+        scenario's).
+
+    Returns
+    -------
+    Setup
+        ``plan_fixed`` is :func:`planner.pipeline.make_plan` (verified plans);
+        ``plan_rest(posteriors, k)`` prepares the run again from updated posteriors with the
+        nights before ``k`` closed, and plans it with the joint strategy.
+    """
+    from planner import pipeline
+
+    missing = [t.id for t in scenario.targets if t.id not in truths]
+    if missing:
+        raise PlanError(f"target {missing[0]!r} has no true orbit; add its truth file (see "
+                        "docs/simulation.md) or pass the right folder with --truth.")
+    run = pipeline.prepare(scenario, posteriors)
+    past = {job.target: job.data for job in pipeline.fit_jobs(scenario)}
+    aligned = run.aligned
+
+    made = {}
+
+    def plan_fixed(strategy):
+        if strategy not in made:  # each fixed plan is solved once
+            made[strategy] = pipeline.make_plan(run, strategy, time_limit_s).plan
+        return made[strategy]
+
+    def plan_rest(updated, first):
+        if first == 0 and all(updated[k] is posteriors[k] for k in posteriors):
+            return plan_fixed("joint")
+        closed = ((aligned[0].dark_start_jd - 1.0, aligned[first].dark_start_jd),)
+        rest = pipeline.prepare(scenario, updated, lost_jd=closed, strict=False)
+        return pipeline.make_plan(rest, "joint", time_limit_s).plan
+
+    return Setup(posteriors=dict(posteriors), past=past, truths=dict(truths),
+                 stars={t.id: t for t in scenario.targets}, site=run.site, sky=run.sky,
+                 instrument=run.instrument, instrument_name=scenario.instrument.name,
+                 night_dates=tuple(n.date for n in aligned),
+                 windows_jd=np.array([(n.dark_start_jd, n.dark_end_jd) for n in aligned]),
+                 plan_fixed=plan_fixed, plan_rest=plan_rest)

@@ -6,6 +6,7 @@ fixed visit lists, because these tests check the experiment's bookkeeping, not t
 """
 
 import dataclasses
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -225,3 +226,77 @@ def test_demo_truth_folder_is_complete():
     scenario = pipeline.load(None)
     truths = read_truths(scenario.path.parent / "truth")
     assert {t.id for t in scenario.targets} <= set(truths)
+
+
+def test_strategy_choices_match_the_experiment():
+    from planner.cli_simulate import STRATEGY_CHOICES
+
+    assert STRATEGY_CHOICES == STRATEGIES
+
+
+TINY = Path(__file__).resolve().parent / "data" / "tiny" / "tiny.yaml"
+DEMO_TRUTH = Path(__file__).resolve().parents[1] / "scenarios" / "demo" / "truth"
+
+
+@pytest.fixture
+def invented_fits(monkeypatch):
+    """Replace the sampler by invented posteriors around the truths (keeps the test fast)."""
+    from planner import pipeline
+
+    truths = read_truths(DEMO_TRUTH)
+
+    def fake_fit(scenario, cache=None, jobs=None, progress=None):
+        rng = np.random.default_rng(2)
+        out = {}
+        for t in scenario.targets:
+            truth = truths[t.id]
+            if not truth.planets:
+                pytest.skip("the tiny run's stars all have one planet in the demo truths")
+            out[t.id] = _posterior_around(truth, rng)[0]
+        return out
+
+    monkeypatch.setattr(pipeline, "fit_posteriors", fake_fit)
+
+
+def test_simulate_command_end_to_end(tmp_path, capsys, invented_fits):
+    import json
+
+    from planner.cli import main
+
+    out = tmp_path / "sim"
+    argv = [str(TINY), "--truth", str(DEMO_TRUTH), "--seeds", "2", "--strategies", "joint",
+            "cadence", "adaptive", "--out", str(out), "--no-cache", "--time-limit", "2"]
+    assert main(["simulate", *argv]) == 0
+    printed = capsys.readouterr().out
+    assert "to reach cadence" in printed and "observatory's own rules" in printed
+    doc = json.loads((out / "simulate.json").read_text())
+    rows = {r["strategy"]: r for r in doc["strategies"]}
+    assert set(rows) == {"joint", "cadence", "adaptive"}
+    for r in rows.values():
+        for key in ("strategy", "expected_bits", "realised_bits_mean", "realised_bits_std",
+                    "exposures"):
+            assert key in r
+        assert len(r["seeds"]) == 2
+        assert r["realised_bits_mean"] == pytest.approx(
+            np.mean([s["realised_bits"] for s in r["seeds"]]))
+    # A second run refuses to replace the file without --force, and leaves it as it was.
+    before = (out / "simulate.json").read_bytes()
+    assert main(["simulate", *argv]) == 2
+    assert "already exists" in capsys.readouterr().err
+    assert (out / "simulate.json").read_bytes() == before
+
+
+def test_simulate_command_bad_input_writes_nothing(tmp_path, capsys, invented_fits):
+    from planner.cli import main
+
+    out = tmp_path / "sim"
+    base = [str(TINY), "--truth", str(DEMO_TRUTH), "--out", str(out), "--no-cache"]
+    assert main(["simulate", *base, "--seeds", "0"]) == 2
+    assert "at least 1 seed" in capsys.readouterr().err
+    assert main(["simulate", *base, "--hour-loss", "1.5"]) == 2
+    assert "between 0 and 1" in capsys.readouterr().err
+    assert main(["simulate", *base, "--plot-star", "Nobody-1"]) == 2
+    assert "no target 'Nobody-1'" in capsys.readouterr().err
+    assert main(["simulate", str(TINY), "--truth", str(tmp_path), "--out", str(out)]) == 2
+    assert "no true-orbit files" in capsys.readouterr().err
+    assert not out.exists()
