@@ -224,25 +224,23 @@ def _importance(prep, settings, rng, cells):
 
 
 def _seed_walkers(theta, log_w, count, prep, rng):
-    """Pick `count` draws by weight and spread clones slightly, staying in the prior."""
+    """Pick `count` draws by weight; move repeated picks slightly, staying in the prior."""
     w = np.exp(log_w - np.max(log_w))
     w /= w.sum()
     pick = rng.choice(theta.shape[0], size=count, replace=True, p=w)
     chosen = theta[pick]
     sd = np.sqrt(np.maximum(np.cov(theta.T, aweights=w + 1e-300).diagonal(), 1e-12))
     out = chosen.copy()
+    repeated = np.ones(count, dtype=bool)
+    repeated[np.unique(pick, return_index=True)[1]] = False
     for _ in range(50):
-        clash = np.ones(count, dtype=bool)
-        _, first = np.unique(pick, return_index=True)
-        clash[first] = False
-        bad = clash | ~np.isfinite(log_prior(out, prep))
-        if not np.any(bad):
+        idx = np.flatnonzero(repeated)
+        if idx.size == 0:
             break
-        out[bad] = chosen[bad] + 0.1 * sd * rng.standard_normal((int(bad.sum()), theta.shape[1]))
-        pick = np.where(bad, -1 - np.arange(count), pick)  # perturbed rows are now distinct
-        still = ~np.isfinite(log_prior(out, prep))
-        out[still] = chosen[still]
-        pick = np.where(still, pick, -1 - np.arange(count))
+        trial = chosen[idx] + 0.1 * sd * rng.standard_normal((idx.size, theta.shape[1]))
+        ok = np.isfinite(log_prior(trial, prep))
+        out[idx[ok]] = trial[ok]
+        repeated[idx[ok]] = False
     return out
 
 
