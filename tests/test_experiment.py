@@ -12,9 +12,10 @@ import numpy as np
 import pytest
 
 from planner.errors import PlanError
-from planner.experiment import STRATEGIES, Setup, run_experiment, run_strategy, summarise
+from planner.experiment import STRATEGIES, Setup, run_experiment, run_strategy
 from planner.plan import Plan, Visit
 from planner.realised import cost_to_reach, measure_execution, support_curve
+from planner.scoreboard import summarise
 from planner.simulate import execute, visit_conditions
 from planner.truth import read_truths
 from planner.weather import Weather
