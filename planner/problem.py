@@ -56,7 +56,8 @@ class Problem:
     overhead_s : float
         Per-visit overhead before each exposure (acquisition, readout of the previous one) [s].
     slew_margin_s : float
-        Safety margin added to every slew before rounding up to the minute [s].
+        Safety margin added to every slew before rounding up to the minute [s] (only with a slew
+        model: it absorbs the interpolated end positions).
     slew : callable or None
         Slew model ``(alt1, az1, alt2, az2) -> seconds`` (degrees, broadcasting); None: no slews,
         only the overhead.
@@ -157,13 +158,16 @@ class Problem:
 
     def gap_min(self, i, j) -> np.ndarray:
         """Whole minutes the telescope needs between the end of ``i`` and the start of ``j``."""
-        seconds = self.slew_seconds(i, j) + self.slew_margin_s
+        seconds = self.slew_seconds(i, j) + self._margin()
         return np.ceil(seconds / 60.0 - 1e-9).astype(np.int64)
 
     @property
     def min_gap_min(self) -> int:
         """A lower bound on every gap [min]: the overhead and margin alone (slews are >= 0)."""
-        return int(math.ceil((self.overhead_s + self.slew_margin_s) / 60.0 - 1e-9))
+        return int(math.ceil((self.overhead_s + self._margin()) / 60.0 - 1e-9))
+
+    def _margin(self) -> float:
+        return self.slew_margin_s if self.slew is not None else 0.0
 
     def lead_min(self) -> int:
         """Minutes before the first exposure of a night taken by its overhead."""

@@ -51,7 +51,11 @@ class Verification:
 
 
 def _moon(site, times_jd):
-    """Moon altitude [deg] and illuminated fraction at exact times (astropy ephemeris)."""
+    """Moon altitude [deg] and illuminated fraction at exact times (astropy ephemeris).
+
+    The phase uses the topocentric Moon and the geocentric Sun; the Moon's parallax (about
+    1 deg) changes the illuminated fraction by less than 0.01.
+    """
     import astropy.units as u
     from astropy.coordinates import AltAz, get_body
     from astropy.time import Time
@@ -65,7 +69,7 @@ def _moon(site, times_jd):
         alt = moon.transform_to(AltAz(obstime=t, location=site.location(),
                                       pressure=0.0 * u.hPa)).alt.deg
         sun_geo = get_body("sun", t).cartesian.xyz.to_value(u.au).T
-        moon_geo = get_body("moon", t).cartesian.xyz.to_value(u.au).T
+        moon_geo = moon.cartesian.xyz.to_value(u.au).T
     return alt, illuminated_fraction(sun_geo, moon_geo)
 
 

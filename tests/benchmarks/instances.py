@@ -14,13 +14,14 @@ Nothing here is real: the site, the stars and their orbits are drawn from the se
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 
 from planner.problem import Problem, build_problem, problem_from_sky
 from planner.rules import TargetRules
 
-__all__ = ["SkyInstance", "grid_instance", "sky_instance"]
+__all__ = ["SkyInstance", "grid_instance", "shared_sky_instance", "sky_instance"]
 
 #: Invented site (open ocean, no observatory there); nights in a northern spring run.
 SITE_ARGS = dict(
@@ -210,3 +211,9 @@ def sky_instance(
     return SkyInstance(
         problem, tuple(predictors), sky, constraints, Mount() if slews else None, ra, dec
     )
+
+
+@lru_cache(maxsize=4)
+def shared_sky_instance(n_targets: int, n_nights: int, seed: int) -> SkyInstance:
+    """:func:`sky_instance` built once per process (tests share it; it is read-only)."""
+    return sky_instance(n_targets, n_nights, seed=seed, n_samples=400)
