@@ -46,7 +46,7 @@ _ONE_NODE_RATIO = 1.02
 #: Floats held by one batch of histograms or spectra (about 64 MB).
 _CHUNK_FLOATS = 1 << 23
 #: Centres handled per chunk, so that the per-sample temporaries stay in cache.
-_CACHE_FLOATS = 1 << 17
+_CACHE_FLOATS = 1 << 16
 _LN2 = math.log(2.0)
 
 

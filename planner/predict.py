@@ -28,7 +28,7 @@ MAX_NODES = 16384
 _MIN_NODES = 32
 #: Nodes per unit of peak true-anomaly rate for 1 mm/s at K = 100 m/s (measured worst 7e-4 m/s).
 _NODE_SCALE = 40.0
-_CACHE_FLOATS = 1 << 16
+_CACHE_FLOATS = 1 << 15
 
 
 def nodes_for(eccentricity, semi_amplitude, tolerance=1e-3):
@@ -67,7 +67,7 @@ def nodes_for(eccentricity, semi_amplitude, tolerance=1e-3):
 
 
 def _planet_table(period, k, e, omega, n):
-    """Hermite coefficients (n_s, n, 4) of v over one orbit on n uniform mean-anomaly nodes."""
+    """Hermite coefficients (n_s, n + 1, 4) of v over one orbit on n uniform mean-anomaly nodes."""
     m = np.linspace(0.0, 2.0 * math.pi, n + 1)[None, :]
     e_ = e[:, None]
     big_e = eccentric_anomaly(m, e_)
@@ -82,7 +82,9 @@ def _planet_table(period, k, e, omega, n):
     dy = kk * (dnum * den - num * e_ * s) / den**3  # dv/dM = (dv/dE) / (1 - e cos E)
     dy *= 2.0 * math.pi / n  # derivative per node step
     y0, y1, d0, d1 = y[:, :-1], y[:, 1:], dy[:, :-1], dy[:, 1:]
-    return np.stack([y0, d0, 3 * (y1 - y0) - 2 * d0 - d1, 2 * (y0 - y1) + d0 + d1], axis=-1)
+    coef = np.stack([y0, d0, 3 * (y1 - y0) - 2 * d0 - d1, 2 * (y0 - y1) + d0 + d1], axis=-1)
+    # One spare interval (a copy of the first) for a phase that rounds up to a full turn.
+    return np.concatenate([coef, coef[:, :1]], axis=1)
 
 
 @dataclass(frozen=True, eq=False)
@@ -90,7 +92,7 @@ class _Group:
     rows: np.ndarray  # sample indices of this group
     planet: int
     nodes: int  # 0: exact solve
-    coef: np.ndarray | None  # (n_rows * nodes, 4) flattened Hermite coefficients
+    coef: np.ndarray | None  # (n_rows * (nodes + 1), 4) flattened Hermite coefficients
 
 
 @dataclass(frozen=True, eq=False)
@@ -265,10 +267,10 @@ class Predictor:
         t = np.array(bjd, dtype=float, ndmin=1)
         if t.ndim != 1 or not np.all(np.isfinite(t)):
             raise InformationError("bjd must be a finite 1-D array of BJD_TDB times.")
-        out_t = np.empty((t.size, self.n_samples))
-        out_t[:] = self.offset[None, :]
+        out = np.empty((self.n_samples, t.size))
+        out[:] = self.offset[:, None]
         if np.any(self.trend != 0):
-            out_t += (t - self.t_ref)[:, None] * self.trend[None, :]
+            out += self.trend[:, None] * (t - self.t_ref)[None, :]
         for g in self._groups:
             pl = g.planet
             step = max(1, _CACHE_FLOATS // max(t.size, 1))
@@ -282,18 +284,20 @@ class Predictor:
                 else:
                     v = _hermite(t, self.period[rows, pl], self.time_periastron[rows, pl],
                                  g.coef, a, rows.size, g.nodes)
-                out_t[:, rows] += v.T
+                out[rows] += v
+        out_t = np.ascontiguousarray(out.T)
         return out_t.T
 
 
 def _hermite(t, period, tp, coef, first, n_rows, n):
     """Evaluate rows ``first:first+n_rows`` of a group's table at times t -> (n_rows, n_t)."""
-    x = (t[None, :] - tp[:, None]) * (n / period)[:, None]  # node units, any revolution
+    x = (t[None, :] - tp[:, None]) * (1.0 / period)[:, None]  # orbital phase, any revolution
+    x -= np.floor(x)
+    x *= n  # node units within one revolution
     k = np.floor(x)
     x -= k  # position inside the interval, [0, 1)
+    k += ((first + np.arange(n_rows)) * (n + 1))[:, None]  # each row's table has n + 1 intervals
     idx = k.astype(np.int64)
-    idx %= n
-    idx += ((first + np.arange(n_rows)) * n)[:, None]
     c = np.take(coef, idx, axis=0)  # (n_rows, n_t, 4); take is far faster than [idx]
     v = c[..., 3] * x
     v += c[..., 2]
