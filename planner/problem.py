@@ -175,7 +175,7 @@ class Problem:
 
 
 def _thin(values: np.ndarray, keep: int, spacing: int) -> np.ndarray:
-    """Indices of up to ``keep`` largest values, no two closer than ``spacing`` positions."""
+    """Return up to ``keep`` indices of the largest values, no two within ``spacing``."""
     order = np.argsort(-values, kind="stable")
     chosen: list[int] = []
     for k in order:
@@ -411,7 +411,7 @@ def build_problem(
 
 
 def mount_slew(mount) -> SlewModel:
-    """The slew model of a :class:`planner.slew.Mount` (motion only; overhead kept apart)."""
+    """Return the slew model of a :class:`planner.slew.Mount` (motion only, no overhead)."""
     from planner.slew import slew_seconds
 
     def slew(alt1, az1, alt2, az2):

@@ -1,4 +1,4 @@
-"""The solver's surrogate: Gaussian closed forms, submodular shape, error against the exact score."""
+"""The solver's surrogate: Gaussian closed forms, submodular shape, error against exact."""
 
 import itertools
 

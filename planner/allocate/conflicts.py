@@ -96,7 +96,7 @@ def slew_pairs(problem: Problem, gmax: int | None = None) -> np.ndarray:
 
 
 def spacing_cliques(problem: Problem) -> list[np.ndarray]:
-    """Sets of one target's candidates whose starts lie closer than its minimum spacing."""
+    """Return sets of one target's candidates whose starts lie closer than its minimum spacing."""
     out = []
     for s, rule in enumerate(problem.rules):
         if rule.min_spacing_min <= 0:

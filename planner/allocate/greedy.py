@@ -27,7 +27,7 @@ GainModel = Callable[[Problem, np.ndarray, np.ndarray], np.ndarray]
 
 
 def surrogate_gain(surrogate: Surrogate) -> GainModel:
-    """The surrogate's exact marginal gains as a gain model [weighted bit]."""
+    """Return the surrogate's exact marginal gains as a gain model [weighted bit]."""
 
     def gain(problem: Problem, candidates: np.ndarray, chosen: np.ndarray) -> np.ndarray:
         return surrogate.marginal(problem, candidates, chosen) / surrogate.scale
