@@ -6,7 +6,26 @@ import numpy as np
 
 from .entropy import InformationError
 
-__all__ = ["plot_information_curve"]
+__all__ = ["barycentric_shift_days", "plot_information_curve"]
+
+
+def barycentric_shift_days(curve):
+    """Median offset from the curve's grid times to barycentric times [d].
+
+    Parameters
+    ----------
+    curve : planner.curves.InformationCurve
+        A curve; its `prediction_bjd` is mid-exposure (snapped to the grid within half a step).
+
+    Returns
+    -------
+    float
+        Median of ``prediction_bjd - times_jd - exposure / 2`` over observable starts (within a
+        minute of the barycentric correction), 0 if nothing is observable.
+    """
+    off = curve.prediction_bjd - curve.times_jd[None, :] - curve.exposures_s[:, None] / 172800.0
+    finite = np.isfinite(off)
+    return float(np.median(off[finite])) if np.any(finite) else 0.0
 
 
 def plot_information_curve(curve, predictor, dark_windows=(), *, option=None, n_band=600,
@@ -36,8 +55,9 @@ def plot_information_curve(curve, predictor, dark_windows=(), *, option=None, n_
 
     Notes
     -----
-    The velocity band is drawn at the curve's `prediction_bjd` offset from `times_jd`, so the
-    two panels share one time axis. A time is informative where the band is wide compared with
+    The velocity band is drawn at each grid time converted to BJD_TDB by the curve's own
+    offset (:func:`barycentric_shift_days`), so the two panels share one time axis; the bits are
+    drawn at the exposure starts. A time is informative where the band is wide compared with
     the exposure's noise: that is where one velocity best separates the samples.
     """
     try:
@@ -58,10 +78,7 @@ def plot_information_curve(curve, predictor, dark_windows=(), *, option=None, n_
     ax_bits.set_ylabel("expected information [bits]")
     ax_bits.legend(loc="upper right", fontsize="small", title="exposure")
     ax_bits.set_title(f"{curve.target}: one more velocity")
-    # Barycentric offset between the grid's scale and the prediction times (nearly constant).
-    finite = np.isfinite(curve.prediction_bjd[0])
-    shift = float(np.nanmedian(curve.prediction_bjd[0][finite] - times[finite])) if np.any(
-        finite) else 0.0
+    shift = barycentric_shift_days(curve)
     grid = np.linspace(times.min(), times.max(), int(n_band))
     v = predictor.velocities(grid + shift)
     q = np.percentile(v, [2.5, 16, 50, 84, 97.5], axis=0)

@@ -95,3 +95,25 @@ def test_bad_input_is_one_clear_error(change, rng):
     with pytest.raises(InformationError):
         build_curve(star(rng, 50), args["bjd"], args["sigma_meas"], args["observable"],
                     args["exposures_s"], weight=weight)
+
+
+def test_plot_shows_bits_band_and_dark_time(rng):
+    # What an observer needs to see (issue item 7): one line per exposure option, the predicted
+    # velocity band from the samples, and the dark windows shaded in both panels.
+    pytest.importorskip("matplotlib")
+    from planner.plot_curves import barycentric_shift_days, plot_information_curve
+
+    pred = star(rng, 300)
+    t, obs = grid()
+    curve = build_curve(pred, t, np.full((2, t.size), 2.0), obs, [300.0, 900.0], target="A")
+    dark = [(2460010.02, 2460010.25), (2460011.02, 2460011.25)]
+    fig = plot_information_curve(curve, pred, dark)
+    ax_bits, ax_v = fig.axes
+    assert len(ax_bits.lines) == 2 and len(ax_v.collections) >= 2
+    assert sum(p.get_width() > 0.2 for p in ax_bits.patches) == 2  # the two dark windows
+    band = ax_v.collections[0].get_paths()[0].vertices[:, 1]
+    # Here times_jd is the BJD grid itself, so the shift is only the snapping (under a minute).
+    shift = barycentric_shift_days(curve)
+    assert abs(shift) <= 60.0 / 86400.0
+    v = pred.velocities(np.linspace(t.min(), t.max(), 600) + shift)
+    assert band.max() == pytest.approx(np.percentile(v, 97.5, axis=0).max(), rel=1e-6)
