@@ -14,6 +14,8 @@ working :class:`Schedule` greedy and cadence fill.
 
 from __future__ import annotations
 
+import weakref
+
 import numpy as np
 
 from planner.problem import Problem
@@ -21,6 +23,7 @@ from planner.problem import Problem
 __all__ = ["Schedule", "max_gap_min", "slew_pairs", "slot_cliques", "spacing_cliques"]
 
 _CHUNK = 512
+_GAP_CACHE: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
 
 
 def _night_slices(problem: Problem):
@@ -32,14 +35,19 @@ def _night_slices(problem: Problem):
 
 
 def max_gap_min(problem: Problem) -> int:
-    """Largest gap between any two candidates of the same night [min] (exact, all pairs)."""
+    """Largest gap between any two candidates of the same night [min] (exact, all pairs).
+
+    Computed once per problem (problems are immutable) and remembered.
+    """
+    if problem in _GAP_CACHE:
+        return _GAP_CACHE[problem]
     best = problem.min_gap_min
-    if problem.slew is None:
-        return best
-    for idx in _night_slices(problem):
-        for lo in range(0, idx.size, _CHUNK):
-            rows = idx[lo:lo + _CHUNK]
-            best = max(best, int(problem.gap_min(rows[:, None], idx[None, :]).max()))
+    if problem.slew is not None:
+        for idx in _night_slices(problem):
+            for lo in range(0, idx.size, _CHUNK):
+                rows = idx[lo:lo + _CHUNK]
+                best = max(best, int(problem.gap_min(rows[:, None], idx[None, :]).max()))
+    _GAP_CACHE[problem] = best
     return best
 
 
