@@ -44,6 +44,7 @@ __all__ = [
     "load",
     "physical_setup",
     "run_grid",
+    "sampler_settings",
 ]
 
 log = logging.getLogger(__name__)
@@ -107,11 +108,8 @@ def fit_jobs(scenario: Scenario) -> list:
     from inference.batch import FitJob
     from inference.data import read_rv_csv
     from inference.model import ModelSpec
-    from inference.sample import SamplerSettings
 
-    settings = SamplerSettings(n_walkers=scenario.sampler.walkers,
-                               n_samples=scenario.sampler.samples,
-                               max_steps=scenario.sampler.max_steps)
+    settings = sampler_settings(scenario)
     jobs = []
     for i, target in enumerate(scenario.targets):
         data = read_rv_csv(target.rv_file)
@@ -127,6 +125,15 @@ def fit_jobs(scenario: Scenario) -> list:
         jobs.append(FitJob(target=target.id, data=data, model=model, settings=settings,
                            seed=seed))
     return jobs
+
+
+def sampler_settings(scenario: Scenario):
+    """The scenario's sampler section as :class:`inference.sample.SamplerSettings`."""
+    from inference.sample import SamplerSettings
+
+    return SamplerSettings(n_walkers=scenario.sampler.walkers,
+                           n_samples=scenario.sampler.samples,
+                           max_steps=scenario.sampler.max_steps)
 
 
 def _target_seed(seed: int, target_id: str) -> int:

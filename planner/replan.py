@@ -235,7 +235,8 @@ def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
     posteriors, updates = dict(posteriors), {}
     for target_id, data in request.new_data.items():
         target = scenario.target(target_id)
-        update = update_posterior(posteriors[target_id], read_rv_csv(target.rv_file), data, rng)
+        update = update_posterior(posteriors[target_id], read_rv_csv(target.rv_file), data, rng,
+                                  settings=pipeline.sampler_settings(scenario))
         posteriors[target_id], updates[target_id] = update.posterior, update
     done = tuple(dataclasses.replace(v, status="measured") if v.target in request.new_data
                  else v for v in request.done)

@@ -1,0 +1,160 @@
+"""End to end: `nightbits plan` on a tiny invented run, checked by the independent verifier."""
+
+import datetime as dt
+import json
+import re
+import shutil
+from pathlib import Path
+from zoneinfo import ZoneInfo
+
+import numpy as np
+import pytest
+from astropy.time import Time
+
+from planner import pipeline
+from planner.cli import main
+from planner.outputs import parse_utc, read_plan
+from planner.plan import Plan, Visit
+from planner.verify import verify_plan
+
+TINY = Path(__file__).resolve().parent / "data" / "tiny" / "tiny.yaml"
+
+
+@pytest.fixture(scope="session")
+def cache_dir(tmp_path_factory):
+    """One posterior cache for the whole session (the tiny run's three fits happen once)."""
+    return tmp_path_factory.getbasetemp() / "nightbits-cache"
+
+
+@pytest.fixture(scope="session")
+def planned(tmp_path_factory, cache_dir):
+    """Run `nightbits plan` on the tiny scenario once; return (out folder, stdout)."""
+    out = tmp_path_factory.mktemp("plan")
+    import contextlib
+    import io
+
+    buffer = io.StringIO()
+    with contextlib.redirect_stdout(buffer):
+        code = main(["plan", str(TINY), "--cache", str(cache_dir), "--out", str(out), "--force"])
+    assert code == 0
+    return out, buffer.getvalue()
+
+
+@pytest.fixture(scope="session")
+def run(cache_dir):
+    scenario = pipeline.load(TINY)
+    return pipeline.prepare(scenario, pipeline.fit_posteriors(scenario, cache_dir))
+
+
+def _visits_from_file(plan_file, problem):
+    """Rebuild Plan visits from plan.json alone (exposure option from the exposure time)."""
+    visits = []
+    for v in plan_file.visits:
+        option = int(np.flatnonzero(np.isclose(problem.exposure_s, v.exposure_s))[0])
+        visits.append(Visit(target=v.target, night=v.night, start_jd=parse_utc(v.start_utc),
+                            end_jd=parse_utc(v.end_utc), exposure_s=v.exposure_s,
+                            slew_s=v.slew_s, option=option, bits=v.expected_bits,
+                            candidate=-1))
+    return Plan("file", tuple(visits), 0.0, None, None, "FILE", 0.0, None)
+
+
+def test_plan_json_passes_the_independent_check(planned, run):
+    out, _ = planned
+    plan_file = read_plan(out / "plan.json")
+    assert plan_file.strategy == "joint" and plan_file.visits
+    targets = run.scenario.targets
+    check = verify_plan(_visits_from_file(plan_file, run.problem), run.problem, site=run.site,
+                        nights=run.nights, ra_deg=[t.ra_deg for t in targets],
+                        dec_deg=[t.dec_deg for t in targets], constraints=run.constraints,
+                        mount=run.mount)
+    assert check.ok, check.problems
+
+
+def test_plan_json_airmass_matches_astropy(planned):
+    # Reference library: astropy AltAz of the target at the recorded start, the site from the
+    # file alone, airmass by the Kasten and Young (1989) formula (coefficients from memory)
+    # from the geometric altitude, refraction off.
+    import astropy.units as u
+    from astropy.coordinates import AltAz, EarthLocation, SkyCoord
+
+    from planner import offline
+
+    out, _ = planned
+    data = json.loads((out / "plan.json").read_text())
+    site = data["site"]
+    where = EarthLocation.from_geodetic(site["longitude_deg"] * u.deg,
+                                        site["latitude_deg"] * u.deg, site["elevation_m"] * u.m)
+    visit = data["visits"][0]
+    with offline.quiet_astropy():
+        t = Time(visit["start_utc"].rstrip("Z"), scale="utc")
+        star = SkyCoord(visit["ra_deg"] * u.deg, visit["dec_deg"] * u.deg)
+        alt = star.transform_to(AltAz(obstime=t, location=where)).alt.deg
+    h = np.radians(alt)
+    kasten_young = 1.0 / (np.sin(h) + 0.50572 * (np.degrees(h) + 6.07995) ** -1.6364)
+    assert visit["airmass_start"] == pytest.approx(kasten_young, rel=1e-3)
+    assert visit["airmass_start"] <= data["max_airmass"]
+
+
+def test_plan_files_agree_and_totals_add_up(planned):
+    out, _ = planned
+    plan_file = read_plan(out / "plan.json")
+    rows = (out / "plan.csv").read_text().splitlines()
+    assert len(rows) == len(plan_file.visits) + 1
+    by_target = {}
+    for v in plan_file.visits:
+        by_target[v.target] = by_target.get(v.target, 0.0) + v.expected_bits
+    for target, bits in by_target.items():  # chain rule: marginals add up to the joint
+        assert bits == pytest.approx(plan_file.target_bits[target], abs=1e-3)
+    assert plan_file.total_bits == pytest.approx(sum(plan_file.target_bits.values()), abs=1e-3)
+    starts = [parse_utc(v.start_utc) for v in plan_file.visits]
+    assert starts == sorted(starts)
+
+
+def test_printed_schedule_headers_and_totals(planned):
+    out, text = planned
+    plan_file = read_plan(out / "plan.json")
+    zone = ZoneInfo(plan_file.site["timezone"])
+    headers = re.findall(r"^== night (\d) of (\d): evening of \w{3} (\S+) ", text, flags=re.M)
+    assert [h[2] for h in headers] == [n.date for n in plan_file.nights]
+    for night in plan_file.nights:
+        sunset = dt.datetime.fromisoformat(night.sunset_utc.replace("Z", "+00:00"))
+        assert f"sunset {sunset.astimezone(zone):%H:%M} ({sunset:%H:%M} UTC)" in text
+    nightly = [float(x) for x in re.findall(r"^night total: .*; ([\d.]+) bits$", text, re.M)]
+    assert len(nightly) == len(plan_file.nights)
+    assert sum(nightly) == pytest.approx(plan_file.total_bits, abs=2e-3 * len(nightly))
+    assert f"exact joint score {plan_file.total_bits:.2f} bits" in " ".join(text.split())
+    assert "does not replace the observatory's own safety rules" in text
+
+
+def test_joint_is_not_below_greedy_on_the_exact_score(run):
+    greedy = pipeline.make_plan(run, "greedy")
+    joint = pipeline.make_plan(run, "joint")
+    # The joint search starts from the greedy plan and keeps it if it finds nothing better, on
+    # the surrogate; on the exact score allow the Monte Carlo error of the joint estimates.
+    assert joint.plan.objective >= greedy.plan.objective - 1e-9
+    assert joint.plan_file.total_bits >= greedy.plan_file.total_bits - 0.05
+
+
+def test_target_never_observable_is_a_scenario_error(tmp_path, cache_dir, capsys):
+    text = TINY.read_text().replace("dec_deg: -33.582", "dec_deg: 75.0")  # never up at -27 deg
+    for name in ("gamur-7.csv", "lundra-15.csv", "quidra-7.csv"):
+        (tmp_path / "rv").mkdir(exist_ok=True)
+        shutil.copy(TINY.parent / "rv" / name, tmp_path / "rv" / name)
+    (tmp_path / "run.yaml").write_text(text)
+    code = main(["plan", str(tmp_path / "run.yaml"), "--cache", str(cache_dir),
+                 "--out", str(tmp_path / "out")])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert "run.yaml: targets[2]: Target 'Quidra-7' is never observable" in err
+    assert not (tmp_path / "out").exists()  # nothing written
+
+
+def test_demo_path_and_user_cache(monkeypatch, tmp_path):
+    scenario = pipeline.load(None)
+    assert scenario.path.name == "demo.yaml" and len(scenario.targets) == 40
+    monkeypatch.setenv("NIGHTBITS_CACHE", str(tmp_path / "c"))
+    assert pipeline.cache_folder(scenario, None, False) == tmp_path / "c"
+    monkeypatch.delenv("NIGHTBITS_CACHE")
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "x"))
+    assert pipeline.cache_folder(scenario, None, False) == tmp_path / "x" / "nightbits"
+    assert pipeline.cache_folder(scenario, None, True) is None

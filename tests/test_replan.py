@@ -1,0 +1,163 @@
+"""Re-planning: lost nights, executed visits and new velocities."""
+
+import contextlib
+import io
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from inference.keplerian import radial_velocity
+from planner import pipeline, replan
+from planner.cli import main
+from planner.errors import PlanError
+from planner.outputs import parse_utc, read_plan
+
+TINY = Path(__file__).resolve().parent / "data" / "tiny" / "tiny.yaml"
+TRUTH = Path(__file__).resolve().parents[1] / "scenarios" / "demo" / "truth" / "gamur-7.json"
+
+
+@pytest.fixture(scope="session")
+def cache_dir(tmp_path_factory):
+    return tmp_path_factory.getbasetemp() / "nightbits-cache"
+
+
+@pytest.fixture(scope="session")
+def base(tmp_path_factory, cache_dir):
+    """The tiny run planned once: (scenario, posteriors, plan file, plan.json path)."""
+    scenario = pipeline.load(TINY)
+    posteriors = pipeline.fit_posteriors(scenario, cache_dir)
+    result = pipeline.make_plan(pipeline.prepare(scenario, posteriors))
+    out = tmp_path_factory.mktemp("base")
+    from planner.outputs import write_plan
+
+    json_path, _ = write_plan(out, result.plan_file)
+    return scenario, posteriors, result.plan_file, json_path
+
+
+@pytest.fixture(scope="session")
+def after_night_one(base):
+    """The tiny run re-planned once night 1 is over (no new velocities)."""
+    scenario, posteriors, old, _ = base
+    request = replan.parse_request(old, scenario, now=old.nights[1].sunset_utc)
+    return request, replan.replan(scenario, posteriors, old, request)
+
+
+def _overlaps(visit, a, b):
+    return parse_utc(visit.start_utc) < b and parse_utc(visit.end_utc) > a
+
+
+def test_losing_night_two(base, tmp_path, cache_dir):
+    scenario, posteriors, old, json_path = base
+    lost_night = old.nights[1]
+    out = tmp_path / "replan"
+    buffer = io.StringIO()
+    with contextlib.redirect_stdout(buffer):
+        code = main(["replan", str(TINY), "--plan", str(json_path), "--lost", lost_night.date,
+                     "--cache", str(cache_dir), "--out", str(out)])
+    assert code == 0
+    new = read_plan(out / "plan.json")
+    a, b = parse_utc(lost_night.sunset_utc), parse_utc(lost_night.sunrise_utc)
+    assert new.visits and not any(_overlaps(v, a, b) for v in new.visits)
+    assert new.nights[1].lost  # the loss is recorded for the next re-plan
+    # The plan restricted to night 1 is still feasible, so the new plan is worth at least as
+    # much as night 1 was (its marginals come first in time, so they sum to its joint value).
+    night_one = sum(v.expected_bits for v in old.visits if v.night == old.nights[0].date)
+    assert new.total_bits >= night_one - 0.05
+    assert new.total_bits <= old.total_bits + 0.05  # less telescope time cannot be worth more
+    text = buffer.getvalue()
+    assert f"lost: the night of {lost_night.date}." in text
+    assert "lost " in text  # the schedule shows the lost hours
+
+
+def test_replanned_plan_is_verified_against_the_lost_time(base):
+    scenario, posteriors, old, _ = base
+    request = replan.parse_request(old, scenario, lost=[old.nights[1].date])
+    result = replan.replan(scenario, posteriors, old, request)
+    check = pipeline.verify(result.run, result.plan)
+    assert check.ok, check.problems
+    for a, b in request.lost_jd:
+        assert not any(v.start_jd < b and v.end_jd > a for v in result.plan.visits)
+
+
+def test_lost_interval_and_bad_lost_values(base):
+    scenario, _, old, _ = base
+    night = old.nights[0]
+    start, end = night.dark_start_utc, night.dark_end_utc
+    request = replan.parse_request(old, scenario, lost=[f"{start}/{end}"])
+    assert request.lost_jd[0] == (parse_utc(start), parse_utc(end))
+    with pytest.raises(PlanError, match="not a night of this plan"):
+        replan.parse_request(old, scenario, lost=["2027-11-30"])
+    with pytest.raises(PlanError, match="ends before it starts"):
+        replan.parse_request(old, scenario, lost=[f"{end}/{start}"])
+    with pytest.raises(PlanError, match="nothing to re-plan"):
+        replan.parse_request(old, scenario)
+
+
+def test_now_keeps_the_past_as_executed(base, after_night_one):
+    old = base[2]
+    now = old.nights[1].sunset_utc  # night 1 is over
+    request, result = after_night_one
+    night_one = [v for v in old.visits if v.night == old.nights[0].date]
+    assert [(v.target, v.start_utc) for v in request.done] == [
+        (v.target, v.start_utc) for v in night_one]
+    kept = [v for v in result.plan_file.visits if v.status == "done"]
+    assert len(kept) == len(night_one)
+    assert all(v.start_jd >= parse_utc(now) for v in result.plan.visits)
+
+
+def _new_velocities(old, path):
+    """Three velocities of Gamur-7 on night 1, from its invented true orbit with seeded noise."""
+    truth = json.loads(TRUTH.read_text())
+    planet = truth["planets"][0]
+    rng = np.random.default_rng(7)
+    night = old.nights[0]
+    # Mid-night times; UTC JD stands in for BJD_TDB here (the difference, under 10 minutes,
+    # does not matter for a test of the workflow).
+    t = np.linspace(parse_utc(night.dark_start_utc), parse_utc(night.dark_end_utc), 5)[1:4]
+    v = truth["offset_ms"] + radial_velocity(t, planet["period_d"], planet["semi_amplitude_ms"],
+                                             planet["eccentricity"], planet["omega_rad"],
+                                             planet["time_periastron_bjd"])
+    v = v + rng.normal(0.0, np.hypot(0.8, truth["jitter_ms"]), t.size)
+    lines = ["target,time,rv,rv_err,instrument"]
+    lines += [f"Gamur-7,{a:.6f},{b:.3f},0.80,ridge-echelle" for a, b in zip(t, v, strict=True)]
+    path.write_text("\n".join(lines) + "\n")
+    return t
+
+
+def test_new_velocities_change_the_posterior_and_later_visits(base, after_night_one, tmp_path):
+    scenario, posteriors, old, _ = base
+    rvs = tmp_path / "new.csv"
+    _new_velocities(old, rvs)
+    now = old.nights[1].sunset_utc
+    request = replan.parse_request(old, scenario, rv_files=[rvs], now=now)
+    assert len(request.new_data["Gamur-7"]) == 3
+    result = replan.replan(scenario, posteriors, old, request)
+    before = posteriors["Gamur-7"].param("period_1")
+    after = result.updates["Gamur-7"].posterior.param("period_1")
+    assert not np.array_equal(np.sort(before), np.sort(after))
+    assert result.updates["Gamur-7"].ess_fraction < 1.0  # the weights are no longer equal
+    # Its later visits are valued under the new posterior: the one-visit curve changed.
+    plain = after_night_one[1]
+    s = [t.id for t in scenario.targets].index("Gamur-7")
+    assert np.max(np.abs(result.run.bits[:, s] - plain.run.bits[:, s])) > 0.05
+    later = [(v.start_utc, v.expected_bits) for v in result.plan_file.visits
+             if v.target == "Gamur-7" and v.status == "planned"]
+    plain_later = [(v.start_utc, v.expected_bits) for v in plain.plan_file.visits
+                   if v.target == "Gamur-7" and v.status == "planned"]
+    assert later != plain_later
+    assert "new velocities for Gamur-7: 3 folded in" in result.changes
+
+
+def test_done_file_rows_must_match_the_plan(base, tmp_path):
+    scenario, _, old, _ = base
+    visit = old.visits[0]
+    good = tmp_path / "done.csv"
+    good.write_text(f"target,start_utc\n{visit.target},{visit.start_utc}\n")
+    request = replan.parse_request(old, scenario, done_file=good)
+    assert [v.start_utc for v in request.done] == [visit.start_utc]
+    bad = tmp_path / "bad.csv"
+    bad.write_text(f"target,start_utc\n{visit.target},2027-10-04T12:00:00Z\n")
+    with pytest.raises(PlanError, match=r"bad.csv line 2: the plan has no visit"):
+        replan.parse_request(old, scenario, done_file=bad)
