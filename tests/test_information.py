@@ -44,8 +44,8 @@ def test_one_visit_linear_gaussian_closed_form(tau, sigma):
 def test_joint_linear_gaussian_closed_form(rng):
     # Closed form: I(S) = 0.5 log2 det(I + Sigma / sigma^2) for a linear-Gaussian model
     # (Lindley 1956; textbook Bayesian design). Held to 4 standard errors plus 0.01 bit (the
-    # residual lumpiness of a 20,000-sample posterior).
-    theta = whitened_normal(rng, 20000, 2)
+    # residual lumpiness of a 10,000-sample posterior).
+    theta = whitened_normal(rng, 10000, 2)
     t = np.array([0.0, 0.13, 0.4, 0.41, 0.77, 0.9])
     design = 4.0 * np.column_stack([np.cos(2 * np.pi * t), 0.6 * np.sin(2 * np.pi * t)])
     v = theta @ design.T
