@@ -338,7 +338,10 @@ def log2_volume(columns, weights=None):
     float
         ``sum_j log2 std_j`` [log2 of d * m/s]; ``-inf`` if a column is constant.
     """
-    x = np.atleast_2d(np.asarray(columns, dtype=float))
+    x = np.asarray(columns, dtype=float)
+    if x.ndim == 2 and x.shape[1] == 0:
+        return 0.0  # the empty product
+    x = np.atleast_2d(x)
     mean = np.average(x, axis=0, weights=weights)
     var = np.average((x - mean) ** 2, axis=0, weights=weights)
     with np.errstate(divide="ignore"):

@@ -49,10 +49,13 @@ def volume_columns(posterior):
     Returns
     -------
     ndarray, shape (n_samples, 3 * n_planets)
-        ``period_k`` [d], ``semi_amplitude_k`` [m/s], ``eccentricity_k`` for k = 1..n_planets.
+        ``period_k`` [d], ``semi_amplitude_k`` [m/s], ``eccentricity_k`` for k = 1..n_planets
+        (no columns without planets: the log2 volume is then 0 and nothing shrinks).
     """
     names = [f"{p}_{k}" for k in range(1, posterior.model.n_planets + 1)
              for p in ("period", "semi_amplitude", "eccentricity")]
+    if not names:  # a star modelled without planets has no orbit volume
+        return np.zeros((posterior.n_samples, 0))
     return np.column_stack([posterior.param(n) for n in names])
 
 
@@ -123,7 +126,7 @@ def measure_reweighted(old, loglike_old, n_new):
 
 #: The bridge estimate is used while its standard error stays below this [bits]; past it the
 #: two sample sets barely overlap and the kNN estimator takes over.
-MAX_BRIDGE_STDERR_BITS = 0.5
+MAX_BRIDGE_STDERR_BITS = 0.2
 
 
 def _mean_anomalies(posterior):
