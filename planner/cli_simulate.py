@@ -171,10 +171,6 @@ def simulate_document(scenario, experiment, weather, refit):
     }
 
 
-def _fmt(x, spec=".1f"):
-    return "-" if x is None else format(x, spec)
-
-
 def render_tables(experiment):
     """Return the printed comparison: strategies, cost to reach, and per star."""
     cadence = next((s for s in experiment.summaries if s.strategy == "cadence"), None)
@@ -188,11 +184,12 @@ def render_tables(experiment):
         reach = "-" if s.reach_exposures is None else (
             f"{s.reach_exposures:.1f} ({100 * s.reach_fraction:.0f}%)")
         saving = _saving(s, cadence)
+        saving_text = "-" if saving is None else f"{saving:+.0f}%"
         lines.append(
             f"{s.strategy:<9} {s.expected_bits:>8.2f} "
             f"{s.realised_bits_mean:>7.2f} +- {s.realised_bits_std:<4.2f} "
             f"{s.shrink_bits_mean:>7.2f} +- {s.shrink_bits_std:<4.2f} {s.exposures:>9.1f} "
-            f"{s.hours:>6.1f} {reach:>17} {_fmt(saving, '+.0f') + ('%' if saving else ''):>7}")
+            f"{s.hours:>6.1f} {reach:>17} {saving_text:>7}")
     lines += ["", "to reach cadence: exposures, in time order, until the strategy's realised "
               "bits reach cadence's whole-run realised bits in the same seed (mean over the "
               "seeds that reach it; their share in brackets); saving: fewer exposures than "

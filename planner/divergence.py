@@ -30,7 +30,6 @@ import math
 
 import numpy as np
 from scipy.spatial import cKDTree
-from scipy.special import logsumexp
 
 __all__ = [
     "LN2",
@@ -47,6 +46,15 @@ __all__ = [
 
 #: Natural log of 2: nats per bit.
 LN2 = math.log(2.0)
+
+
+def _logsumexp(a):
+    """Return ``log(sum(exp(a)))`` of a 1-D array, stably (plain numpy; -inf entries allowed)."""
+    a = np.asarray(a, dtype=float)
+    top = float(np.max(a))
+    if not math.isfinite(top):
+        return top
+    return top + math.log(float(np.sum(np.exp(a - top))))
 
 
 def normalised_log_weights(log_weights):
@@ -72,7 +80,7 @@ def normalised_log_weights(log_weights):
             "log_weights must be finite or -inf with at least one finite value; check the "
             "likelihood of the new data for NaN."
         )
-    return lw - logsumexp(lw)
+    return lw - _logsumexp(lw)
 
 
 def reweight_kl_bits(log_weights):
@@ -116,7 +124,7 @@ def effective_sample_size(log_weights):
         Between 1 and ``n_samples``.
     """
     lwn = normalised_log_weights(log_weights)
-    return float(1.0 / np.exp(logsumexp(2.0 * lwn)))
+    return float(1.0 / np.exp(_logsumexp(2.0 * lwn)))
 
 
 def bridge_log_evidence(loglike_old, loglike_new, max_iter=200, tol=1e-10):
@@ -153,11 +161,11 @@ def bridge_log_evidence(loglike_old, loglike_new, max_iter=200, tol=1e-10):
     n1, n2 = lo.size, ln.size
     ls1, ls2 = math.log(n1 / (n1 + n2)), math.log(n2 / (n1 + n2))
     # Start from the importance estimate; the scheme converges from any start.
-    log_z = float(logsumexp(lo) - math.log(n1))
+    log_z = float(_logsumexp(lo) - math.log(n1))
     for _ in range(max_iter):
         # Z = mean_old[L / (s1 Z + s2 L)] / mean_new[1 / (s1 Z + s2 L)], in logs.
-        num = logsumexp(lo - np.logaddexp(ls1 + log_z, ls2 + lo)) - math.log(n1)
-        den = logsumexp(-np.logaddexp(ls1 + log_z, ls2 + ln)) - math.log(n2)
+        num = _logsumexp(lo - np.logaddexp(ls1 + log_z, ls2 + lo)) - math.log(n1)
+        den = _logsumexp(-np.logaddexp(ls1 + log_z, ls2 + ln)) - math.log(n2)
         new = float(num - den)
         converged = abs(new - log_z) < tol
         log_z = new

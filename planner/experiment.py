@@ -147,7 +147,7 @@ class StrategyRun:
 EXPECTED_OUTCOMES = 2048
 
 
-def expected_bits(setup, conditions, seed=0):
+def expected_bits(setup, conditions, seed=0, return_stderr=False):
     """Compute the expected information of visits under the posteriors before the run.
 
     Parameters
@@ -158,23 +158,29 @@ def expected_bits(setup, conditions, seed=0):
         The visits with their mid-exposure times and noise.
     seed : int
         Seed of the simulated outcomes (fixed, so one set of visits has one value).
+    return_stderr : bool
+        Also return the Monte Carlo standard error.
 
     Returns
     -------
-    float
+    bits : float
         Weighted sum over targets of the joint information of each target's visits
         (:func:`planner.information.joint_bits`, not a sum of single visits) [bits].
+    stderr : float
+        Only with `return_stderr`: its standard error [bits].
     """
     rng = np.random.default_rng(seed)
-    total = 0.0
+    total, var = 0.0, 0.0
     for target in dict.fromkeys(v.target for v in conditions.visits):
         rows = [k for k, v in enumerate(conditions.visits) if v.target == target]
         post = setup.posteriors[target]
         pred = post.predict(conditions.bjd_tdb[rows], setup.instrument_name)
         jit = post.jitter(setup.instrument_name)
         sigma = np.sqrt(conditions.sigma_ms[rows][None, :] ** 2 + jit[:, None] ** 2)
-        total += setup.weight(target) * joint_bits(pred, sigma, rng, EXPECTED_OUTCOMES).bits
-    return float(total)
+        est = joint_bits(pred, sigma, rng, EXPECTED_OUTCOMES)
+        total += setup.weight(target) * est.bits
+        var += (setup.weight(target) * est.stderr) ** 2
+    return (float(total), float(np.sqrt(var))) if return_stderr else float(total)
 
 
 def _hours(visits):

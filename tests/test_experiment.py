@@ -301,3 +301,28 @@ def test_simulate_command_bad_input_writes_nothing(tmp_path, capsys, invented_fi
     assert main(["simulate", str(TINY), "--truth", str(tmp_path), "--out", str(out)]) == 2
     assert "no true-orbit files" in capsys.readouterr().err
     assert not out.exists()
+
+
+def test_calibration_through_the_simulator(world):
+    # Lindley (1956): with truths drawn from the posteriors, the mean realised KL of a set of
+    # visits equals its expected information. Here end to end: real mid-exposure conditions
+    # from the sky, the simulator, the experiment's expected_bits and measure_execution.
+    # Tolerance 4 combined standard errors (false-failure budget 6e-5).
+    from planner.experiment import expected_bits
+    from planner.truth import truth_from_sample
+
+    setup = _setup(world, [])
+    visits = _night_visits(world, 0, 2) + _night_visits(world, 1, 1)
+    cond = visit_conditions(visits, world["stars"], world["site"], world["sky"],
+                            world["instrument"])
+    expected, expected_se = expected_bits(setup, cond, return_stderr=True)
+    rng = np.random.default_rng(17)
+    totals = []
+    for _ in range(300):
+        truths = {t: truth_from_sample(p, int(rng.integers(p.n_samples)))
+                  for t, p in world["posteriors"].items()}
+        run = execute(cond, truths, INSTRUMENT, rng)
+        totals.append(sum(s.bits for s in measure_execution(world["posteriors"], run, rng)))
+    se = np.std(totals, ddof=1) / np.sqrt(len(totals))
+    assert expected > 1.0
+    assert abs(np.mean(totals) - expected) < 4.0 * np.hypot(se, expected_se)
