@@ -201,8 +201,8 @@ sky:
   step_s: 300
 sampler:
   walkers: 32
-  samples: 400
-  max_steps: 6000
+  samples: 200
+  max_steps: 2500
   seed: 7
   min_period_d: 1.0
   max_period_d: 3000
