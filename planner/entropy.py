@@ -96,67 +96,81 @@ def _nodes(v_lo, v_hi, floor):
     return (v_lo + floor) * ratio ** (np.arange(n) / (n - 1)) - floor
 
 
-def _chunk_entropy(x, comp, w, extra, h, size, nodes, floor):
+def _node_split(comp, nodes, floor):
+    """Lower variance node and its share for each component variance (same shape as `comp`)."""
+    n_nodes = nodes.size
+    s = np.log((comp + floor) / (nodes[0] + floor)) / math.log(
+        (nodes[1] + floor) / (nodes[0] + floor))
+    k = np.clip(np.floor(s + 1e-9).astype(np.int64), 0, n_nodes - 2)
+    v0, v1 = nodes[k], nodes[k + 1]
+    return k, np.clip((v1 - comp) / (v1 - v0), 0.0, 1.0)  # share of the lower node
+
+
+def _chunk_entropy(x, comp, w, extra, h, lo, size, nodes, split):
     """Entropies [nats] of the columns of one chunk, all on grids of `size` bins.
 
     Time-major layout: x : (n_c, n_s) centres; comp : (1, n_s) or (n_c, n_s) component
     variances, or None (zero); w : (1, n_s) or (n_c, n_s) normalised weights, or None (equal);
-    extra : (n_q, n_c) with NaN where not wanted; h : (n_c,) bin widths; nodes : variance
-    nodes, or None (one node).
+    extra : (n_q, n_c) with NaN where not wanted; h, lo : (n_c,) bin widths and the columns'
+    centre of range; nodes : variance nodes, or None (one node); split : (k, lam) from
+    `_node_split` for these components when there are nodes.
     """
     n_c, n_s = x.shape
-    lo = 0.5 * (x.min(axis=1) + x.max(axis=1)) - 0.5 * size * h
     n_nodes = 1 if nodes is None else nodes.size
     # Grid position; each column's (and each variance node's) block offset is added before the
     # floor as an exact integer-valued float, so one floor gives the flat histogram index.
     inv_h = 1.0 / h
     pos = x * inv_h[:, None]
-    pos += (np.arange(n_c) * (n_nodes * size) - lo * inv_h)[:, None]
+    pos += (np.arange(n_c) * (n_nodes * size) + 0.5 * size - lo * inv_h)[:, None]
     if nodes is not None:
-        s = np.log((comp + floor) / (nodes[0] + floor)) / math.log(
-            (nodes[1] + floor) / (nodes[0] + floor))
-        k = np.clip(np.floor(s + 1e-9).astype(np.int64), 0, n_nodes - 2)
-        v0, v1 = nodes[k], nodes[k + 1]
-        lam = np.clip((v1 - comp) / (v1 - v0), 0.0, 1.0)  # share of the lower node
-        pos += k * size
+        pos += split[0] * size
     cell = np.floor(pos)
     u = pos
     u -= cell  # fractional position in [0, 1)
     idx = cell.astype(np.int64).ravel()
+    total = n_c * n_nodes * size
+    # Weight q_i per component (equal weights: 1/n_s, applied at the end). With cloud-in-cell
+    # a component puts q (1 - u) on its cell and q u on the next: hist = A - B + shift(B), with
+    # A = sum of q per cell and B = sum of q u per cell.
+    qu = u if w is None else w * u
     if w is None:
-        wb = u * (1.0 / n_s)
-        wa = (1.0 / n_s) - wb
+        a_tot = np.bincount(idx, minlength=total).astype(float)
     else:
-        wb = w * u
-        wa = w - wb
-    u *= wa
-    cic = np.sum(u, axis=1) * (h * h)  # variance cloud-in-cell added: sum_i w_i u_i (1 - u_i)
+        a_tot = np.bincount(idx, np.broadcast_to(w, x.shape).ravel(), total)
+    b_tot = np.bincount(idx, qu.ravel(), total)
+    # Variance cloud-in-cell adds, per column: sum_i q_i u_i (1 - u_i).
+    cic = (qu.sum(axis=1) - np.einsum("ij,ij->i", qu, u)) * (h * h)
     if nodes is None:
-        cv = 0.0 if comp is None else (
-            np.mean(comp, axis=1) if w is None else np.sum(w * comp, axis=1))
+        hist = a_tot - b_tot
+        hist[1:] += b_tot[:-1]
+    else:
+        lam = np.broadcast_to(split[1], x.shape)
+        ql = lam if w is None else w * lam
+        a_lo = np.bincount(idx, np.ascontiguousarray(ql).ravel(), total)
+        b_lo = np.bincount(idx, (ql * u).ravel(), total)
+        a_tot -= a_lo
+        b_tot -= b_lo  # now the upper node's shares
+        hist = a_lo - b_lo
+        hist[1:] += b_lo[:-1]
+        up = a_tot - b_tot
+        up[1:] += b_tot[:-1]
+        hist[size:] += up[:-size]
+    if w is None:
+        hist *= 1.0 / n_s
+        cic /= n_s
+    if nodes is None:
+        cv = 0.0
+        if comp is not None:
+            cv = np.mean(comp, axis=1) if w is None else np.sum(w * comp, axis=1)
         node_var = np.broadcast_to(cv - cic, (1, n_c))
     else:
         node_var = nodes[:, None] - cic[None, :]
-    total = n_c * n_nodes * size
-    if nodes is None:
-        hist = np.bincount(idx, wa.ravel(), total)
-        hist[1:] += np.bincount(idx, wb.ravel(), total)[:-1]
-    else:
-        wal = wa * lam
-        wbl = wb * lam
-        hist = np.bincount(idx, wal.ravel(), total)
-        hist[1:] += np.bincount(idx, wbl.ravel(), total)[:-1]
-        wa -= wal
-        wb -= wbl
-        up = np.bincount(idx, wa.ravel(), total)
-        up[1:] += np.bincount(idx, wb.ravel(), total)[:-1]
-        hist[size:] += up[:-size]
     spec = np.fft.rfft(hist.reshape(n_c, n_nodes, size), axis=-1)
     k2 = (np.arange(size // 2 + 1) / size) ** 2
     scale = (-2.0 * math.pi**2) * k2[None, :] / (h * h)[:, None]  # (n_c, n_f)
     if n_nodes > 1:
-        expo = np.maximum(scale[:, None, :] * node_var.T[:, :, None], -700.0)
-        spec = np.einsum("cnf,cnf->cf", spec, np.exp(expo))
+        expo = np.maximum(scale[:, None, :] * node_var.T[:, :, None], -80.0)
+        spec = np.einsum("cnf,cnf->cf", spec, np.exp(expo.astype(np.float32)))
         base = np.zeros(n_c)
     else:
         spec = spec[:, 0, :]
@@ -307,6 +321,7 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
     floor = float(e_min[wanted].min())
     nodes = None if comp is None else _nodes(0.0, float(comp.max()), floor)
     n_nodes = 1 if nodes is None else nodes.size
+    mid = 0.5 * (x.max(axis=0) + x.min(axis=0))
     xt = np.ascontiguousarray(x.T)  # time-major: each column's centres contiguous
     ct = None if comp is None else np.ascontiguousarray(comp.T)
     wt = None if w is None else np.ascontiguousarray(w.T)
@@ -322,6 +337,9 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
         elif wt is not None:
             wt = np.array(np.broadcast_to(wt, xt.shape))
             wt[wide] = np.take_along_axis(wt[wide], ot, axis=1)
+    split = None
+    if nodes is not None and ct.shape[0] == 1:
+        split = _node_split(ct, nodes, floor)  # the same for every column
     per_chunk = max(1, min(_CACHE_FLOATS // n_s, _CHUNK_FLOATS // (n_nodes * 4096)))
     for a in range(0, n_c, per_chunk):
         c = slice(a, min(a + per_chunk, n_c))
@@ -330,5 +348,8 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
         size = int(_SIZES[np.searchsorted(_SIZES, n_bins[c][wanted[c]].max())])
         cc = None if ct is None else (ct[c] if ct.shape[0] > 1 else ct)
         wc = None if wt is None else (wt[c] if wt.shape[0] > 1 else wt)
-        out[:, c] = _chunk_entropy(xt[c], cc, wc, extra[:, c], h[c], size, nodes, floor)
+        sp = None
+        if nodes is not None:
+            sp = split if cc.shape[0] == 1 else _node_split(cc, nodes, floor)
+        out[:, c] = _chunk_entropy(xt[c], cc, wc, extra[:, c], h[c], mid[c], size, nodes, sp)
     return out / _LN2
