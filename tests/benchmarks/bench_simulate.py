@@ -51,13 +51,16 @@ def main():
           f"{limit if limit is not None else scenario.solver.time_limit_s} s per joint plan")
 
     fixed, runs, wall = {}, [], {s: [] for s in STRATEGIES}
-    for seed in range(n_seeds):
-        for name in STRATEGIES:
+    # Strategy by strategy (adaptive, the slow one, last), so partial output is already useful.
+    for name in STRATEGIES:
+        for seed in range(n_seeds):
             t0 = time.perf_counter()
             runs.append(run_strategy(setup, name, seed, fixed_plans=fixed))
             wall[name].append(time.perf_counter() - t0)
-        print(f"seed {seed}: " + ", ".join(f"{r.strategy} {r.realised_bits:.2f}"
-                                            for r in runs[-len(STRATEGIES):]), flush=True)
+            r = runs[-1]
+            print(f"{name:<9} seed {seed}: expected {r.expected_bits:.2f}, realised "
+                  f"{r.realised_bits:.2f}, shrink {r.shrink_bits:.2f}, {r.exposures} exposures, "
+                  f"{wall[name][-1]:.1f} s", flush=True)
 
     exp = Experiment(seeds=tuple(range(n_seeds)), runs=tuple(runs),
                      summaries=summarise(runs, STRATEGIES, tuple(posteriors)))
