@@ -75,6 +75,8 @@ class Setup:
         ``first_night ..`` from updated posteriors (the adaptive strategy).
     fit_settings : object, optional
         Sampler settings for refits (None: the sampler's defaults).
+    prepared : planner.pipeline.PreparedRun, optional
+        The pipeline's prepared run, when built by :func:`build_setup`.
     """
 
     posteriors: Mapping
@@ -90,6 +92,7 @@ class Setup:
     plan_fixed: Callable
     plan_rest: Callable
     fit_settings: object = None
+    prepared: object = None
 
     def weight(self, target) -> float:
         """Weight of a target's bits in totals (the plan score's weight)."""
@@ -389,4 +392,4 @@ def build_setup(scenario, posteriors, truths, time_limit_s=None):
                  instrument=run.instrument, instrument_name=scenario.instrument.name,
                  night_dates=tuple(n.date for n in aligned),
                  windows_jd=np.array([(n.dark_start_jd, n.dark_end_jd) for n in aligned]),
-                 plan_fixed=plan_fixed, plan_rest=plan_rest)
+                 plan_fixed=plan_fixed, plan_rest=plan_rest, prepared=run)
