@@ -128,7 +128,7 @@ def fit_jobs(scenario: Scenario) -> list:
 
 
 def sampler_settings(scenario: Scenario):
-    """The scenario's sampler section as :class:`inference.sample.SamplerSettings`."""
+    """Return the scenario's sampler section as :class:`inference.sample.SamplerSettings`."""
     from inference.sample import SamplerSettings
 
     return SamplerSettings(n_walkers=scenario.sampler.walkers,
@@ -592,8 +592,10 @@ def exact_marginals(run: PreparedRun, plan, n_outcomes: int = 2048):
 
     For each target, the visits ``v_1 .. v_k`` in time order get
     ``I(v_1..v_j) - I(v_1..v_{j-1})``, so they add up to the joint information of all its
-    visits, ``I(v_1..v_k)`` [bits]; executed visits without velocities come first and count
-    as already planned. Values are multiplied by the target's weight.
+    visits, ``I(v_1..v_k)`` [bits], which is taken from the one exact score
+    (:func:`planner.score.score_plan`). Where executed visits without velocities precede them,
+    the chain starts after those visits, so the new visits add up to ``I(new | executed)``.
+    Values are multiplied by the target's weight.
 
     Returns
     -------
@@ -604,14 +606,17 @@ def exact_marginals(run: PreparedRun, plan, n_outcomes: int = 2048):
     """
     from planner.information import joint_bits
     from planner.outputs import parse_utc
+    from planner.score import score_plan
 
     problem, scenario = run.problem, run.scenario
     rng = np.random.default_rng(scenario.solver.seed)
+    score = score_plan(plan, problem, run.predictors, rng=rng, n_outcomes=n_outcomes)
     marginals = np.zeros(len(plan.visits))
     target_bits = {}
     for s, target in enumerate(scenario.targets):
         mine = [k for k, v in enumerate(plan.visits) if v.target == target.id]
-        if not mine:
+        if not mine or target.weight == 0:
+            target_bits[target.id] = 0.0
             continue
         predictor = run.predictors[s]
         cand = np.array([plan.visits[k].candidate for k in mine])
@@ -622,9 +627,11 @@ def exact_marginals(run: PreparedRun, plan, n_outcomes: int = 2048):
             p0, s0 = _visit_predictions(scenario, run.sky, run.instrument, predictor, s,
                                         pending, parse_utc)
             pred, sig = np.hstack([p0, pred]), np.hstack([s0, sig])
-        first = len(pending)
+        first, last = len(pending), pred.shape[1]
         prefix = [joint_bits(pred[:, :j], sig[:, :j], rng, n_outcomes).bits
-                  for j in range(first, pred.shape[1] + 1)]
+                  for j in range(first, last + (1 if pending else 0))]
+        if not pending:
+            prefix.append(score.per_target_bits[s] / target.weight)
         gains = np.diff(prefix) * target.weight
         marginals[mine] = gains
         target_bits[target.id] = float(gains.sum())
@@ -685,36 +692,43 @@ def build_plan_file(run: PreparedRun, plan, marginals, target_bits, total_bits, 
 
 
 @dataclass(frozen=True)
-class Comparison:
-    """The three strategies on one exact score.
+class ComparisonReport:
+    """The three strategies on one exact score, with the printed table.
 
     Attributes
     ----------
-    results : tuple of PlanResult
-        Cadence, greedy and joint, in that order.
+    comparison : planner.compare.Comparison
+        Rows per strategy (cadence, greedy, joint), per-target bits and the plans.
     text : str
         The printed table.
     """
 
-    results: tuple
+    comparison: object
     text: str
 
 
-def compare(run: PreparedRun, time_limit_s: float | None = None) -> Comparison:
-    """Plan with cadence, greedy and joint and compare them on the exact joint score."""
-    results = tuple(make_plan(run, name, time_limit_s) for name in ("cadence", "greedy", "joint"))
-    lines = [f"{'strategy':<9} {'exposures':>9} {'exact bits':>10} {'surrogate':>9} "
-             f"{'bound':>8} {'runtime s':>9}  verified"]
-    for r in results:
-        f = r.plan_file
-        bound = "-" if f.bound_bits is None else f"{f.bound_bits:.2f}"
-        lines.append(f"{f.strategy:<9} {len(f.visits):>9} {f.total_bits:>10.2f} "
-                     f"{f.objective_bits:>9.2f} {bound:>8} {r.plan.runtime_s:>9.1f}  "
-                     f"{'yes' if r.verification.ok else 'no'}")
-    cadence, greedy, joint = (r.plan_file.total_bits for r in results)
-    for name, base in (("greedy", greedy), ("cadence", cadence)):
-        gain = "n/a" if base <= 0 else f"{100.0 * (joint - base) / base:+.1f}%"
-        lines.append(f"joint against {name}: {joint - base:+.2f} bits ({gain})")
-    lines.append("exact bits: joint expected information per target (not a sum of single "
-                 "visits), weighted and summed; surrogate and bound: the solver's own objective.")
-    return Comparison(results=results, text="\n".join(lines) + "\n")
+def compare(run: PreparedRun, time_limit_s: float | None = None) -> ComparisonReport:
+    """Plan with cadence, greedy and joint, verify each and score them on the exact score."""
+    from planner.compare import compare_strategies
+
+    solver = run.scenario.solver
+    limit = solver.time_limit_s if time_limit_s is None else float(time_limit_s)
+    comparison = compare_strategies(
+        run.problem, run.surrogate, run.predictors, rng=np.random.default_rng(solver.seed),
+        time_limit_s=limit, seed=solver.seed, workers=solver.workers,
+        verify=lambda plan: verify(run, plan))
+    lines = [f"{'strategy':<9} {'exposures':>9} {'stars':>5} {'exact bits':>15} "
+             f"{'bits/dark h':>11} {'slew h':>6} {'idle h':>6} {'runtime s':>9}  verified"]
+    for r in comparison.rows:
+        lines.append(f"{r.strategy:<9} {r.visits:>9} {r.stars_observed:>5} "
+                     f"{r.total_bits:>8.2f} +-{r.stderr:>4.2f} {r.bits_per_dark_hour:>11.3f} "
+                     f"{r.slew_s / 3600:>6.2f} {r.idle_s / 3600:>6.2f} {r.runtime_s:>9.1f}  "
+                     f"{'yes' if r.verified else 'no'}")
+    bits = {r.strategy: r.total_bits for r in comparison.rows}
+    for name in ("greedy", "cadence"):
+        base = bits[name]
+        share = "" if base <= 0 else f" ({100.0 * (bits['joint'] - base) / base:+.1f}%)"
+        lines.append(f"joint against {name}: {bits['joint'] - base:+.2f} bits{share}")
+    lines.append("exact bits: per target the joint expected information of all its visits")
+    lines.append("(not a sum of single visits), weighted and summed over targets.")
+    return ComparisonReport(comparison=comparison, text="\n".join(lines) + "\n")

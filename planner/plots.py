@@ -145,10 +145,12 @@ def plot_curves(run, path, targets=None) -> Path:
 def plot_comparison(comparison, path) -> Path:
     """Bar chart of the strategies' exact joint scores, with the solver bound if any."""
     plt = _pyplot()
-    names = [r.plan_file.strategy for r in comparison.results]
-    bits = [r.plan_file.total_bits for r in comparison.results]
+    rows = comparison.comparison.rows
+    names = [r.strategy for r in rows]
+    bits = [r.total_bits for r in rows]
     fig, ax = plt.subplots(figsize=(5, 3.5))
-    bars = ax.bar(names, bits, color=["0.6", "0.4", "0.15"][: len(names)])
+    bars = ax.bar(names, bits, yerr=[r.stderr for r in rows], capsize=3,
+                  color=["0.6", "0.4", "0.15"][: len(names)])
     for bar, value in zip(bars, bits, strict=True):
         ax.text(bar.get_x() + bar.get_width() / 2, value, f"{value:.1f}", ha="center",
                 va="bottom", fontsize=8)
