@@ -330,6 +330,9 @@ def _parse(text: str, path: Path) -> Scenario:
     if limits.min_moon_separation_deg is not None and limits.moon_table:
         raise ScenarioError(f"{where}: constraints: give min_moon_separation_deg or moon_table, "
                             "not both.")
+    if not sections["exposures"].options_s:
+        raise ScenarioError(f"{where}: exposures.options_s: expected at least one exposure "
+                            "time such as [600, 1200].")
     wrap = telescope.azimuth_range_deg
     if wrap and (len(wrap) != 2 or wrap[1] - wrap[0] < 360.0):
         raise ScenarioError(f"{where}: telescope.azimuth_range_deg: expected two limits at least "
@@ -429,7 +432,7 @@ def _coerce(kind: str, value: Any, where: str, key_path: str, meta: dict, base: 
         return value
     if kind == "floats":
         items = [value] if isinstance(value, int | float) and not isinstance(value, bool) else value
-        if not isinstance(items, list) or not items:
+        if not isinstance(items, list):
             raise bad()
         numbers = sorted({_number(v, meta, bad, integer=False) for v in items})
         return tuple(numbers)

@@ -247,3 +247,21 @@ def test_mutated_documents_fail_only_with_a_sentence(folder, where, value):
 @given(text=st.one_of(st.text(max_size=80), _values.map(yaml.safe_dump)))
 def test_arbitrary_documents_fail_only_with_a_sentence(folder, text):
     _check_clear(text, folder / "run.yaml")
+
+
+def test_the_documented_example_is_valid(tmp_path):
+    import re
+
+    text = (Path(__file__).resolve().parents[1] / "docs" / "scenario.md").read_text()
+    block = re.search(r"```yaml\n(.*?)```", text, re.S).group(1)
+    (tmp_path / "rv").mkdir()
+    (tmp_path / "rv" / "ankpe-51.csv").write_text("time,rv,rv_err\n2460000.5,1.0,1.0\n")
+    scenario = parse_scenario(block, tmp_path / "example.yaml")
+    doc = copy.deepcopy(VALID)
+    for target in doc["targets"]:
+        target["rv_file"] = "rv/ankpe-51.csv"
+    defaults = parse_scenario(yaml.safe_dump(doc), tmp_path / "run.yaml")
+    # Every default the document states is the loader's default.
+    for section in ("constraints", "telescope", "instrument", "exposures", "sky", "solver"):
+        assert getattr(scenario, section) == getattr(defaults, section), section
+    assert scenario.sampler == defaults.sampler
