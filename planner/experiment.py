@@ -370,7 +370,8 @@ def build_setup(scenario, posteriors, truths, time_limit_s=None):
         raise PlanError(f"target {missing[0]!r} has no true orbit; add its truth file (see "
                         "docs/simulation.md) or pass the right folder with --truth.")
     run = pipeline.prepare(scenario, posteriors)
-    past = {job.target: job.data for job in pipeline.fit_jobs(scenario)}
+    jobs = pipeline.fit_jobs(scenario)
+    past = {job.target: job.data for job in jobs}
     aligned = run.aligned
 
     made = {}
@@ -392,4 +393,5 @@ def build_setup(scenario, posteriors, truths, time_limit_s=None):
                  instrument=run.instrument, instrument_name=scenario.instrument.name,
                  night_dates=tuple(n.date for n in aligned),
                  windows_jd=np.array([(n.dark_start_jd, n.dark_end_jd) for n in aligned]),
-                 plan_fixed=plan_fixed, plan_rest=plan_rest, prepared=run)
+                 plan_fixed=plan_fixed, plan_rest=plan_rest, prepared=run,
+                 fit_settings=jobs[0].settings if jobs else None)
