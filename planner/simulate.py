@@ -62,9 +62,19 @@ class Execution:
         """Return the indices of one target's new velocities, ndarray of int (n,)."""
         return np.array([k for k, v in enumerate(self.visits) if v.target == target], dtype=int)
 
-    def data(self, target):
-        """Return one target's new velocities as an RVData record (None if it has none)."""
+    def data(self, target, row=None):
+        """Return one target's new velocities as an RVData record (None if it has none).
+
+        Parameters
+        ----------
+        target : str
+            Target id.
+        row : int, optional
+            Only the velocity of this execution row (which must belong to `target`).
+        """
         rows = self.rows(target)
+        if row is not None:
+            rows = rows[rows == row]
         if rows.size == 0:
             return None
         return RVData.from_arrays(self.bjd_tdb[rows], self.rv[rows], self.rv_err[rows],
