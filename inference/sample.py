@@ -36,7 +36,7 @@ class SamplerSettings:
     max_steps : int
         Largest number of ensemble steps before giving up on convergence.
     check_every : int
-        Steps between convergence checks.
+        Steps between the first convergence checks (later ones come every 20% of the chain).
     tau_factor : float
         Convergence needs the kept chain to be at least this many autocorrelation times long.
     burn_factor : float
@@ -64,7 +64,7 @@ class SamplerSettings:
 
     n_walkers: int = 128
     n_samples: int = 2000
-    max_steps: int = 20000
+    max_steps: int = 10000
     check_every: int = 25
     tau_factor: float = 20.0
     burn_factor: float = 3.0
@@ -317,7 +317,11 @@ def fit(data, model, settings=None, rng=None, target=""):
     state = start.positions
     converged, tau, burn, message = False, np.full(n_dim, np.inf), 0, ""
     while sampler.iteration < settings.max_steps:
-        state = sampler.run_mcmc(state, settings.check_every, progress=False)
+        # Checks every check_every steps at first, then every 20% of the chain so far, so the
+        # cost of the autocorrelation estimates stays a small share of a long run.
+        stride = max(settings.check_every, int(0.2 * sampler.iteration))
+        stride = min(stride, settings.max_steps - sampler.iteration)
+        state = sampler.run_mcmc(state, stride, progress=False)
         steps = sampler.iteration
         chain = sampler.get_chain()
         tau = integrated_time(chain[steps // 3 :])
