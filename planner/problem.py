@@ -12,6 +12,7 @@ known exactly before solving, so strategies can respect it pairwise.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
@@ -24,6 +25,8 @@ from planner.rules import TargetRules, validate_rules
 __all__ = ["Problem", "build_problem", "mount_slew", "problem_from_sky"]
 
 MINUTES_PER_DAY = 1440.0
+_PER_CANDIDATE = ("target", "night", "option", "start", "start_jd_grid", "duration", "bits",
+                  "sigma", "airmass", "alt_start", "az_start", "alt_end", "az_end", "bjd_mid")
 
 #: A slew model: (alt1, az1, alt2, az2) in degrees, broadcasting, to slew seconds.
 SlewModel = Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray], np.ndarray]
@@ -168,6 +171,12 @@ class Problem:
 
     def _margin(self) -> float:
         return self.slew_margin_s if self.slew is not None else 0.0
+
+    def subset(self, idx) -> Problem:
+        """Return the same problem restricted to candidates ``idx`` (in the given order)."""
+        idx = np.asarray(idx, dtype=np.int64)
+        per_candidate = {name: getattr(self, name)[idx] for name in _PER_CANDIDATE}
+        return dataclasses.replace(self, **per_candidate)
 
     def lead_min(self) -> int:
         """Minutes before the first exposure of a night taken by its overhead."""

@@ -64,6 +64,11 @@ class Surrogate:
     within: np.ndarray
     patterns: tuple
 
+    def subset(self, idx) -> Surrogate:
+        """Return the same objective on ``Problem.subset(idx)`` (only candidate values move)."""
+        return Surrogate(self.scale, self.unary[np.asarray(idx, dtype=np.int64)], self.best,
+                         self.within, self.patterns)
+
     def _pattern(self, s: int, mask: int) -> int:
         try:
             return self.patterns[s][mask]

@@ -257,6 +257,19 @@ def _marginals(problem: Problem, surrogate: Surrogate, chosen: np.ndarray) -> np
     return out
 
 
+def _best_per_group(problem: Problem, surrogate: Surrogate, keep: int, extra) -> np.ndarray:
+    """Return the ``keep`` most valuable candidates per (target, night, option), plus extra."""
+    group = (problem.target * problem.n_nights + problem.night) * problem.exposure_s.size \
+        + problem.option
+    order = np.lexsort((-surrogate.unary, group))
+    first = np.r_[0, np.flatnonzero(np.diff(group[order])) + 1]
+    rank = np.arange(order.size) - np.repeat(first, np.diff(np.r_[first, order.size]))
+    chosen = np.zeros(problem.n_candidates, dtype=bool)
+    chosen[order[rank < keep]] = True
+    chosen[np.asarray(extra, dtype=np.int64)] = True
+    return np.flatnonzero(chosen)
+
+
 def joint_plan(
     problem: Problem,
     surrogate: Surrogate,
@@ -265,6 +278,7 @@ def joint_plan(
     seed: int = 0,
     workers: int = 2,
     hint: Plan | None = None,
+    keep_per_group: int | None = None,
 ) -> Plan:
     """Build and solve the joint model, hinted with ``hint`` (default: the greedy plan).
 
@@ -279,6 +293,9 @@ def joint_plan(
     hint : Plan, optional
         A feasible plan of this problem to start from; default: :func:`greedy_plan` on the
         surrogate.
+    keep_per_group : int, optional
+        Give the solver only the best ``keep_per_group`` candidates per (target, night, option)
+        by value, plus the hint's; the bound then holds for that reduced problem only.
 
     Returns
     -------
@@ -287,8 +304,21 @@ def joint_plan(
     """
     t0 = time.perf_counter()
     hint = greedy_plan(problem, surrogate) if hint is None else hint
-    model, handles = build_model(problem, surrogate, hint=hint.candidates)
-    plan = solve(model, handles, time_limit_s=time_limit_s, seed=seed, workers=workers)
+    keep = np.arange(problem.n_candidates)
+    if keep_per_group is not None:
+        keep = _best_per_group(problem, surrogate, keep_per_group, hint.candidates)
+    sub, sub_surrogate = problem.subset(keep), surrogate.subset(keep)
+    position = {int(c): k for k, c in enumerate(keep)}
+    model, handles = build_model(sub, sub_surrogate,
+                                 hint=np.array([position[int(c)] for c in hint.candidates]))
+    found = solve(model, handles, time_limit_s=time_limit_s, seed=seed, workers=workers)
+    chosen = keep[found.candidates]
+    plan = assemble_plan(
+        problem, chosen, strategy="joint", objective=surrogate.bits(problem, chosen),
+        marginal_bits=_marginals(problem, surrogate, chosen), bound=found.bound,
+        status=found.status, runtime_s=found.runtime_s, seed=seed,
+        stats=found.stats + (("kept_candidates", keep.size),),
+    )
     if plan.objective < hint.objective:
         plan = assemble_plan(
             problem, hint.candidates, strategy="joint", objective=hint.objective,

@@ -37,7 +37,8 @@ def _surrogate_error(problem, surrogate, plan, score):
     return (float(np.median(rel)) if rel.size else float("nan")), float(total)
 
 
-def run(n_targets, n_nights, seed, time_limit_s, workers, n_samples, exact_greedy=True):
+def run(n_targets, n_nights, seed, time_limit_s, workers, n_samples, exact_greedy=True,
+        keep_per_group=None):
     """One instance: build, plan with every strategy, score; return a dict of figures."""
     t0 = time.perf_counter()
     inst = sky_instance(n_targets, n_nights, seed=seed, n_samples=n_samples)
@@ -53,7 +54,7 @@ def run(n_targets, n_nights, seed, time_limit_s, workers, n_samples, exact_greed
     hint = max(plans["greedy"], plans.get("greedy_exact", plans["greedy"]),
                key=lambda q: q.objective)
     plans["joint"] = joint_plan(p, surrogate, time_limit_s=time_limit_s, workers=workers,
-                                seed=seed, hint=hint)
+                                seed=seed, hint=hint, keep_per_group=keep_per_group)
     out = {"instance": f"{n_targets}x{n_nights} seed {seed}", "candidates": p.n_candidates,
            "build_s": build_s}
     for name, plan in plans.items():
@@ -90,6 +91,8 @@ def main(argv=None):
     parser.add_argument("--quick", action="store_true", help="small instances, short limits")
     parser.add_argument("--scale", choices=("demo", "large", "both"), default="demo")
     parser.add_argument("--workers", type=int, default=2)
+    parser.add_argument("--keep", type=int, default=None,
+                        help="joint: best candidates kept per (star, night, option) + greedy's")
     args = parser.parse_args(argv)
     print("note: timings on a shared 2-core machine; rerun on a quiet one for final figures")
     configs = []
@@ -105,7 +108,7 @@ def main(argv=None):
             configs += [(200, 10, 1, 240.0, 300, True)]
     results = []
     for n_t, n_n, seed, limit, n_samples, exact in configs:
-        result = run(n_t, n_n, seed, limit, args.workers, n_samples, exact)
+        result = run(n_t, n_n, seed, limit, args.workers, n_samples, exact, args.keep)
         show(result)
         results.append(result)
     for size in sorted({r["instance"].split()[0] for r in results}):
