@@ -198,15 +198,20 @@ def _log_likelihoods(y, v, s):
     inv = 1.0 / np.broadcast_to(s, v.shape) ** 2
     centre = v.mean(axis=0)
     vc, yc = v - centre, y - centre
-    quad = (yc * yc) @ inv.T - 2.0 * yc @ (vc * inv).T + np.sum(vc * vc * inv, axis=1)[None, :]
-    log_norm = -0.5 * np.sum(np.log(2.0 * math.pi / inv), axis=1)
-    return log_norm[None, :] - 0.5 * np.maximum(quad, 0.0)
+    # One matrix product for the whole quadratic form and the normalisation:
+    # -0.5 sum_v (y - v)^2 inv - 0.5 sum_v log(2 pi / inv) = [y^2, y, 1] . [-inv/2, v inv, c].
+    left = np.hstack([yc * yc, yc, np.ones((y.shape[0], 1))])
+    const = -0.5 * np.sum(vc * vc * inv + np.log(2.0 * math.pi / inv), axis=1)
+    right = np.hstack([-0.5 * inv, vc * inv, const[:, None]])
+    return left @ right.T
 
 
 def _logsumexp_rows(a):
     """Row-wise log-sum-exp; the exponentials in float32 (relative error 1e-7), sums in float64."""
     top = a.max(axis=1)
-    e = np.exp((a - top[:, None]).astype(np.float32))
+    a -= top[:, None]
+    e = a.astype(np.float32)
+    np.exp(e, out=e)
     return top + np.log(e.sum(axis=1, dtype=np.float64))
 
 

@@ -68,29 +68,44 @@ def _timed(fn):
     return time.perf_counter() - t0, out
 
 
+def _timed_cpu(fn):
+    """Wall and CPU (process) time of one call: on a shared machine CPU time is steadier."""
+    w0, c0 = time.perf_counter(), time.process_time()
+    out = fn()
+    return time.perf_counter() - w0, time.process_time() - c0, out
+
+
+def machine_reference():
+    """Seconds for numpy.sin on 10 million floats: a yardstick to compare machines by."""
+    x = np.linspace(0.0, 100.0, 10_000_000)
+    return statistics.median(_timed_cpu(lambda: np.sin(x))[1] for _ in range(3))
+
+
 def bench_curves(n_targets, repeats):
     rng = np.random.default_rng(42)
     stars = [invented_posterior(rng) for _ in range(n_targets)]
     runs = [invented_run(rng) for _ in range(n_targets)]
     n_entropies = sum(int(r[1].sum()) for r in runs)
-    totals = []
+    walls, cpus = [], []
     for _ in range(repeats):
-        t0 = time.perf_counter()
-        for pred, (t, obs, sig) in zip(stars, runs, strict=True):
-            build_curve(pred, t, sig, obs, EXPOSURES_S)
-        totals.append(time.perf_counter() - t0)
+        def run():
+            for pred, (t, obs, sig) in zip(stars, runs, strict=True):
+                build_curve(pred, t, sig, obs, EXPOSURES_S)
+        wall, cpu, _ = _timed_cpu(run)
+        walls.append(wall)
+        cpus.append(cpu)
     pred_times = []
     for pred, (t, _, _) in zip(stars[:20], runs[:20], strict=True):
         pred_times.append(_timed(lambda p=pred, tt=t: p.velocities(tt))[0])
     build = [_timed(lambda i=i: invented_posterior(np.random.default_rng(i)))[0] for i in range(20)]
-    med = statistics.median(totals)
+    med, med_cpu = statistics.median(walls), statistics.median(cpus)
     scale = 200 / n_targets
     print(f"curves: {n_targets} targets x {runs[0][0].size} grid times x 2 options, "
           f"{N_SAMPLES} samples; {n_entropies} observable (option, start) pairs")
-    print(f"  total median {med:6.2f} s over {repeats} repeats "
-          f"({1e6 * med / n_entropies:5.1f} us per entropy); scaled to 200 targets "
-          f"{med * scale:6.2f} s (goal < 30 s)")
-    print(f"  of which predictions of a whole grid per target: median "
+    print(f"  total median wall {med:6.2f} s, CPU {med_cpu:6.2f} s over {repeats} repeats "
+          f"({1e6 * med_cpu / n_entropies:5.1f} us CPU per entropy); CPU scaled to 200 targets "
+          f"{med_cpu * scale:6.2f} s (goal < 30 s)")
+    print(f"  predictions of a whole grid per target: median "
           f"{statistics.median(pred_times) * 1e3:5.1f} ms; building a predictor (tables): "
           f"median {statistics.median(build) * 1e3:5.1f} ms")
     return stars, runs
@@ -130,14 +145,15 @@ def bench_joint(stars, runs, repeats):
             var += est.stderr**2
         return total, var**0.5
 
-    times = []
+    walls, cpus = [], []
     for _ in range(repeats):
-        dt, (total, err) = _timed(score)
-        times.append(dt)
+        wall, cpu, (total, err) = _timed_cpu(score)
+        walls.append(wall)
+        cpus.append(cpu)
     n_vis = sum(p[1].size for p in plans)
     print(f"joint: {n_t}-target plan, {n_vis} visits (1-6 per star), {N_SAMPLES} samples: "
-          f"median {statistics.median(times):.3f} s (goal < 2 s); "
-          f"score {total:.2f} +- {err:.2f} bits")
+          f"median wall {statistics.median(walls):.3f} s, CPU {statistics.median(cpus):.3f} s "
+          f"(goal < 2 s); score {total:.2f} +- {err:.2f} bits")
 
 
 def bench_conditional(stars, runs, repeats):
@@ -149,13 +165,14 @@ def bench_conditional(stars, runs, repeats):
     jit2 = pred.jitter[:, None] ** 2
     vs = pred.velocities(t[planned])
     vn = pred.velocities(t[cand])
-    times = []
+    walls, cpus = [], []
     for _ in range(repeats):
-        dt, _ = _timed(lambda: conditional_bits(vs, np.sqrt(sig[1, planned] ** 2 + jit2), vn,
-                                                np.sqrt(sig[1, cand] ** 2 + jit2), rng))
-        times.append(dt)
+        wall, cpu, _ = _timed_cpu(lambda: conditional_bits(
+            vs, np.sqrt(sig[1, planned] ** 2 + jit2), vn, np.sqrt(sig[1, cand] ** 2 + jit2), rng))
+        walls.append(wall)
+        cpus.append(cpu)
     print(f"conditional: {cand.size} candidate starts given 6 planned visits, 64 outcomes: "
-          f"median {statistics.median(times):.3f} s")
+          f"median wall {statistics.median(walls):.3f} s, CPU {statistics.median(cpus):.3f} s")
 
 
 def main():
@@ -164,6 +181,7 @@ def main():
     args = parser.parse_args()
     n_targets = 20 if args.quick else 200
     repeats = 1 if args.quick else 3
+    print(f"machine yardstick: numpy.sin on 1e7 floats {machine_reference():.3f} s CPU")
     stars, runs = bench_curves(n_targets, repeats)
     bench_accuracy(stars, runs)
     bench_joint(stars, runs, 3 if args.quick else 5)
