@@ -136,3 +136,20 @@ def test_per_element_variance_matches_quadrature():
     got = mixture_entropy_bits(x, var)[0]
     for j in range(2):
         assert got[j] == pytest.approx(quad_entropy_bits(x[:, j], var[:, j]), abs=1e-3)
+
+
+def test_separated_modes_with_per_sample_widths_and_weights():
+    # Grouping property again (Cover and Thomas 2006; from memory): far-apart clusters with
+    # their own widths and weights; each cluster's entropy from the estimator on its own.
+    rng = np.random.default_rng(31)
+    parts = [rng.normal(c, 2.0, n) for c, n in ((-9000.0, 200), (0.0, 300), (15000.0, 100))]
+    var = [rng.uniform(0.3, 4.0, p.size) for p in parts]
+    w = [rng.uniform(0.5, 1.5, p.size) for p in parts]
+    mass = np.array([x.sum() for x in w]) / sum(x.sum() for x in w)
+    alone = [mixture_entropy_bits(p[:, None], v[:, None], weights=q[:, None])[0, 0]
+             for p, v, q in zip(parts, var, w, strict=True)]
+    expect = np.sum(mass * alone) - np.sum(mass * np.log2(mass))
+    x, v, q = (np.concatenate(a)[:, None] for a in (parts, var, w))
+    order = rng.permutation(x.shape[0])
+    got = mixture_entropy_bits(x[order], v[order], weights=q[order])[0, 0]
+    assert got == pytest.approx(expect, abs=1e-4)
