@@ -199,7 +199,27 @@ def _pattern_values(k_white: np.ndarray, exact: np.ndarray, top: int) -> dict:
     return values
 
 
-def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000) -> Surrogate:
+def _calibrate(values, pred, sigma, single, top, rng, n_outcomes) -> None:
+    """Match the pattern of the ``top`` best nights to the exact joint information, in place.
+
+    Patterns of ``k`` nights are multiplied by ``1 + (f - 1) (k - 1) / (top - 1)``, where ``f``
+    is exact / surrogate on that pattern: singles stay exact, the largest pattern becomes exact.
+    """
+    from planner.information import joint_bits
+
+    best = np.sort(np.argsort(-single)[:top])
+    mask = int(np.sum(1 << best))
+    if values.get(mask, 0.0) <= 0:
+        return
+    factor = joint_bits(pred[:, best], sigma[:, best], rng, n_outcomes).bits / values[mask]
+    for key in values:
+        k = bin(key).count("1")
+        if k >= 2:
+            values[key] *= 1.0 + (factor - 1.0) * (k - 1) / (top - 1)
+
+
+def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000,
+                    rng: np.random.Generator | None = None, n_outcomes: int = 256) -> Surrogate:
     """Build the night-pattern surrogate from each target's posterior predictions.
 
     Parameters
@@ -211,6 +231,12 @@ def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000
         [m/s] and ``jitter`` ``(n_samples,)`` [m/s], e.g. :class:`planner.predict.Predictor`.
     scale : int
         Integer units per bit (1000: millibits).
+    rng : numpy.random.Generator, optional
+        When given, each target's largest pattern of its best nights is matched to the exact
+        joint information (:func:`planner.information.joint_bits`, ``n_outcomes`` outcomes) and
+        the patterns in between are interpolated by size; without it, no calibration.
+    n_outcomes : int
+        Simulated outcomes of that calibration.
 
     Returns
     -------
@@ -247,6 +273,10 @@ def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000
         k_white = cov / np.sqrt(noise[:, None] * noise[None, :])
         m = len(nights)
         values = _pattern_values(k_white[:m, :m], problem.bits[reps[:m]], top)
+        if rng is not None and top >= 2:
+            _calibrate(values, pred[:, :m], np.sqrt(problem.sigma[reps[:m]][None, :] ** 2
+                                                     + jitter[:, None] ** 2),
+                       problem.bits[reps[:m]], top, rng, n_outcomes)
         remap = {}
         for mask, v in values.items():
             full = sum(1 << nights[j] for j in range(m) if mask >> j & 1)

@@ -79,3 +79,29 @@ def test_surrogate_error_against_the_exact_joint_information():
             errors.append(abs(s.target_value(p, t, mine) / s.scale - exact) / exact)
     assert len(errors) >= 4
     assert np.median(errors) < 0.12
+
+
+def test_calibration_makes_the_largest_pattern_exact():
+    # Outside reference: planner.information.joint_bits on the target's best candidate of each
+    # night (the pattern the calibration matches), with a fresh generator.
+    from planner.surrogate import _best_per_night
+
+    inst = shared_sky_instance(8, 2, 3)
+    p = inst.problem
+    s = build_surrogate(p, inst.predictors, rng=np.random.default_rng(6), n_outcomes=1024)
+    checked = 0
+    for t in range(p.n_targets):
+        first, _ = _best_per_night(p, t, 60)
+        if len(first) < 2:
+            continue
+        reps = np.array([first[n] for n in sorted(first)])
+        pred = inst.predictors[t].velocities(p.bjd_mid[reps])
+        sig = np.sqrt(p.sigma[reps][None] ** 2 + inst.predictors[t].jitter[:, None] ** 2)
+        est = joint_bits(pred, sig, np.random.default_rng(7), 2048)
+        mask = sum(1 << int(n) for n in sorted(first))
+        got = s.patterns[t][mask] / s.scale / p.rules[t].weight
+        # Two independent Monte Carlo estimates (1024 and 2048 outcomes): 4 combined standard
+        # errors, sqrt(2 + 1) of the larger run's, plus millibit rounding.
+        assert got == pytest.approx(est.bits, abs=4 * np.sqrt(3) * est.stderr + 0.01)
+        checked += 1
+    assert checked >= 3
