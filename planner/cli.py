@@ -81,7 +81,8 @@ def _plan_options(p, out_default: str | None) -> None:
     p.add_argument("--strategy", choices=("joint", "greedy", "cadence"), default=None,
                    help="allocation strategy (default: the scenario's solver.strategy, joint)")
     p.add_argument("--time-limit", type=float, default=None, metavar="S",
-                   help="solver wall-clock limit in seconds (default: solver.time_limit_s)")
+                   help="solver wall-clock limit in seconds (default: solver.time_limit_s, "
+                        "for replan solver.replan_time_limit_s)")
     p.add_argument("--out", metavar="DIR", default=out_default,
                    help="folder for plan.json and plan.csv (default: %(default)s)")
     p.add_argument("--force", action="store_true", help="replace an existing plan in DIR")

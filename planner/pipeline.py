@@ -347,7 +347,7 @@ class PreparedRun:
 
 
 def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict: bool = True,
-            seed: int | None = None) -> PreparedRun:
+            seed: int | None = None, jobs: int | None = None) -> PreparedRun:
     """Compute the sky, limits, noise, information and candidate visits of a run.
 
     Parameters
@@ -365,6 +365,8 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
         lost time may legitimately leave a target out.
     seed : int, optional
         Seed of the simulated outcomes behind conditional values (default: the solver seed).
+    jobs : int, optional
+        Worker processes for the information curves (None: every core; 1: this process).
 
     Returns
     -------
@@ -402,7 +404,8 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
     predictors = tuple(Predictor.from_posterior(posteriors[t.id], scenario.instrument.name)
                        for t in targets)
     rng = np.random.default_rng(scenario.solver.seed if seed is None else seed)
-    bits = _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, done, rng)
+    bits = _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, done, rng,
+                 jobs)
     rules = tuple(TargetRules(
         min_visits=t.min_visits, max_visits=t.max_visits, max_per_night=t.max_visits_per_night,
         min_spacing_min=int(round(t.min_gap_h * 60.0)), weight=t.weight,
@@ -454,10 +457,25 @@ def _mid_columns(sky, exposure_s: float) -> np.ndarray:
     return mid
 
 
-def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, done,
-          rng) -> np.ndarray:
-    """One-visit expected bits on the sky grid, conditional on executed visits without data."""
+def _curve_bits(args) -> np.ndarray:
+    """One target's information curve (all options), NaN (not observable) as 0 bits."""
     from planner.curves import build_curve
+
+    predictor, bjd, sigma, observable, exposures, times_jd, target = args
+    curve = build_curve(predictor, bjd, sigma, observable, exposures, times_jd=times_jd,
+                        target=target)
+    return np.nan_to_num(curve.bits, nan=0.0)
+
+
+def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, done,
+          rng, jobs=None) -> np.ndarray:
+    """One-visit expected bits on the sky grid, conditional on executed visits without data.
+
+    The unconditional curves of the targets are independent and computed in ``jobs`` worker
+    processes (None: every core).
+    """
+    from concurrent.futures import ProcessPoolExecutor
+
     from planner.information import conditional_bits
     from planner.outputs import parse_utc
 
@@ -466,13 +484,21 @@ def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, d
     for visit in done:
         if visit.status == "done":
             pending.setdefault(visit.target, []).append(visit)
+    plain = [s for s, t in enumerate(scenario.targets) if t.id not in pending]
+    work = [(predictors[s], sky.bjd_tdb[s], sigma[:, s], observable[:, s], exposures,
+             sky.times_jd, scenario.targets[s].id) for s in plain]
+    workers = max(1, min(jobs or os.cpu_count() or 1, len(work)))
+    if workers > 1:
+        with ProcessPoolExecutor(workers) as pool:
+            curves = list(pool.map(_curve_bits, work, chunksize=4))
+    else:
+        curves = [_curve_bits(item) for item in work]
+    for s, curve in zip(plain, curves, strict=True):
+        bits[:, s] = curve
     for s, target in enumerate(scenario.targets):
-        predictor = predictors[s]
         if target.id not in pending:
-            curve = build_curve(predictor, sky.bjd_tdb[s], sigma[:, s], observable[:, s],
-                                exposures, times_jd=sky.times_jd, target=target.id)
-            bits[:, s] = np.nan_to_num(curve.bits, nan=0.0)
             continue
+        predictor = predictors[s]
         jitter2 = predictor.jitter[:, None] ** 2
         for o, e in enumerate(exposures):
             cols = np.flatnonzero(observable[o, s])

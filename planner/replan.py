@@ -221,7 +221,8 @@ def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
     strategy : str, optional
         Default: the old plan's strategy.
     time_limit_s : float, optional
-        Solver limit (default: the scenario's).
+        Solver limit (default: the scenario's ``solver.replan_time_limit_s``, shorter than the
+        planning limit because observers re-plan at the telescope).
 
     Returns
     -------
@@ -242,7 +243,8 @@ def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
                  else v for v in request.done)
     run = pipeline.prepare(scenario, posteriors, lost_jd=request.lost_jd, done=done,
                            strict=False)
-    result = pipeline.make_plan(run, strategy or old.strategy, time_limit_s)
+    limit = scenario.solver.replan_time_limit_s if time_limit_s is None else time_limit_s
+    result = pipeline.make_plan(run, strategy or old.strategy, limit)
     changes = describe_changes(old, result.plan_file, request, updates)
     return ReplanResult(plan_file=result.plan_file, changes=changes, plan=result.plan, run=run,
                         updates=updates)

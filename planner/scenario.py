@@ -160,6 +160,8 @@ class SolverConfig:
     """Settings of the allocation (CP-SAT) solver."""
 
     time_limit_s: float = _spec("float", 25.0, lo=0.1, hi=86400.0, what="wall-clock limit [s]")
+    replan_time_limit_s: float = _spec("float", 8.0, lo=0.1, hi=86400.0,
+                                       what="limit when re-planning at the telescope [s]")
     seed: int = _spec("int", 0, lo=0, hi=2**31 - 1, what="solver seed")
     workers: int = _spec("int", 2, lo=1, hi=64, what="search workers")
     strategy: str = _spec("choice:joint,greedy,cadence", "joint", what="default strategy")
