@@ -16,6 +16,7 @@ import argparse
 import logging
 import sys
 import time
+from pathlib import Path
 
 from planner.cli_simulate import add_simulate
 
@@ -196,6 +197,7 @@ def _run_plan(args) -> int:
     result = pipeline.make_plan(run, strategy=args.strategy, time_limit_s=args.time_limit)
     sys.stdout.write(render_schedule(result.plan_file))
     paths = write_plan(args.out, result.plan_file, force=args.force)
+    pipeline.save_curves(run, paths[0].parent / "curves.npz")
     sys.stderr.write(f"wrote {paths[0]} and {paths[1]}\n")
     _maybe_night_plot(args, run, result)
     return EXIT_OK
@@ -234,11 +236,13 @@ def _run_replan(args) -> int:
     request = replan.parse_request(old, scenario, lost=args.lost, done_file=args.done,
                                    rv_files=args.rvs, now=args.now)
     posteriors = _fit(args, pipeline, scenario, cache)
+    saved = pipeline.load_curves(Path(args.plan).parent / "curves.npz")
     result = replan.replan(scenario, posteriors, old, request, strategy=args.strategy,
-                           time_limit_s=args.time_limit)
+                           time_limit_s=args.time_limit, reuse=saved)
     sys.stdout.write(render_schedule(result.plan_file))
     sys.stdout.write(result.changes)
     paths = write_plan(args.out, result.plan_file, force=args.force)
+    pipeline.save_curves(result.run, paths[0].parent / "curves.npz")
     sys.stderr.write(f"wrote {paths[0]} and {paths[1]}\n")
     _maybe_night_plot(args, result.run, result)
     return EXIT_OK

@@ -45,6 +45,8 @@ __all__ = [
     "physical_setup",
     "run_grid",
     "sampler_settings",
+    "load_curves",
+    "save_curves",
 ]
 
 log = logging.getLogger(__name__)
@@ -347,7 +349,7 @@ class PreparedRun:
 
 
 def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict: bool = True,
-            seed: int | None = None, jobs: int | None = None) -> PreparedRun:
+            seed: int | None = None, jobs: int | None = None, reuse=None) -> PreparedRun:
     """Compute the sky, limits, noise, information and candidate visits of a run.
 
     Parameters
@@ -367,6 +369,10 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
         Seed of the simulated outcomes behind conditional values (default: the solver seed).
     jobs : int, optional
         Worker processes for the information curves (None: every core; 1: this process).
+    reuse : dict, optional
+        Curves saved with an earlier plan (:func:`load_curves`): a target whose posterior and
+        grid are unchanged, and whose observable starts are a subset of the saved ones, keeps
+        its saved bits instead of recomputing them.
 
     Returns
     -------
@@ -404,8 +410,9 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
     predictors = tuple(Predictor.from_posterior(posteriors[t.id], scenario.instrument.name)
                        for t in targets)
     rng = np.random.default_rng(scenario.solver.seed if seed is None else seed)
+    saved = _reusable(reuse, scenario, sky, exposures, observable, posteriors)
     bits = _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, done, rng,
-                 jobs)
+                 jobs, saved)
     rules = tuple(TargetRules(
         min_visits=t.min_visits, max_visits=t.max_visits, max_per_night=t.max_visits_per_night,
         min_spacing_min=int(round(t.min_gap_h * 60.0)), weight=t.weight,
@@ -457,6 +464,53 @@ def _mid_columns(sky, exposure_s: float) -> np.ndarray:
     return mid
 
 
+def _posterior_key(posterior) -> str:
+    return f"{posterior.data_digest}:{posterior.seed}:{posterior.samples.shape[0]}"
+
+
+def save_curves(run: PreparedRun, path: str | Path) -> None:
+    """Keep a run's one-visit bits beside its plan (atomic ``curves.npz``) for re-planning."""
+    import io
+
+    from planner.outputs import atomic_write_bytes
+
+    buffer = io.BytesIO()
+    np.savez_compressed(
+        buffer, times_jd=run.sky.times_jd, exposures=np.asarray(run.exposures),
+        targets=np.array([t.id for t in run.scenario.targets]),
+        keys=np.array([_posterior_key(run.posteriors[t.id]) for t in run.scenario.targets]),
+        observable=run.observable, bits=run.bits)
+    atomic_write_bytes(path, buffer.getvalue())
+
+
+def load_curves(path: str | Path) -> dict | None:
+    """Read curves saved by :func:`save_curves`; None if the file is missing or unreadable."""
+    try:
+        with np.load(Path(path), allow_pickle=False) as data:
+            return {key: data[key] for key in data.files}
+    except (OSError, ValueError, KeyError):
+        return None
+
+
+def _reusable(saved, scenario, sky, exposures, observable, posteriors) -> dict:
+    """Targets whose saved bits still hold: same grid, options and posterior, fewer starts."""
+    if not saved or saved["times_jd"].shape != sky.times_jd.shape:
+        return {}
+    if not (np.allclose(saved["times_jd"], sky.times_jd, rtol=0, atol=1e-9)
+            and np.array_equal(saved["exposures"], np.asarray(exposures))):
+        return {}
+    index = {str(name): k for k, name in enumerate(saved["targets"])}
+    out = {}
+    for s, target in enumerate(scenario.targets):
+        k = index.get(target.id)
+        if k is None or str(saved["keys"][k]) != _posterior_key(posteriors[target.id]):
+            continue
+        if np.any(observable[:, s] & ~saved["observable"][:, k]):
+            continue
+        out[s] = saved["bits"][:, k]
+    return out
+
+
 def _curve_bits(args) -> np.ndarray:
     """One target's information curve (all options), NaN (not observable) as 0 bits."""
     from planner.curves import build_curve
@@ -468,7 +522,7 @@ def _curve_bits(args) -> np.ndarray:
 
 
 def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, done,
-          rng, jobs=None) -> np.ndarray:
+          rng, jobs=None, saved=None) -> np.ndarray:
     """One-visit expected bits on the sky grid, conditional on executed visits without data.
 
     The unconditional curves of the targets are independent and computed in ``jobs`` worker
@@ -484,7 +538,11 @@ def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, d
     for visit in done:
         if visit.status == "done":
             pending.setdefault(visit.target, []).append(visit)
-    plain = [s for s, t in enumerate(scenario.targets) if t.id not in pending]
+    saved = saved or {}
+    for s, target_bits in saved.items():
+        if scenario.targets[s].id not in pending:
+            bits[:, s] = np.where(observable[:, s], target_bits, 0.0)
+    plain = [s for s, t in enumerate(scenario.targets) if t.id not in pending and s not in saved]
     work = [(predictors[s], sky.bjd_tdb[s], sigma[:, s], observable[:, s], exposures,
              sky.times_jd, scenario.targets[s].id) for s in plain]
     workers = max(1, min(jobs or os.cpu_count() or 1, len(work)))

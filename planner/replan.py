@@ -208,7 +208,8 @@ def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=
 
 
 def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
-           strategy: str | None = None, time_limit_s: float | None = None) -> ReplanResult:
+           strategy: str | None = None, time_limit_s: float | None = None,
+           reuse=None) -> ReplanResult:
     """Plan the rest of the run after lost time, executed visits and new velocities.
 
     Parameters
@@ -220,6 +221,9 @@ def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
     request : ReplanRequest
     strategy : str, optional
         Default: the old plan's strategy.
+    reuse : dict, optional
+        Curves saved with the old plan (:func:`planner.pipeline.load_curves`), reused for the
+        targets they still describe.
     time_limit_s : float, optional
         Solver limit (default: the scenario's ``solver.replan_time_limit_s``, shorter than the
         planning limit because observers re-plan at the telescope).
@@ -242,7 +246,7 @@ def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
     done = tuple(dataclasses.replace(v, status="measured") if v.target in request.new_data
                  else v for v in request.done)
     run = pipeline.prepare(scenario, posteriors, lost_jd=request.lost_jd, done=done,
-                           strict=False)
+                           strict=False, reuse=reuse)
     limit = scenario.solver.replan_time_limit_s if time_limit_s is None else time_limit_s
     result = pipeline.make_plan(run, strategy or old.strategy, limit)
     changes = describe_changes(old, result.plan_file, request, updates)
