@@ -60,22 +60,26 @@ def _common(parser: argparse.ArgumentParser) -> None:
                         help="processes for fitting (default: all cores)")
 
 
-def _add_fit(sub) -> None:
-    p = sub.add_parser("fit", help="sample every target's orbit posterior (cached)",
-                       description="Sample the orbit posterior of every target from its past "
-                                   "velocities and keep the samples in the cache.")
+def _command(sub, name: str, summary: str, description: str, func):
+    """Register one subcommand with the options every command shares."""
+    p = sub.add_parser(name, help=summary, description=description)
     _common(p)
-    p.set_defaults(func=_run_fit)
+    p.set_defaults(func=func)
+    return p
+
+
+def _add_fit(sub) -> None:
+    _command(sub, "fit", "sample every target's orbit posterior (cached)",
+             "Sample the orbit posterior of every target from its past velocities and keep the "
+             "samples in the cache.", _run_fit)
 
 
 def _add_curves(sub) -> None:
-    p = sub.add_parser("curves", help="information curves: bits of one more velocity over the run",
-                       description="Print, per target, the expected information of one more "
-                                   "velocity over the run (best time and value per night).")
-    _common(p)
+    p = _command(sub, "curves", "information curves: bits of one more velocity over the run",
+                 "Print, per target, the expected information of one more velocity over the "
+                 "run (best time and value per night).", _run_curves)
     p.add_argument("--target", metavar="ID", action="append", help="only this target (repeat)")
     p.add_argument("--plot", metavar="FILE", help="also draw the curves to FILE (needs matplotlib)")
-    p.set_defaults(func=_run_curves)
 
 
 def _plan_options(p, out_default: str | None) -> None:
@@ -91,30 +95,25 @@ def _plan_options(p, out_default: str | None) -> None:
 
 
 def _add_plan(sub) -> None:
-    p = sub.add_parser("plan", help="plan the run and print the hour-by-hour schedule",
-                       description="Plan every night of the run at once, print the hour-by-hour "
-                                   "schedule and write DIR/plan.json and DIR/plan.csv.")
-    _common(p)
+    p = _command(sub, "plan", "plan the run and print the hour-by-hour schedule",
+                 "Plan every night of the run at once, print the hour-by-hour schedule and "
+                 "write DIR/plan.json and DIR/plan.csv.", _run_plan)
     _plan_options(p, "nightbits-plan")
-    p.set_defaults(func=_run_plan)
 
 
 def _add_compare(sub) -> None:
-    p = sub.add_parser("compare", help="joint, greedy and cadence plans on one exact score",
-                       description="Plan the run with every strategy and compare them on the "
-                                   "exact joint information score.")
-    _common(p)
+    p = _command(sub, "compare", "joint, greedy and cadence plans on one exact score",
+                 "Plan the run with every strategy and compare them on the exact joint "
+                 "information score.", _run_compare)
     p.add_argument("--time-limit", type=float, default=None, metavar="S",
                    help="solver wall-clock limit in seconds (default: solver.time_limit_s)")
     p.add_argument("--plot", metavar="FILE", help="also draw the comparison bar chart to FILE")
-    p.set_defaults(func=_run_compare)
 
 
 def _add_replan(sub) -> None:
-    p = sub.add_parser("replan", help="re-plan after lost time, executed visits or new velocities",
-                       description="Drop lost nights or hours, keep what was executed, fold in "
-                                   "new velocities and plan the rest of the run.")
-    _common(p)
+    p = _command(sub, "replan", "re-plan after lost time, executed visits or new velocities",
+                 "Drop lost nights or hours, keep what was executed, fold in new velocities and "
+                 "plan the rest of the run.", _run_replan)
     p.add_argument("--plan", required=True, metavar="FILE", help="the plan.json to start from")
     p.add_argument("--lost", action="append", default=[], metavar="NIGHT|START/END",
                    help="a lost night (its local evening date YYYY-MM-DD) or a lost UTC "
@@ -126,7 +125,6 @@ def _add_replan(sub) -> None:
     p.add_argument("--now", metavar="TIME",
                    help="UTC time now (ISO); visits before it count as executed unless lost")
     _plan_options(p, "nightbits-replan")
-    p.set_defaults(func=_run_replan)
 
 
 #: The subcommands, in the order ``--help`` lists them.
