@@ -350,6 +350,8 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
         wc = None if wt is None else (wt[c] if wt.shape[0] > 1 else wt)
         sp = None
         if nodes is not None:
-            sp = split if cc.shape[0] == 1 else _node_split(cc, nodes, floor)
+            # The shared split holds only when the variances are shared by every column; a
+            # chunk of one column of per-column variances needs its own.
+            sp = split if split is not None else _node_split(cc, nodes, floor)
         out[:, c] = _chunk_entropy(xt[c], cc, wc, extra[:, c], h[c], mid[c], size, nodes, sp)
     return out / _LN2

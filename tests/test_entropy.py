@@ -153,3 +153,20 @@ def test_separated_modes_with_per_sample_widths_and_weights():
     order = rng.permutation(x.shape[0])
     got = mixture_entropy_bits(x[order], v[order], weights=q[order])[0, 0]
     assert got == pytest.approx(expect, abs=1e-4)
+
+
+def test_last_chunk_of_one_column_with_per_column_variances():
+    # Regression: with per-(sample, column) component variances, a chunk holding a single
+    # column must get its own variance-node split. Reference: each column computed on its
+    # own, which takes the single-column path (the mixture entropy of a column does not
+    # depend on the other columns).
+    from planner.entropy import mixture_entropy_bits
+
+    gen = np.random.default_rng(5)
+    n_s, n_c = 2000, 33  # 2000 centres -> 32 columns per chunk, so the last chunk holds one
+    centers = gen.normal(0.0, 5.0, (n_s, n_c))
+    variance = gen.uniform(0.5, 9.0, (n_s, n_c))
+    together = mixture_entropy_bits(centers, variance, np.ones(n_c))
+    alone = [mixture_entropy_bits(centers[:, [c]], variance[:, [c]], np.ones(1))[..., 0]
+             for c in (0, n_c - 1)]
+    np.testing.assert_allclose(np.ravel(together)[[0, n_c - 1]], np.ravel(alone), atol=1e-9)
