@@ -38,14 +38,15 @@ def main():
     n_batch = 8 if args.quick else 40
     rng = np.random.default_rng(7)
     settings = SamplerSettings()
-    times, ess, steps = [], [], []
+    times, cpu, ess, steps = [], [], [], []
     data = invented_target(rng)
     model = ModelSpec.for_data(data, period_range=(1.0, 1000.0))
     fit(data, model, settings, rng=0)  # warm-up: imports and first-call costs
     for r in range(repeats):
-        start = time.perf_counter()
+        start, cpu_start = time.perf_counter(), time.process_time()
         post = fit(data, model, settings, rng=r)
         times.append(time.perf_counter() - start)
+        cpu.append(time.process_time() - cpu_start)
         ess.append(post.diagnostics.ess)
         steps.append(post.diagnostics.n_steps)
     print(
@@ -53,6 +54,7 @@ def main():
         f"{settings.n_walkers} walkers ({repeats} repeats, medians):"
     )
     print(f"  wall time {np.median(times):.2f} s (min {min(times):.2f}, max {max(times):.2f})")
+    print(f"  CPU time {np.median(cpu):.2f} s (wall above CPU means a loaded machine)")
     print(f"  effective samples {np.median(ess):.0f}, steps {np.median(steps):.0f}")
     jobs = []
     for i in range(n_batch):
