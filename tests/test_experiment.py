@@ -6,6 +6,7 @@ fixed visit lists, because these tests check the experiment's bookkeeping, not t
 """
 
 import dataclasses
+import importlib.util
 from pathlib import Path
 
 import numpy as np
@@ -267,7 +268,13 @@ def test_simulate_command_end_to_end(tmp_path, capsys, invented_fits):
     out = tmp_path / "sim"
     argv = [str(TINY), "--truth", str(DEMO_TRUTH), "--seeds", "2", "--strategies", "joint",
             "cadence", "adaptive", "--out", str(out), "--no-cache", "--time-limit", "2"]
-    assert main(["simulate", *argv]) == 0
+    plot = tmp_path / "bits.png"
+    # Plots need the optional matplotlib; without it the rest of the command is still checked.
+    plots = importlib.util.find_spec("matplotlib") is not None
+    extra = ["--plot", str(plot), "--plot-star", "Gamur-7"] if plots else []
+    assert main(["simulate", *argv, *extra]) == 0
+    for path in (plot, out / "posterior_Gamur-7.png") if plots else ():
+        assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # the PNG signature
     printed = capsys.readouterr().out
     assert "to reach cadence" in printed and "observatory's own rules" in printed
     doc = json.loads((out / "simulate.json").read_text())
