@@ -58,8 +58,7 @@ class SamplerSettings:
     start_rounds : int
         Importance rounds (the first from the prior, then adaptive).
     de_weight, snooker_weight, jump_weight, stretch_weight : float
-        Relative weights of the DE move (partners from the walker's own frequency cell,
-        :class:`inference.moves.CellDEMove`), the DE snooker move, the DE mode-jump move
+        Relative weights of the DE move, the DE snooker move, the DE mode-jump move
         (gamma = 1) and the stretch move.
     """
 
@@ -213,14 +212,11 @@ def _log_probability(prep):
     return fn
 
 
-def _moves(settings, prep):
+def _moves(settings):
     from emcee import moves
 
-    from .moves import CellDEMove
-
-    span = max(float(np.ptp(prep.t)), 1.0)
     pairs = [
-        (CellDEMove(prep.n_planets, span), settings.de_weight),
+        (moves.DEMove(), settings.de_weight),
         (moves.DESnookerMove(), settings.snooker_weight),
         (moves.DEMove(gamma0=1.0), settings.jump_weight),
         (moves.StretchMove(), settings.stretch_weight),
@@ -315,11 +311,7 @@ def fit(data, model, settings=None, rng=None, target=""):
     prep = prepare(data, model)
     start = multimodal_start(prep, settings, gen)
     sampler = emcee.EnsembleSampler(
-        settings.n_walkers,
-        n_dim,
-        _log_probability(prep),
-        moves=_moves(settings, prep),
-        vectorize=True,
+        settings.n_walkers, n_dim, _log_probability(prep), moves=_moves(settings), vectorize=True
     )
     sampler.random_state = np.random.RandomState(int(gen.integers(0, 2**32))).get_state()
     state = start.positions
