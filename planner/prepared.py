@@ -23,6 +23,13 @@ __all__ = ["PreparedRun", "prepare", "visit_predictions"]
 
 log = logging.getLogger(__name__)
 
+#: Candidate starts kept per (target, night, exposure option), and their least spacing [min].
+#: Measured on the demo (docs/architecture.md, Decisions): 8 starts 20 minutes apart left
+#: 2 to 8 minutes idle before most exposures; 40 starts 5 minutes apart let the plans pack
+#: exposures back to back at the cost of about 5 times as many candidates.
+CANDIDATE_STARTS = 40
+CANDIDATE_SPACING_MIN = 5
+
 
 @dataclass(frozen=True)
 class PreparedRun:
@@ -161,8 +168,11 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
         azimuth_deg=grid.scatter(sky.azimuth_deg, 0.0),
         bjd_tdb=fill_bjd(grid, sky), reserved_jd=closed,
         slew=lambda a1, z1, a2, z2: slew_seconds(mount, a1, z1, a2, z2, include_overhead=False),
-        overhead_s=mount.overhead_s(), default_option=exposures.index(default))
-    surrogate = build_surrogate(problem, predictors)
+        overhead_s=mount.overhead_s(), default_option=exposures.index(default),
+        keep_per_night=CANDIDATE_STARTS, thin_spacing_min=CANDIDATE_SPACING_MIN)
+    surrogate_rng = np.random.default_rng(
+        np.random.SeedSequence(scenario.solver.seed if seed is None else seed).spawn(1)[0])
+    surrogate = build_surrogate(problem, predictors, rng=surrogate_rng)
     log.info("prepared %d targets, %d nights, %d candidate visits", len(targets), len(aligned),
              problem.n_candidates)
     return PreparedRun(scenario=scenario, site=site, nights=nights, aligned=aligned, sky=sky,

@@ -158,8 +158,7 @@ def main() -> None:
                  "jitter_ms": jitter, "planets": planets}
         atomic_write_text(OUT / "truth" / f"{slug}.json", json.dumps(truth, indent=2) + "\n")
         n_fit = 2 if kind == "two planets" else 1
-        short = any(p["period_d"] < 6.0 for p in planets)
-        targets.append((name, ra, dec, v_mag, slug, n_fit, short, kind))
+        targets.append((name, ra, dec, v_mag, slug, n_fit, kind))
     atomic_write_text(OUT / "demo.yaml", _yaml(targets))
 
 
@@ -213,14 +212,12 @@ solver:
 targets:
 """
     rows = []
-    for name, ra, dec, v_mag, slug, n_fit, short, kind in targets:
+    for name, ra, dec, v_mag, slug, n_fit, kind in targets:
         row = (f"  - id: {name}   # {kind}\n    ra_deg: {ra:.4f}\n    dec_deg: {dec:.4f}\n"
                f"    v_mag: {v_mag:.2f}\n    rv_file: rv/{slug}.csv\n    planets: {n_fit}\n"
-               f"    max_visits: 5\n")
+               f"    max_visits: 8\n    max_visits_per_night: 2\n    min_gap_h: 2\n")
         if v_mag < 7.0:
             row += "    exposures_s: [300, 600]\n"
-        if short:
-            row += "    max_visits_per_night: 2\n    min_gap_h: 2\n"
         rows.append(row)
     return head + "".join(rows)
 
