@@ -128,6 +128,7 @@ def compare_strategies(
     exact_greedy: bool = True,
     n_outcomes: int = 512,
     verify: Callable[[Plan], object] | None = None,
+    focus_per_group: int | None = None,
 ) -> Comparison:
     """Run cadence, greedy and joint on one problem and score them exactly.
 
@@ -147,6 +148,8 @@ def compare_strategies(
         Simulated outcomes per target for the scores.
     verify : callable, optional
         ``plan -> Verification``; its ``ok`` goes into each row.
+    focus_per_group : int, optional
+        Passed to :func:`~planner.allocate.joint.joint_plan` (two-stage solve).
 
     Returns
     -------
@@ -158,7 +161,7 @@ def compare_strategies(
     hint = greedy if not exact_greedy else greedy_plan(problem, surrogate)
     best_hint = max((hint, greedy), key=lambda p: p.objective)
     joint = joint_plan(problem, surrogate, time_limit_s=time_limit_s, seed=seed, workers=workers,
-                       hint=best_hint)
+                       hint=best_hint, focus_per_group=focus_per_group)
     rows, bits, visits, plans = [], {}, {}, {}
     for plan in (cadence, greedy, joint):
         score = score_plan(plan, problem, predictors, rng=rng, n_outcomes=n_outcomes)

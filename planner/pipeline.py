@@ -33,6 +33,13 @@ from planner.saved_curves import load_curves, save_curves
 from planner.saved_curves import reusable_curves as _reusable  # noqa: F401 (tests use it)
 from planner.scenario import Scenario, load_scenario
 
+#: The joint strategy first solves the problem reduced to the best starts per (star, night,
+#: exposure option) for half its time limit, then the whole problem hinted with that plan, so
+#: the reported bound holds for the whole problem. Measured on the demo (cached posteriors,
+#: 25 s): the reduced model with 12 starts per group solved to optimality in 11 s with 109.22
+#: exact bits, where the whole model alone kept greedy's plan (108.49) at a 20-24 % gap.
+JOINT_FOCUS_PER_GROUP = 12
+
 __all__ = [
     "ComparisonReport",
     "PlanResult",
@@ -111,7 +118,7 @@ def run_strategy(run: PreparedRun, strategy: str, time_limit_s: float | None = N
         if not limit > 0:
             raise PlanError(f"the solver time limit must be positive seconds, got {limit}.")
         return joint_plan(run.problem, run.surrogate, time_limit_s=limit, seed=solver.seed,
-                          workers=solver.workers)
+                          workers=solver.workers, focus_per_group=JOINT_FOCUS_PER_GROUP)
     if strategy == "greedy":
         return greedy_plan(run.problem, run.surrogate)
     if strategy == "cadence":
@@ -183,6 +190,7 @@ def compare(run: PreparedRun, time_limit_s: float | None = None) -> ComparisonRe
     comparison = compare_strategies(
         run.problem, run.surrogate, run.predictors, rng=np.random.default_rng(solver.seed),
         time_limit_s=limit, seed=solver.seed, workers=solver.workers, exact_greedy=False,
+        focus_per_group=JOINT_FOCUS_PER_GROUP,
         verify=lambda plan: verify(run, plan))
     lines = [f"{'strategy':<9} {'exposures':>9} {'stars':>5} {'exact bits':>15} "
              f"{'bits/dark h':>11} {'slew h':>6} {'idle h':>6} {'runtime s':>9}  verified"]

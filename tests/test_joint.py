@@ -173,3 +173,33 @@ def test_reduced_candidate_set_keeps_the_hint_and_maps_back():
     assert plan.objective >= hint.objective - 1e-9
     assert plan.objective == pytest.approx(surrogate.bits(problem, plan.candidates))
     assert _feasible(problem, plan.candidates)
+
+
+def test_two_stage_solve_is_at_least_its_first_stage_and_bounds_the_whole_problem():
+    # Reference: exhaustive enumeration (definition of the optimum). The focused first stage
+    # sees one candidate per group; the second stage's bound must still cover every feasible
+    # plan of the whole problem, and the plan can never fall below the first stage's.
+    rng = np.random.default_rng(2)
+    rules = [TargetRules(max_visits=2, max_per_night=1, min_spacing_min=20) for _ in range(3)]
+    problem = grid_instance(3, 1, rng=rng, hours=1.0, step_min=10, rules=rules,
+                            overhead_s=60.0, keep_per_night=3)
+    surrogate = additive_surrogate(problem)
+    best = max(
+        surrogate.value(problem, list(sub))
+        for k in range(problem.n_candidates + 1)
+        for sub in itertools.combinations(range(problem.n_candidates), k)
+        if _feasible(problem, sub)
+    )
+    hint = greedy_plan(problem, surrogate)
+    first = joint_plan(problem, surrogate, time_limit_s=5, workers=1, hint=hint,
+                       keep_per_group=1)
+    plan = joint_plan(problem, surrogate, time_limit_s=10, workers=1, hint=hint,
+                      focus_per_group=1)
+    assert plan.objective >= first.objective - 1e-9
+    assert round(plan.objective * surrogate.scale) == best  # tiny: the second stage proves it
+    assert plan.bound >= best / surrogate.scale - 1e-9
+    assert dict(plan.stats)["focus_objective"] == pytest.approx(first.objective)
+    assert _feasible(problem, plan.candidates)
+    with pytest.raises(ValueError, match="focus_share"):
+        joint_plan(problem, surrogate, time_limit_s=1, workers=1, focus_per_group=1,
+                   focus_share=1.0)

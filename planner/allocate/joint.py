@@ -279,6 +279,8 @@ def joint_plan(
     workers: int = 2,
     hint: Plan | None = None,
     keep_per_group: int | None = None,
+    focus_per_group: int | None = None,
+    focus_share: float = 0.5,
 ) -> Plan:
     """Build and solve the joint model, hinted with ``hint`` (default: the greedy plan).
 
@@ -296,6 +298,13 @@ def joint_plan(
     keep_per_group : int, optional
         Give the solver only the best ``keep_per_group`` candidates per (target, night, option)
         by value, plus the hint's; the bound then holds for that reduced problem only.
+    focus_per_group : int, optional
+        Solve in two stages: first the problem reduced to the best ``focus_per_group``
+        candidates per group (plus the hint's) for ``focus_share`` of the time limit, then the
+        whole problem, hinted with the first stage's plan, for the rest. The plan is at least
+        the first stage's; the bound is the second stage's, so it holds for the whole problem.
+    focus_share : float
+        Share of ``time_limit_s`` given to the first stage, in (0, 1).
 
     Returns
     -------
@@ -304,6 +313,20 @@ def joint_plan(
     """
     t0 = time.perf_counter()
     hint = greedy_plan(problem, surrogate) if hint is None else hint
+    if focus_per_group is not None:
+        if not 0.0 < focus_share < 1.0:
+            raise ValueError(f"focus_share must lie strictly between 0 and 1, got {focus_share}.")
+        first = joint_plan(problem, surrogate, time_limit_s=focus_share * time_limit_s,
+                           seed=seed, workers=workers, hint=hint, keep_per_group=focus_per_group)
+        plan = joint_plan(problem, surrogate, time_limit_s=(1.0 - focus_share) * time_limit_s,
+                          seed=seed, workers=workers, hint=first, keep_per_group=keep_per_group)
+        status = plan.status
+        if status == "HINT_KEPT" and first.status != "HINT_KEPT":
+            status = "FOCUSED"  # the first stage's solution, unimproved by the second
+        stats = plan.stats + (("focus_objective", float(first.objective)),
+                              ("focus_optimal", float(first.status == "OPTIMAL")))
+        return Plan(**{**plan.__dict__, "status": status, "stats": stats,
+                       "runtime_s": time.perf_counter() - t0})
     keep = np.arange(problem.n_candidates)
     if keep_per_group is not None:
         keep = _best_per_group(problem, surrogate, keep_per_group, hint.candidates)
