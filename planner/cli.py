@@ -107,6 +107,9 @@ def _add_compare(sub) -> None:
                  "information score.", _run_compare)
     p.add_argument("--time-limit", type=float, default=None, metavar="S",
                    help="solver wall-clock limit in seconds (default: solver.time_limit_s)")
+    p.add_argument("--out", metavar="DIR", default=None,
+                   help="also write DIR/compare.json (one record per strategy)")
+    p.add_argument("--force", action="store_true", help="replace an existing DIR/compare.json")
     p.add_argument("--plot", metavar="FILE", help="also draw the comparison bar chart to FILE")
 
 
@@ -211,10 +214,24 @@ def _maybe_night_plot(args, run, result) -> None:
 
 def _run_compare(args) -> int:
     pipeline, scenario, cache = _session(args)
+    target = None
+    if args.out is not None:
+        target = Path(args.out) / "compare.json"
+        if target.exists() and not args.force:
+            from planner.errors import PlanError
+
+            raise PlanError(f"{target} already exists; pass --force to replace it or "
+                                     "choose another folder with --out.")
     posteriors = _fit(args, pipeline, scenario, cache)
     run = pipeline.prepare(scenario, posteriors)
     comparison = pipeline.compare(run, time_limit_s=args.time_limit)
     sys.stdout.write(comparison.text)
+    if target is not None:
+        from planner.compare import write_compare_json
+
+        target.parent.mkdir(parents=True, exist_ok=True)
+        write_compare_json(comparison.comparison, target)
+        sys.stderr.write(f"wrote {target}\n")
     if args.plot:
         from planner.plots import plot_comparison
 

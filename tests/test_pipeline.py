@@ -179,3 +179,25 @@ def test_prepared_surrogate_is_calibrated_and_repeatable(run):
             else:
                 moved += value != raw[mask]
     assert moved > 0
+
+
+def test_compare_command_writes_compare_json_and_keeps_an_existing_one(tmp_path, cache_dir,
+                                                                       capsys):
+    # The allocation issue's compare.json: one record per strategy with at least strategy,
+    # total_bits, visits, runtime_s and gap; an existing file is kept without --force.
+    out = tmp_path / "cmp"
+    code = main(["compare", str(TINY), "--cache", str(cache_dir), "--out", str(out),
+                 "--time-limit", "3"])
+    assert code == 0
+    doc = json.loads((out / "compare.json").read_text())
+    names = [r["strategy"] for r in doc["strategies"]]
+    assert sorted(names) == ["cadence", "greedy", "joint"]
+    for record in doc["strategies"]:
+        assert {"strategy", "total_bits", "visits", "runtime_s", "gap"} <= set(record)
+    bits = {r["strategy"]: r["total_bits"] for r in doc["strategies"]}
+    capsys.readouterr()
+    before = (out / "compare.json").read_text()
+    assert main(["compare", str(TINY), "--cache", str(cache_dir), "--out", str(out)]) == 2
+    assert "already exists; pass --force" in capsys.readouterr().err
+    assert (out / "compare.json").read_text() == before
+    assert bits["joint"] > 0
