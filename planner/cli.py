@@ -217,11 +217,7 @@ def _run_compare(args) -> int:
     target = None
     if args.out is not None:
         target = Path(args.out) / "compare.json"
-        if target.exists() and not args.force:
-            from planner.errors import PlanError
-
-            raise PlanError(f"{target} already exists; pass --force to replace it or "
-                                     "choose another folder with --out.")
+        pipeline.check_out_folder(args.out, args.force, names=(target.name,))
     posteriors = _fit(args, pipeline, scenario, cache)
     run = pipeline.prepare(scenario, posteriors)
     comparison = pipeline.compare(run, time_limit_s=args.time_limit)

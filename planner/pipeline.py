@@ -80,9 +80,10 @@ def load(path: str | Path | None) -> Scenario:
     return load_scenario(demo_scenario_path() if path is None else path)
 
 
-def check_out_folder(out: str | Path, force: bool) -> None:
-    """Fail at once, before any work, if ``out`` already holds a plan and ``force`` is off."""
-    existing = [p for p in (Path(out) / "plan.json", Path(out) / "plan.csv") if p.exists()]
+def check_out_folder(out: str | Path, force: bool,
+                     names: tuple[str, ...] = ("plan.json", "plan.csv")) -> None:
+    """Fail at once, before any work, if ``out`` holds one of ``names`` and ``force`` is off."""
+    existing = [Path(out) / name for name in names if (Path(out) / name).exists()]
     if existing and not force:
         raise PlanError(f"{existing[0]} already exists; pass --force to replace it or choose "
                         "another folder with --out.")
