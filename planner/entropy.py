@@ -43,6 +43,8 @@ _COMPRESS_BINS = 3072
 _NODE_RATIO = 1.35
 #: Up to this ratio of largest to smallest total variance one node (the weighted mean) is used.
 _ONE_NODE_RATIO = 1.02
+#: Largest ratio between the own bin widths of the columns sharing a chunk.
+_WIDTH_RATIO = 1.25
 #: Floats held by one batch of histograms or spectra (about 64 MB).
 _CHUNK_FLOATS = 1 << 23
 #: Centres handled per chunk, so that the per-sample temporaries stay in cache.
@@ -107,20 +109,21 @@ def _node_split(comp, nodes, floor):
 
 
 def _chunk_entropy(x, comp, w, extra, h, lo, size, nodes, split):
-    """Entropies [nats] of the columns of one chunk, all on grids of `size` bins.
+    """Entropies [nats] of the columns of one chunk, all on grids of `size` bins of width `h`.
 
     Time-major layout: x : (n_c, n_s) centres; comp : (1, n_s) or (n_c, n_s) component
     variances, or None (zero); w : (1, n_s) or (n_c, n_s) normalised weights, or None (equal);
-    extra : (n_q, n_c) with NaN where not wanted; h, lo : (n_c,) bin widths and the columns'
-    centre of range; nodes : variance nodes, or None (one node); split : (k, lam) from
-    `_node_split` for these components when there are nodes.
+    extra : (n_q, n_c) with NaN where not wanted; h : the chunk's bin width; lo : (n_c,) the
+    columns' centre of range; nodes : variance nodes, or None (one node); split : (k, lam) from
+    `_node_split` for these components when there are nodes (lam may have more rows than the
+    chunk: the first n_c are used).
     """
     n_c, n_s = x.shape
     n_nodes = 1 if nodes is None else nodes.size
     # Grid position; each column's (and each variance node's) block offset is added before the
     # floor as an exact integer-valued float, so one floor gives the flat histogram index.
     inv_h = 1.0 / h
-    pos = x * inv_h[:, None]
+    pos = x * inv_h
     pos += (np.arange(n_c) * (n_nodes * size) + 0.5 * size - lo * inv_h)[:, None]
     if nodes is not None:
         pos += split[0] * size
@@ -144,7 +147,8 @@ def _chunk_entropy(x, comp, w, extra, h, lo, size, nodes, split):
         hist = a_tot - b_tot
         hist[1:] += b_tot[:-1]
     else:
-        lam = np.broadcast_to(split[1], x.shape)
+        lam = split[1]
+        lam = lam[:n_c] if lam.shape[0] >= n_c else np.broadcast_to(lam, x.shape)
         ql = lam if w is None else w * lam
         a_lo = np.bincount(idx, np.ascontiguousarray(ql).ravel(), total)
         b_lo = np.bincount(idx, (ql * u).ravel(), total)
@@ -158,34 +162,36 @@ def _chunk_entropy(x, comp, w, extra, h, lo, size, nodes, split):
     if w is None:
         hist *= 1.0 / n_s
         cic /= n_s
-    if nodes is None:
-        cv = 0.0
-        if comp is not None:
-            cv = np.mean(comp, axis=1) if w is None else np.sum(w * comp, axis=1)
-        node_var = np.broadcast_to(cv - cic, (1, n_c))
-    else:
-        node_var = nodes[:, None] - cic[None, :]
-    spec = np.fft.rfft(hist.reshape(n_c, n_nodes, size), axis=-1)
-    k2 = (np.arange(size // 2 + 1) / size) ** 2
-    scale = (-2.0 * math.pi**2) * k2[None, :] / (h * h)[:, None]  # (n_c, n_f)
+    # Variance still to add to every component of a column, beyond its node's: the extra
+    # variance, less what cloud-in-cell already spread (plus the mean component variance when
+    # there is a single node).
+    base = -cic
+    if nodes is None and comp is not None:
+        base += np.mean(comp, axis=1) if w is None else np.sum(w * comp, axis=1)
+    n_f = size // 2 + 1
+    scale = (-2.0 * math.pi**2 / (h * h)) * (np.arange(n_f) / size) ** 2  # (n_f,)
     if n_nodes > 1:
-        expo = np.maximum(scale[:, None, :] * node_var.T[:, :, None], -80.0)
-        spec = np.einsum("cnf,cnf->cf", spec, np.exp(expo.astype(np.float32)))
-        base = np.zeros(n_c)
+        # The chunk shares its bin width, so each node's Gaussian factor is shared by every
+        # column; combined on the real view of the spectra (one float64 pass).
+        spec = np.fft.rfft(hist.reshape(n_c, n_nodes, size), axis=-1)
+        gauss = np.exp(np.maximum(nodes[:, None] * scale[None, :], -80.0))
+        parts = spec.view(np.float64).reshape(n_c, n_nodes, n_f, 2)
+        spec = np.einsum("cnfr,nf->cfr", parts, gauss).view(np.complex128)[..., 0]
     else:
-        spec = spec[:, 0, :]
-        base = node_var[0]
+        spec = np.fft.rfft(hist.reshape(n_c, size), axis=-1)
     out = np.full(extra.shape, np.nan)
     q_idx, c_idx = np.nonzero(np.isfinite(extra))
     step = max(1, _CHUNK_FLOATS // size)
+    log_h = math.log(h)
     for a in range(0, q_idx.size, step):
         qi, ci = q_idx[a : a + step], c_idx[a : a + step]
-        # float32 transcendental functions: relative error 1e-7, far below the grid error.
-        expo = np.maximum(scale[ci] * (extra[qi, ci] + base[ci])[:, None], -80.0)
-        p = np.fft.irfft(spec[ci] * np.exp(expo.astype(np.float32)), n=size, axis=-1)
+        # The Gaussian factor in float64: float32 rounding would put noise of about 1e-8 of
+        # the peak into every empty bin, and p log p of that noise adds up on wide grids.
+        expo = np.maximum(scale[None, :] * (extra[qi, ci] + base[ci])[:, None], -80.0)
+        p = np.fft.irfft(spec[ci] * np.exp(expo), n=size, axis=-1)
         np.maximum(p, 1e-30, out=p)
         logp = np.log(p.astype(np.float32))
-        out[qi, ci] = -np.einsum("qf,qf->q", p, logp, dtype=np.float64) + np.log(h[ci])
+        out[qi, ci] = log_h - np.einsum("qf,qf->q", p, logp, dtype=np.float64)
     return out
 
 
@@ -252,7 +258,8 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
         raise InformationError(
             f"centers has shape {x.shape}; pass a 2-D array (n_samples, n_cols) of velocities."
         )
-    if not np.all(np.isfinite(x)):
+    x_max, x_min = x.max(axis=0), x.min(axis=0)  # NaN propagates: one finiteness check
+    if not (np.all(np.isfinite(x_max)) and np.all(np.isfinite(x_min))):
         raise InformationError(
             "centers must be finite; remove NaN or infinite predicted velocities first."
         )
@@ -309,7 +316,7 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
     c_max = 0.0 if comp is None else comp.max(axis=0)
     sd_max = np.sqrt(c_max + e_max)
     h = bin_fraction * np.sqrt(e_min)
-    span = x.max(axis=0) - x.min(axis=0)
+    span = x_max - x_min
     n_bins = (span + 2 * _PAD_SIGMAS * sd_max) / h + 2
     wide = np.flatnonzero(wanted & (n_bins > _COMPRESS_BINS))
     order = None
@@ -321,7 +328,9 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
     floor = float(e_min[wanted].min())
     nodes = None if comp is None else _nodes(0.0, float(comp.max()), floor)
     n_nodes = 1 if nodes is None else nodes.size
-    mid = 0.5 * (x.max(axis=0) + x.min(axis=0))
+    mid = 0.5 * (x_max + x_min)
+    if wide.size:
+        mid[wide] = 0.5 * (x[-1, wide] + x[0, wide])  # sorted: last and first
     xt = np.ascontiguousarray(x.T)  # time-major: each column's centres contiguous
     ct = None if comp is None else np.ascontiguousarray(comp.T)
     wt = None if w is None else np.ascontiguousarray(w.T)
@@ -337,21 +346,36 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
         elif wt is not None:
             wt = np.array(np.broadcast_to(wt, xt.shape))
             wt[wide] = np.take_along_axis(wt[wide], ot, axis=1)
+    per_chunk = max(1, min(_CACHE_FLOATS // n_s, _CHUNK_FLOATS // (n_nodes * 4096)))
     split = None
     if nodes is not None and ct.shape[0] == 1:
-        split = _node_split(ct, nodes, floor)  # the same for every column
-    per_chunk = max(1, min(_CACHE_FLOATS // n_s, _CHUNK_FLOATS // (n_nodes * 4096)))
-    for a in range(0, n_c, per_chunk):
-        c = slice(a, min(a + per_chunk, n_c))
-        if not np.any(wanted[c]):
+        # The same for every column: the node shares are tiled once for a whole chunk.
+        k_low, lam = _node_split(ct, nodes, floor)
+        split = (k_low, np.repeat(lam, min(per_chunk, n_c), axis=0))
+    h_wanted = np.where(wanted, h, np.nan)
+    a = 0
+    while a < n_c:
+        b = min(a + per_chunk, n_c)
+        # A chunk shares one bin width (its finest), so its Gaussian factors are shared too;
+        # it ends before a column whose own width differs by more than _WIDTH_RATIO.
+        hw = h_wanted[a:b]
+        if np.all(np.isnan(hw)):
+            a = b
             continue
-        size = int(_SIZES[np.searchsorted(_SIZES, n_bins[c][wanted[c]].max())])
+        apart = np.flatnonzero(np.fmax.accumulate(hw) > _WIDTH_RATIO * np.fmin.accumulate(hw))
+        if apart.size:
+            b = a + int(apart[0])
+        c = slice(a, b)
+        a = b
+        h_c = float(np.nanmin(hw[: b - c.start]))
+        need = n_bins[c][wanted[c]] * (h[c][wanted[c]] / h_c)
+        size = int(_SIZES[np.searchsorted(_SIZES, need.max())])
         cc = None if ct is None else (ct[c] if ct.shape[0] > 1 else ct)
         wc = None if wt is None else (wt[c] if wt.shape[0] > 1 else wt)
         sp = None
         if nodes is not None:
             # The shared split holds only when the variances are shared by every column; a
-            # chunk of one column of per-column variances needs its own.
+            # chunk of per-column variances needs its own.
             sp = split if split is not None else _node_split(cc, nodes, floor)
-        out[:, c] = _chunk_entropy(xt[c], cc, wc, extra[:, c], h[c], mid[c], size, nodes, sp)
+        out[:, c] = _chunk_entropy(xt[c], cc, wc, extra[:, c], h_c, mid[c], size, nodes, sp)
     return out / _LN2
