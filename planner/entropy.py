@@ -152,15 +152,17 @@ def _chunk_entropy(x, comp, w, extra, h, lo, size, nodes, split):
         ql = lam if w is None else w * lam
         a_lo = np.bincount(idx, np.ascontiguousarray(ql).ravel(), total)
         b_lo = np.bincount(idx, (ql * u).ravel(), total)
-        a_tot -= a_lo
-        b_tot -= b_lo  # now the upper node's shares
+        # Both nodes' cloud-in-cell histograms: the lower node's from its shares, the upper
+        # node's as all minus lower, added one node block up.
         hist = a_lo - b_lo
         hist[1:] += b_lo[:-1]
         up = a_tot - b_tot
         up[1:] += b_tot[:-1]
+        up -= hist
         hist[size:] += up[:-size]
+    log_norm = 0.0
     if w is None:
-        hist *= 1.0 / n_s
+        log_norm = -math.log(n_s)  # equal weights 1 / n_s, applied in the Gaussian factor
         cic /= n_s
     # Variance still to add to every component of a column, beyond its node's: the extra
     # variance, less what cloud-in-cell already spread (plus the mean component variance when
@@ -188,6 +190,7 @@ def _chunk_entropy(x, comp, w, extra, h, lo, size, nodes, split):
         # The Gaussian factor in float64: float32 rounding would put noise of about 1e-8 of
         # the peak into every empty bin, and p log p of that noise adds up on wide grids.
         expo = np.maximum(scale[None, :] * (extra[qi, ci] + base[ci])[:, None], -80.0)
+        expo += log_norm
         p = np.fft.irfft(spec[ci] * np.exp(expo), n=size, axis=-1)
         np.maximum(p, 1e-30, out=p)
         logp = np.log(p.astype(np.float32))
