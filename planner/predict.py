@@ -97,10 +97,15 @@ class _Table:
     start: np.ndarray  # (n_rows,) float index of each row's first interval in the flat arrays
     coef: np.ndarray  # (n_intervals, 4) Hermite coefficients of every row's intervals
     exact_rows: np.ndarray  # sample indices solved exactly (orbits needing > MAX_NODES nodes)
+    with_offset: bool  # the constant terms include each sample's offset (every row tabulated)
 
 
-def _build_table(p, k, e, w, planet, tolerance):
-    """Tabulate every sample of one planet that can be tabulated; see :class:`_Table`."""
+def _build_table(p, k, e, w, planet, tolerance, offset=None):
+    """Tabulate every sample of one planet that can be tabulated; see :class:`_Table`.
+
+    When `offset` (n_samples,) is given and every sample is tabulated, it is folded into the
+    constant Hermite terms, so that evaluating the table gives planet plus offset in one pass.
+    """
     need = nodes_for(e, k, tolerance)
     rows = np.flatnonzero(need > 0)
     exact_rows = np.flatnonzero(need == 0)
@@ -113,8 +118,11 @@ def _build_table(p, k, e, w, planet, tolerance):
         r = rows[sel]
         tab = _planet_table(p[r], k[r], e[r], w[r], int(n))  # (n_sel, n + 1, 4)
         flat[(start[sel, None] + np.arange(n + 1)[None, :]).ravel()] = tab.reshape(-1, 4)
+    fold = offset is not None and rows.size == need.size
+    if fold:
+        flat[:, 0] += np.repeat(offset, n_rows + 1)
     return _Table(planet, None if rows.size == need.size else rows, n_rows.astype(float),
-                  start.astype(float), flat, exact_rows)
+                  start.astype(float), flat, exact_rows, fold)
 
 
 @dataclass(frozen=True, eq=False)
@@ -222,8 +230,8 @@ class Predictor:
         if np.any(jit < 0):
             raise InformationError("jitter must be non-negative; pass its absolute value.")
         tr = per_sample("trend", 0.0 if trend is None else trend)
-        tables = tuple(_build_table(p[:, j], k[:, j], e[:, j], w[:, j], j, tolerance)
-                       for j in range(shape[1]))
+        tables = tuple(_build_table(p[:, j], k[:, j], e[:, j], w[:, j], j, tolerance,
+                                    off if j == 0 else None) for j in range(shape[1]))
         return cls(p, k, e, w, tp, off, jit, tr, float(t_ref), float(tolerance), tables)
 
     @classmethod
@@ -287,10 +295,17 @@ class Predictor:
         for a in range(0, t.size, step):
             tb = t[a : a + step]
             block = out[a : a + step]
-            block[:] = self.offset
+            tables = self._tables
+            first = tables[0]
+            if not exact and first.with_offset:
+                # The first planet's table carries the offset: its values fill the block.
+                _hermite(tb, self.period[:, 0], self.time_periastron[:, 0], first, out=block)
+                tables = tables[1:]
+            else:
+                block[:] = self.offset
             if has_trend:
                 block += (tb - self.t_ref)[:, None] * self.trend
-            for tab in self._tables:
+            for tab in tables:
                 self._add_planet(block, tb, tab, exact)
         return out.T
 
@@ -316,8 +331,8 @@ class Predictor:
                 self.eccentricity[r, pl], self.omega[r, pl], self.time_periastron[r, pl])
 
 
-def _hermite(t, period, tp, tab):
-    """Evaluate a planet's tables at times t -> (n_t, n_rows), time-major."""
+def _hermite(t, period, tp, tab, out=None):
+    """Evaluate a planet's tables at times t -> (n_t, n_rows), time-major (into `out`)."""
     x = t[:, None] - tp
     x *= 1.0 / period  # orbital phase, any revolution
     x -= np.floor(x)
@@ -334,5 +349,4 @@ def _hermite(t, period, tp, tab):
     v *= x
     v += c[..., 1]
     v *= x
-    v += c[..., 0]
-    return v
+    return np.add(v, c[..., 0], out=out)
