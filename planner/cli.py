@@ -80,6 +80,9 @@ def _add_curves(sub) -> None:
                  "run (best time and value per night).", _run_curves)
     p.add_argument("--target", metavar="ID", action="append", help="only this target (repeat)")
     p.add_argument("--plot", metavar="FILE", help="also draw the curves to FILE (needs matplotlib)")
+    p.add_argument("--about", choices=("period", "alias"), default=None,
+                   help="also print the bits about part of the orbit: 'period' (a lower bound "
+                        "from equal-count period intervals) or 'alias' (which period mode)")
 
 
 def _plan_options(p, out_default: str | None) -> None:
@@ -179,6 +182,16 @@ def _run_curves(args) -> int:
     from planner.report import curves_summary
 
     sys.stdout.write(curves_summary(run, args.target))
+    if args.about:
+        from dataclasses import replace
+
+        from planner.subset import run_label_bits
+
+        what = {"period": "the period alone (a lower bound: equal-count period intervals)",
+                "alias": "which period mode (alias) is right"}[args.about]
+        sys.stdout.write(f"\nabout {what}, first signal:\n")
+        part = replace(run, bits=run_label_bits(run, args.about, args.target))
+        sys.stdout.write(curves_summary(part, args.target))
     if args.plot:
         from planner.plots import plot_curves
 
