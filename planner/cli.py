@@ -190,7 +190,7 @@ def _run_curves(args) -> int:
         what = {"period": "the period alone (a lower bound: equal-count period intervals)",
                 "alias": "which period mode (alias) is right"}[args.about]
         sys.stdout.write(f"\nabout {what}, first signal:\n")
-        part = replace(run, bits=run_label_bits(run, args.about, args.target))
+        part = replace(run, bits=run_label_bits(run, args.about, args.target, jobs=args.jobs))
         sys.stdout.write(curves_summary(part, args.target))
     if args.plot:
         from planner.plots import plot_curves

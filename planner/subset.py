@@ -18,12 +18,19 @@ holds too few samples. See "Information about part of the parameters" in
 from __future__ import annotations
 
 import math
+import os
 from dataclasses import dataclass
 
 import numpy as np
 
 from .entropy import InformationError, mixture_entropy_bits
-from .information import _check_pair, _log_likelihoods, _outcomes, noise_entropy_bits
+from .information import (
+    _check_pair,
+    _log_likelihoods,
+    _outcomes,
+    mean_log_shifted,
+    noise_entropy_bits,
+)
 
 __all__ = [
     "ABOUT",
@@ -249,16 +256,41 @@ def _shuffled(lab, seed):
     return lab[np.random.default_rng(seed).permutation(lab.size)]
 
 
-def _conditional_entropy_bits(v, var, lab):
-    """sum_m w_m H(y | Q = m) per column, each term held at or above its mean noise entropy."""
-    h_cond = np.zeros(v.shape[1])
+def _noise_rows(var, extra):
+    """Mean noise entropy [bits] of components `var` plus each row of `extra`, (n_x, n_cols)."""
+    if extra is None:
+        return noise_entropy_bits(np.sqrt(var), (var.shape[0], var.shape[1]))[None, :]
+    out = np.full(extra.shape, np.nan)
+    wanted = np.isfinite(extra)
+    out[wanted] = (mean_log_shifted(var[:, 0], extra[wanted]) + math.log(2 * math.pi * math.e)
+                   ) / (2 * math.log(2.0))
+    return out
+
+
+def _conditional_entropy_bits(v, var, extra, lab):
+    """sum_m w_m H(y | Q = m), (n_x, n_cols); each term held at or above its noise entropy."""
+    h_cond = 0.0
     for m in range(int(lab.max()) + 1):
         mine = lab == m
         var_m = var[mine] if var.shape[0] > 1 else var
-        noise = noise_entropy_bits(np.sqrt(var_m), (int(mine.sum()), v.shape[1]))
-        h_m = mixture_entropy_bits(v[mine], var_m)[0]
-        h_cond += mine.mean() * np.maximum(h_m, noise)
+        h_m = mixture_entropy_bits(v[mine], var_m, extra)
+        h_cond = h_cond + mine.mean() * np.fmax(h_m, _noise_rows(var_m, extra))
     return h_cond
+
+
+def _label_table(v, var, extra, lab, baseline, seed):
+    """Bits about the labels per row of `extra` and column, (n_x, n_cols); NaN where unwanted.
+
+    `var` is the component variance, (1, n_cols) or (n_samples, n_cols) when `extra` is None,
+    else (n_samples, 1) (each sample's jitter squared), and `extra` (n_x, n_cols) the
+    measurement variance of each row (NaN where not wanted).
+    """
+    h_all = mixture_entropy_bits(v, var, extra)
+    bits = np.maximum(h_all - _conditional_entropy_bits(v, var, extra, lab), 0.0)
+    if baseline and lab.max() > 0:
+        excess = h_all - _conditional_entropy_bits(v, var, extra, _shuffled(lab, seed))
+        bits = np.maximum(bits - np.maximum(excess, 0.0), 0.0)
+    return bits
 
 
 def label_bits(predicted, sigma, labels, baseline=True, seed=0):
@@ -300,13 +332,10 @@ def label_bits(predicted, sigma, labels, baseline=True, seed=0):
     """
     v, s = _check_pair(predicted, sigma, "predicted")
     lab = _label_index(labels, v.shape[0])
+    if v.shape[1] == 0:
+        return np.zeros(0)
     var = np.broadcast_to(s * s, np.broadcast_shapes(s.shape, (1, v.shape[1])))
-    h_all = mixture_entropy_bits(v, var)[0]
-    bits = np.maximum(h_all - _conditional_entropy_bits(v, var, lab), 0.0)
-    if baseline and lab.max() > 0:
-        excess = h_all - _conditional_entropy_bits(v, var, _shuffled(lab, seed))
-        bits = np.maximum(bits - np.maximum(excess, 0.0), 0.0)
-    return bits
+    return _label_table(v, var, None, lab, baseline, seed)[0]
 
 
 def _label_gains(log_l, lab, shares):
@@ -377,7 +406,26 @@ def _target_labelling(predictor, about):
     return interval_labels(period, parameter="period")
 
 
-def run_label_bits(run, about="period", targets=None):
+def _mid_columns(night_index, cols, shift):
+    """Return the grid column `shift` steps after each of `cols`, held inside the same night."""
+    last = np.searchsorted(night_index, night_index[cols], side="right") - 1
+    return np.minimum(cols + shift, last)
+
+
+def _target_table(work):
+    """Bits about one target's labels at its observable starts, per exposure option."""
+    predictor, about, starts, mids, sigma, bjd = work
+    columns = np.unique(np.concatenate(mids))
+    where = [np.searchsorted(columns, mid) for mid in mids]
+    extra = np.full((len(starts), columns.size), np.nan)
+    for o, cols in enumerate(starts):
+        extra[o, where[o]] = sigma[o, cols] ** 2
+    table = _label_table(predictor.velocities(bjd[columns]), predictor.jitter[:, None] ** 2,
+                         extra, _target_labelling(predictor, about).labels, True, 0)
+    return [table[o, where[o]] for o in range(len(starts))]
+
+
+def run_label_bits(run, about="period", targets=None, jobs=1):
     """One-visit bits about the period of the first signal, on a prepared run's sky grid.
 
     Parameters
@@ -388,27 +436,38 @@ def run_label_bits(run, about="period", targets=None):
         about the period); ``"alias"``: the period modes of :func:`period_modes`.
     targets : sequence of str, optional
         Only these targets (others get zeros); default all.
+    jobs : int or None, optional
+        Worker processes over targets (None: every core; 1: this process).
 
     Returns
     -------
     bits : ndarray, shape (n_options, n_targets, n_sky)
         Like ``run.bits``: zero where a start is not observable. Velocities are predicted at
-        the exact mid-exposure time, and no executed visits are conditioned on.
+        the sky-grid time nearest mid-exposure within the night (as the full curves are), all
+        exposure options of a target in one pass; no executed visits are conditioned on.
     """
+    from concurrent.futures import ProcessPoolExecutor
+
     if about not in ABOUT:
         raise InformationError(f"unknown subset {about!r}; choose one of {', '.join(ABOUT)}.")
     wanted = set(targets or [t.id for t in run.scenario.targets])
+    chosen = [s for s, t in enumerate(run.scenario.targets)
+              if t.id in wanted and run.observable[:, s].any()]
+    work = []
+    for s in chosen:
+        starts = [np.flatnonzero(run.observable[o, s]) for o in range(len(run.exposures))]
+        mids = [_mid_columns(run.sky.night_index, cols, int(round(0.5 * e / run.sky.step_s)))
+                for cols, e in zip(starts, run.exposures, strict=True)]
+        work.append((run.predictors[s], about, starts, mids, run.sigma[:, s],
+                     run.sky.bjd_tdb[s]))
+    workers = max(1, min(jobs or os.cpu_count() or 1, len(work)))
+    if workers > 1:
+        with ProcessPoolExecutor(workers) as pool:
+            tables = list(pool.map(_target_table, work))
+    else:
+        tables = [_target_table(item) for item in work]
     bits = np.zeros(run.observable.shape)
-    for s, target in enumerate(run.scenario.targets):
-        if target.id not in wanted:
-            continue
-        predictor = run.predictors[s]
-        labels = _target_labelling(predictor, about)
-        for o, exposure in enumerate(run.exposures):
-            cols = np.flatnonzero(run.observable[o, s])
-            if cols.size == 0:
-                continue
-            v = predictor.velocities(run.sky.bjd_tdb[s, cols] + 0.5 * exposure / 86400.0)
-            total = np.sqrt(run.sigma[o, s, cols][None, :] ** 2 + predictor.jitter[:, None] ** 2)
-            bits[o, s, cols] = label_bits(v, total, labels)
+    for s, item, table in zip(chosen, work, tables, strict=True):
+        for o, cols in enumerate(item[2]):
+            bits[o, s, cols] = table[o]
     return bits

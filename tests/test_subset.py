@@ -219,6 +219,40 @@ def cache_dir(tmp_path_factory):
     return tmp_path_factory.getbasetemp() / "nightbits-cache"
 
 
+@pytest.fixture(scope="session")
+def tiny_run(cache_dir):
+    from planner import pipeline
+
+    scenario = pipeline.load(TINY)
+    return pipeline.prepare(scenario, pipeline.fit_posteriors(scenario, cache_dir, jobs=1), jobs=1)
+
+
+def test_run_bits_match_the_array_core_and_stay_below_the_full_curves(tiny_run):
+    # Data processing (Cover and Thomas 2006): never above the full one-visit bits of the same
+    # starts; and the run path (all options in one pass, worker processes) gives what the
+    # array core gives for one option's starts, predicted at the same mid-exposure columns.
+    from planner.subset import run_label_bits
+
+    run = tiny_run
+    one = run_label_bits(run, "period", jobs=1)
+    assert np.all(one[~run.observable] == 0.0)
+    assert np.all(one <= run.bits + 1e-6) and one.max() > 0.05
+    np.testing.assert_allclose(run_label_bits(run, "period", jobs=2), one, rtol=0, atol=1e-12)
+    s, o = 0, 1
+    predictor = run.predictors[s]
+    cols = np.flatnonzero(run.observable[o, s])
+    mid = cols + int(round(0.5 * run.exposures[o] / run.sky.step_s))
+    v = predictor.velocities(run.sky.bjd_tdb[s, mid])
+    sig = np.sqrt(run.sigma[o, s, cols][None, :] ** 2 + predictor.jitter[:, None] ** 2)
+    labels = interval_labels(predictor.period[:, 0])
+    # Two runs of the entropy core, each within 1e-3 bit of quadrature (docs/information.md);
+    # the run path bins the options' centres together, with the finer option's bin width.
+    np.testing.assert_allclose(one[o, s, cols], label_bits(v, sig, labels), atol=2e-3)
+    assert label_bits(v[:, :0], sig[:, :0], labels).shape == (0,)
+    only = run_label_bits(run, "alias", targets=[run.scenario.targets[2].id])
+    assert np.all(only[:, :2] == 0.0)
+
+
 def _tables(text):
     """Best bits per target and night from each curves table in the printed output."""
     tables = []
