@@ -43,8 +43,9 @@ _COMPRESS_BINS = 3072
 _NODE_RATIO = 1.35
 #: Up to this ratio of largest to smallest total variance one node (the weighted mean) is used.
 _ONE_NODE_RATIO = 1.02
-#: Largest ratio between the own bin widths of the columns sharing a chunk.
-_WIDTH_RATIO = 1.25
+#: Ratio between rungs of the ladder onto which each column's smallest extra variance is
+#: rounded down (a quarter octave): its bin width is at most 9 % finer than its own would be.
+_LADDER = 2.0**0.25
 #: Floats held by one batch of histograms or spectra (about 64 MB).
 _CHUNK_FLOATS = 1 << 23
 #: Centres handled per chunk, so that the per-sample temporaries stay in cache.
@@ -316,9 +317,15 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
             "error or jitter), so give the exposure's sigma or a jitter above zero."
         )
     e_min = np.where(wanted, e_min, 1.0)  # columns not wanted: any positive placeholder
+    # Each column's smallest extra variance, rounded down onto a geometric ladder, sets its bin
+    # width and variance nodes. Both then depend on the column alone (not on which columns
+    # share the call), and neighbouring columns on one rung share their Gaussian factors.
+    # (A variance on a rung, up to rounding, stays on it.)
+    level = np.floor(np.log(e_min) / math.log(_LADDER) + 1e-9).astype(np.int64)
+    e_rung = _LADDER ** level.astype(float)
     c_max = 0.0 if comp is None else comp.max(axis=0)
     sd_max = np.sqrt(c_max + e_max)
-    h = bin_fraction * np.sqrt(e_min)
+    h = bin_fraction * np.sqrt(e_rung)
     span = x_max - x_min
     n_bins = (span + 2 * _PAD_SIGMAS * sd_max) / h + 2
     wide = np.flatnonzero(wanted & (n_bins > _COMPRESS_BINS))
@@ -328,8 +335,9 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
         x[:, wide], order = _compress_gaps(x[:, wide], sd_max[wide])
         span[wide] = x[:, wide].max(axis=0) - x[:, wide].min(axis=0)
         n_bins[wide] = (span[wide] + 2 * _PAD_SIGMAS * sd_max[wide]) / h[wide] + 2
-    floor = float(e_min[wanted].min())
-    nodes = None if comp is None else _nodes(0.0, float(comp.max()), floor)
+    c_top = 0.0 if comp is None else float(comp.max())
+    # The most variance nodes any rung needs (the lowest rung's), for sizing the chunks.
+    nodes = None if comp is None else _nodes(0.0, c_top, float(e_rung[wanted].min()))
     n_nodes = 1 if nodes is None else nodes.size
     mid = 0.5 * (x_max + x_min)
     if wide.size:
@@ -350,35 +358,38 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
             wt = np.array(np.broadcast_to(wt, xt.shape))
             wt[wide] = np.take_along_axis(wt[wide], ot, axis=1)
     per_chunk = max(1, min(_CACHE_FLOATS // n_s, _CHUNK_FLOATS // (n_nodes * 4096)))
-    split = None
-    if nodes is not None and ct.shape[0] == 1:
-        # The same for every column: the node shares are tiled once for a whole chunk.
-        k_low, lam = _node_split(ct, nodes, floor)
-        split = (k_low, np.repeat(lam, min(per_chunk, n_c), axis=0))
-    h_wanted = np.where(wanted, h, np.nan)
-    a = 0
-    while a < n_c:
-        b = min(a + per_chunk, n_c)
-        # A chunk shares one bin width (its finest), so its Gaussian factors are shared too;
-        # it ends before a column whose own width differs by more than _WIDTH_RATIO.
-        hw = h_wanted[a:b]
-        if np.all(np.isnan(hw)):
-            a = b
+    rungs = {}  # per rung: its variance nodes and, when shared by every column, node shares
+
+    def rung_nodes(lv):
+        if lv not in rungs:
+            floor = float(_LADDER**lv)
+            nd = _nodes(0.0, c_top, floor)
+            shared = None
+            if nd is not None and ct.shape[0] == 1:
+                # The same for every column: the node shares are tiled once for a chunk.
+                k_low, lam = _node_split(ct, nd, floor)
+                shared = (k_low, np.repeat(lam, min(per_chunk, n_c), axis=0))
+            rungs[lv] = (nd, floor, shared)
+        return rungs[lv]
+
+    # Chunks: runs of consecutive wanted columns on one rung, at most per_chunk long.
+    key = np.where(wanted, level, np.iinfo(np.int64).min)
+    edges = np.concatenate([[0], np.flatnonzero(np.diff(key)) + 1, [n_c]])
+    for lo_run, hi_run in zip(edges[:-1], edges[1:], strict=True):
+        if not wanted[lo_run]:
             continue
-        apart = np.flatnonzero(np.fmax.accumulate(hw) > _WIDTH_RATIO * np.fmin.accumulate(hw))
-        if apart.size:
-            b = a + int(apart[0])
-        c = slice(a, b)
-        a = b
-        h_c = float(np.nanmin(hw[: b - c.start]))
-        need = n_bins[c][wanted[c]] * (h[c][wanted[c]] / h_c)
-        size = int(_SIZES[np.searchsorted(_SIZES, need.max())])
-        cc = None if ct is None else (ct[c] if ct.shape[0] > 1 else ct)
-        wc = None if wt is None else (wt[c] if wt.shape[0] > 1 else wt)
-        sp = None
-        if nodes is not None:
-            # The shared split holds only when the variances are shared by every column; a
-            # chunk of per-column variances needs its own.
-            sp = split if split is not None else _node_split(cc, nodes, floor)
-        out[:, c] = _chunk_entropy(xt[c], cc, wc, extra[:, c], h_c, mid[c], size, nodes, sp)
+        nd, floor, shared = rung_nodes(int(level[lo_run])) if comp is not None else (
+            None, None, None)
+        h_c = float(h[lo_run])
+        for a in range(int(lo_run), int(hi_run), per_chunk):
+            c = slice(a, min(a + per_chunk, int(hi_run)))
+            size = int(_SIZES[np.searchsorted(_SIZES, n_bins[c].max())])
+            cc = None if ct is None else (ct[c] if ct.shape[0] > 1 else ct)
+            wc = None if wt is None else (wt[c] if wt.shape[0] > 1 else wt)
+            sp = shared
+            if nd is not None and sp is None:
+                # Shares shared by every column need variances shared by every column; a
+                # chunk of per-column variances needs its own.
+                sp = _node_split(cc, nd, floor)
+            out[:, c] = _chunk_entropy(xt[c], cc, wc, extra[:, c], h_c, mid[c], size, nd, sp)
     return out / _LN2
