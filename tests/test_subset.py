@@ -236,7 +236,9 @@ def test_run_bits_match_the_array_core_and_stay_below_the_full_curves(tiny_run):
     run = tiny_run
     one = run_label_bits(run, "period", jobs=1)
     assert np.all(one[~run.observable] == 0.0)
-    assert np.all(one <= run.bits + 1e-6) and one.max() > 0.05
+    # Tolerance: the two sides are separate runs of the entropy core (each within 1e-3 bit of
+    # quadrature) and the full curves fill some grid times by a midpoint rule (1e-4 bit).
+    assert np.all(one <= run.bits + 2e-3) and one.max() > 0.05
     np.testing.assert_allclose(run_label_bits(run, "period", jobs=2), one, rtol=0, atol=1e-12)
     s, o = 0, 1
     predictor = run.predictors[s]
