@@ -134,7 +134,9 @@ def test_slew_gap_appears_between_far_targets_and_vanishes_without_slews():
             assert second.slew_s == 0.0
 
 
-def test_tiny_time_limit_still_returns_the_hint_and_a_gap():
+def test_tiny_time_limit_returns_the_hint_and_claims_no_bound():
+    # With no search CP-SAT's best objective bound is 0 (measured: status UNKNOWN), which is
+    # no bound at all; reporting max(0, objective) would claim a proven 0 % gap.
     rng = np.random.default_rng(7)
     problem = grid_instance(12, 2, rng=rng, hours=4.0, step_min=5, keep_per_night=6,
                             exposure_s=(600.0, 1200.0))
@@ -142,8 +144,8 @@ def test_tiny_time_limit_still_returns_the_hint_and_a_gap():
     hint = greedy_plan(problem, surrogate)
     plan = joint_plan(problem, surrogate, time_limit_s=1e-3, workers=1, hint=hint)
     assert plan.objective >= hint.objective - 1e-9
-    assert plan.gap is not None and plan.gap >= 0.0
-    assert plan.bound >= plan.objective - 1e-9
+    assert plan.status == "HINT_ONLY"
+    assert plan.bound is None and plan.gap is None
 
 
 def test_build_and_solve_are_separate_and_report_the_bound():
