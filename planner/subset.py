@@ -10,9 +10,13 @@ their share. For the sample posterior this is exact for one visit (the same dete
 mixture-entropy core as :func:`planner.information.one_visit_bits`); for a set of visits it is
 H(Q) - E_d H(Q | d), averaged over simulated outcomes with exact class posteriors. For a
 continuous parameter cut into intervals it is a lower bound on the information about the
-parameter itself (data processing; Cover and Thomas 2006), biased upward when an interval
-holds too few samples. See "Information about part of the parameters" in
+parameter itself (data processing; Cover and Thomas 2006). A label with few samples makes the
+sample value too high; by default the same computation for the labels dealt to the samples at
+random (true value zero) is subtracted. See "Information about part of the parameters" in
 ``docs/information.md`` for the measured trade-off behind the defaults.
+
+Layers: the functions on arrays are the core; :func:`run_label_bits` is the orchestration on
+a prepared run that ``nightbits curves --about`` prints.
 """
 
 from __future__ import annotations
