@@ -188,7 +188,7 @@ def _run_curves(args) -> int:
         from planner.subset import run_label_bits
 
         what = {"period": "the period alone (a lower bound: equal-count period intervals)",
-                "alias": "which period mode (alias) is right"}[args.about]
+                "alias": "which period mode (alias) is right (0 for a single mode)"}[args.about]
         sys.stdout.write(f"\nabout {what}, first signal:\n")
         part = replace(run, bits=run_label_bits(run, args.about, args.target, jobs=args.jobs))
         sys.stdout.write(curves_summary(part, args.target))
