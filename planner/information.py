@@ -20,11 +20,14 @@ from .entropy import InformationError, mixture_entropy_bits
 __all__ = [
     "InformationError",
     "JointEstimate",
+    "check_predictions",
     "conditional_bits",
     "joint_bits",
     "mean_log_shifted",
     "noise_entropy_bits",
     "one_visit_bits",
+    "outcome_log_likelihoods",
+    "simulate_outcomes",
 ]
 
 _LN2 = math.log(2.0)
@@ -54,7 +57,22 @@ class JointEstimate:
     n_outcomes: int
 
 
-def _check_pair(predicted, sigma, what):
+def check_predictions(predicted, sigma, what):
+    """Return (predicted, sigma) as arrays after checking them; one clear error otherwise.
+
+    Parameters
+    ----------
+    predicted : array_like, shape (n_samples, n_times)
+        Predicted velocities [m/s].
+    sigma : array_like, broadcastable to `predicted`
+        Total noise standard deviations [m/s], finite and positive.
+    what : str
+        Name of `predicted` in the error sentence.
+
+    Returns
+    -------
+    v, s : ndarray
+    """
     v = np.asarray(predicted, dtype=float)
     if v.ndim != 2:
         raise InformationError(
@@ -171,7 +189,7 @@ def one_visit_bits(predicted, sigma, weights=None):
     Lindley (1956) expected information; maximum entropy sampling (Shewry and Wynn 1987). The
     mixture entropy is deterministic (``planner.entropy``), within 1e-3 bit of quadrature.
     """
-    v, s = _check_pair(predicted, sigma, "predicted")
+    v, s = check_predictions(predicted, sigma, "predicted")
     w = None
     if weights is not None:
         w = np.asarray(weights, dtype=float)
@@ -184,8 +202,25 @@ def one_visit_bits(predicted, sigma, weights=None):
     return np.maximum(h_mix - noise_entropy_bits(s, v.shape, w), 0.0)
 
 
-def _outcomes(v, s, rng, n_outcomes):
-    """Simulate outcomes of a set from the sample-posterior predictive (balanced draws)."""
+def simulate_outcomes(v, s, rng, n_outcomes):
+    """Simulate outcomes of a set of visits from the sample-posterior predictive.
+
+    Balanced draws: every sample is used equally often (up to one) across the outcomes.
+
+    Parameters
+    ----------
+    v : ndarray, shape (n_samples, n_visits)
+        Predicted velocities [m/s].
+    s : ndarray, broadcastable to `v`
+        Total noise standard deviations [m/s].
+    rng : numpy.random.Generator
+    n_outcomes : int
+
+    Returns
+    -------
+    y : ndarray, shape (n_outcomes, n_visits)
+        Simulated velocities [m/s].
+    """
     n_s = v.shape[0]
     blocks = -(-n_outcomes // n_s)
     pick = np.concatenate([rng.permutation(n_s) for _ in range(blocks)])[:n_outcomes]
@@ -193,8 +228,23 @@ def _outcomes(v, s, rng, n_outcomes):
     return v[pick] + s_full[pick] * rng.standard_normal((n_outcomes, v.shape[1]))
 
 
-def _log_likelihoods(y, v, s):
-    """Return log prod_v N(y_mv; v_iv, s_iv^2) for outcomes y (M, V), shape (M, n_s), nats."""
+def outcome_log_likelihoods(y, v, s):
+    """Return log prod_v N(y_mv; v_iv, s_iv^2) for outcomes y (M, V), shape (M, n_s), nats.
+
+    Parameters
+    ----------
+    y : ndarray, shape (n_outcomes, n_visits)
+        Outcomes [m/s].
+    v : ndarray, shape (n_samples, n_visits)
+        Predicted velocities [m/s].
+    s : ndarray, broadcastable to `v`
+        Total noise standard deviations [m/s].
+
+    Returns
+    -------
+    log_l : ndarray, shape (n_outcomes, n_samples)
+        Log-likelihood of each outcome under each sample [nats].
+    """
     inv = 1.0 / np.broadcast_to(s, v.shape) ** 2
     centre = v.mean(axis=0)
     vc, yc = v - centre, y - centre
@@ -242,14 +292,14 @@ def joint_bits(predicted, sigma, rng, n_outcomes=512):
     closed form, removes most of the variance (coefficient fitted by least squares, bias
     O(1/n_outcomes)). E_theta H(d_S | theta) is closed form. Lindley (1956).
     """
-    v, s = _check_pair(predicted, sigma, "predicted")
+    v, s = check_predictions(predicted, sigma, "predicted")
     n_s, n_v = v.shape
     if n_v == 0:
         return JointEstimate(0.0, 0.0, 0)
     if int(n_outcomes) < 2:
         raise InformationError("n_outcomes must be at least 2 to give an error bar.")
-    y = _outcomes(v, s, rng, int(n_outcomes))
-    log_p = _logsumexp_rows(_log_likelihoods(y, v, s)) - math.log(n_s)
+    y = simulate_outcomes(v, s, rng, int(n_outcomes))
+    log_p = _logsumexp_rows(outcome_log_likelihoods(y, v, s)) - math.log(n_s)
     h_samples = -log_p
     # Moment-matched Gaussian control variate.
     var_mean = np.mean(np.broadcast_to(s, v.shape) ** 2, axis=0)
@@ -301,8 +351,8 @@ def conditional_bits(predicted_set, sigma_set, predicted_new, sigma_new, rng, n_
     stderr : ndarray, shape (n_times,)
         Only if `return_stderr`: standard error of `bits`.
     """
-    vs, ss = _check_pair(predicted_set, sigma_set, "predicted_set")
-    vn, sn = _check_pair(predicted_new, sigma_new, "predicted_new")
+    vs, ss = check_predictions(predicted_set, sigma_set, "predicted_set")
+    vn, sn = check_predictions(predicted_new, sigma_new, "predicted_new")
     if vs.shape[0] != vn.shape[0]:
         raise InformationError(
             f"predicted_set has {vs.shape[0]} samples but predicted_new has {vn.shape[0]}; "
@@ -311,8 +361,8 @@ def conditional_bits(predicted_set, sigma_set, predicted_new, sigma_new, rng, n_
     if vs.shape[1] == 0:
         bits = one_visit_bits(vn, sn)
         return (bits, np.zeros_like(bits)) if return_stderr else bits
-    y = _outcomes(vs, ss, rng, int(n_outcomes))
-    log_w = _log_likelihoods(y, vs, ss)
+    y = simulate_outcomes(vs, ss, rng, int(n_outcomes))
+    log_w = outcome_log_likelihoods(y, vs, ss)
     log_w -= logsumexp(log_w, axis=1, keepdims=True)
     gains = np.empty((y.shape[0], vn.shape[1]))
     var_n = sn * sn

@@ -29,11 +29,11 @@ import numpy as np
 
 from .entropy import InformationError, mixture_entropy_bits
 from .information import (
-    _check_pair,
-    _log_likelihoods,
-    _outcomes,
+    check_predictions,
     mean_log_shifted,
     noise_entropy_bits,
+    outcome_log_likelihoods,
+    simulate_outcomes,
 )
 
 __all__ = [
@@ -334,7 +334,7 @@ def label_bits(predicted, sigma, labels, baseline=True, seed=0):
     so it errs towards subtracting too much: the result stays a lower bound (measured in
     ``docs/information.md``).
     """
-    v, s = _check_pair(predicted, sigma, "predicted")
+    v, s = check_predictions(predicted, sigma, "predicted")
     lab = _label_index(labels, v.shape[0])
     if v.shape[1] == 0:
         return np.zeros(0)
@@ -385,7 +385,7 @@ def label_joint_bits(predicted, sigma, labels, rng, n_outcomes=512, baseline=Tru
     the sample posterior: no nested Monte Carlo. Each outcome's term H(Q) - H(Q | d) lies in
     [H(Q) - log2 n_labels, H(Q)], so the error bar ``std / sqrt(n_outcomes)`` is reliable.
     """
-    v, s = _check_pair(predicted, sigma, "predicted")
+    v, s = check_predictions(predicted, sigma, "predicted")
     lab = _label_index(labels, v.shape[0])
     shares = np.bincount(lab) / lab.size
     prior = float(-np.sum(shares * np.log2(shares)))
@@ -393,8 +393,8 @@ def label_joint_bits(predicted, sigma, labels, rng, n_outcomes=512, baseline=Tru
         return LabelEstimate(0.0, 0.0, prior, 0)
     if int(n_outcomes) < 2:
         raise InformationError("n_outcomes must be at least 2 to give an error bar.")
-    y = _outcomes(v, s, rng, int(n_outcomes))
-    log_l = _log_likelihoods(y, v, s)
+    y = simulate_outcomes(v, s, rng, int(n_outcomes))
+    log_l = outcome_log_likelihoods(y, v, s)
     log_l -= log_l.max(axis=1, keepdims=True)
     gain = _label_gains(log_l, lab, shares)
     if baseline:
