@@ -40,7 +40,9 @@ from __future__ import annotations
 import itertools
 import logging
 import math
+import os
 from collections.abc import Sequence
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -459,7 +461,8 @@ def _caps(problem: Problem) -> list:
 
 
 def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000,
-                    rng: np.random.Generator | None = None, n_outcomes: int = 256) -> Surrogate:
+                    rng: np.random.Generator | None = None, n_outcomes: int = 256,
+                    workers: int | None = None) -> Surrogate:
     """Build the visit-pattern surrogate from each target's posterior predictions.
 
     Parameters
@@ -476,7 +479,10 @@ def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000
         (:func:`pattern_bits`, ``n_outcomes`` shared outcomes per target); without it, by the
         rescaled Gaussian information.
     n_outcomes : int
-        Simulated outcomes per target.
+        Simulated outcomes per target (each target draws from its own child of ``rng``).
+    workers : int, optional
+        Threads for the exact pattern values (None: one per core). The result does not
+        depend on it.
 
     Returns
     -------
@@ -492,44 +498,42 @@ def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000
     caps = _caps(problem)
     slots = np.zeros((problem.n_targets, n_n, max(caps, default=1)))
     rho = np.ones(problem.n_targets)
-    patterns = []
+    streams = [None] * problem.n_targets if rng is None else rng.spawn(problem.n_targets)
+    jobs, layout = [], []
     for s in range(problem.n_targets):
         rule = problem.rules[s]
         reps = _slot_representatives(problem, s, max(rule.min_spacing_min, 60), caps[s])
-        nights = sorted(reps)
-        if not nights:
-            patterns.append({0: 0})
+        if not reps:
+            layout.append(None)
             continue
         cols, keys, requires, top, count = _columns(problem, s, reps, caps[s])
         pred = np.asarray(predictors[s].velocities(problem.bjd_mid[cols]), dtype=float)
         jitter = np.asarray(predictors[s].jitter, dtype=float)
-        exact = problem.bits[cols]
-        if rng is not None and count * n_outcomes * pred.shape[0] <= EXACT_BUDGET:
-            sigma = np.sqrt(problem.sigma[cols][None, :] ** 2 + jitter[:, None] ** 2)
-            found = pattern_bits(pred, sigma, requires, top, rng, n_outcomes)
-            values = {mask: (float(exact[_cols_of(mask)].sum()) if bin(mask).count("1") <= 1
-                             else bits) for mask, (bits, _) in found.items()}
-        else:
-            noise = problem.sigma[cols] ** 2 + np.mean(jitter**2)
-            cov = np.atleast_2d(np.cov(pred, rowvar=False))
-            values = _pattern_values(cov / np.sqrt(noise[:, None] * noise[None, :]), exact, top,
-                                     requires)
-            if rng is not None and top >= 2:
-                log.info("target %s: %d patterns, Gaussian values calibrated on one",
-                         problem.target_names[s], count)
-                sigma = np.sqrt(problem.sigma[cols][None, :] ** 2 + jitter[:, None] ** 2)
-                first = [j for j, r in enumerate(requires) if r < 0]
-                if len(first) >= 2:
-                    _calibrate(values, pred, sigma, exact, first, min(top, len(first)), rng,
-                               n_outcomes)
+        jobs.append((pred, problem.sigma[cols], jitter, problem.bits[cols], requires, top, count,
+                     streams[s], n_outcomes, problem.target_names[s]))
+        layout.append((reps, cols, keys))
+    # The patterns' sums and exponentials run in numpy without the GIL: one thread per core.
+    threads = max(1, min(workers or os.cpu_count() or 1, len(jobs)))
+    if threads > 1:
+        with ThreadPoolExecutor(threads) as pool:
+            found = iter(list(pool.map(_target_values, jobs)))
+    else:
+        found = iter([_target_values(job) for job in jobs])
+    patterns = []
+    for s, here in enumerate(layout):
+        if here is None:
+            patterns.append({0: 0})
+            continue
+        reps, cols, keys = here
+        values = next(found)
         remap = {}
         for mask, v in values.items():
             full = sum(keys[j] for j in range(len(cols)) if mask >> j & 1)
             remap[full] = int(round(v * weights[s] * scale))
         patterns.append(remap)
-        rho[s] = _saturation(values, exact)
-        for n in nights:
-            slots[s, n, :len(reps[n])] = problem.bits[reps[n]]
+        rho[s] = _saturation(values, problem.bits[cols])
+        for n, r in reps.items():
+            slots[s, n, :len(r)] = problem.bits[r]
     # A visit away from its slot representative changes V by rho times its change of one-visit
     # bits; alone it is worth rho b_c + (1 - rho) b_{n0}, and slot k takes the rest.
     first = slots[problem.target, problem.night, 0]
@@ -544,6 +548,25 @@ def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000
         patterns=tuple(patterns),
         rho=rho,
     )
+
+
+def _target_values(job) -> dict:
+    """One target's pattern values [bit] by column bitmask: exact, or Gaussian past the budget."""
+    pred, sig_meas, jitter, exact, requires, top, count, rng, n_outcomes, name = job
+    sigma = np.sqrt(sig_meas[None, :] ** 2 + jitter[:, None] ** 2)
+    if rng is not None and count * n_outcomes * pred.shape[0] <= EXACT_BUDGET:
+        found = pattern_bits(pred, sigma, requires, top, rng, n_outcomes)
+        return {mask: (float(exact[_cols_of(mask)].sum()) if bin(mask).count("1") <= 1
+                       else bits) for mask, (bits, _) in found.items()}
+    noise = sig_meas**2 + np.mean(jitter**2)
+    cov = np.atleast_2d(np.cov(pred, rowvar=False))
+    values = _pattern_values(cov / np.sqrt(noise[:, None] * noise[None, :]), exact, top,
+                             requires)
+    first = [j for j, r in enumerate(requires) if r < 0]
+    if rng is not None and top >= 2 and len(first) >= 2:
+        log.info("target %s: %d patterns, Gaussian values calibrated on one", name, count)
+        _calibrate(values, pred, sigma, exact, first, min(top, len(first)), rng, n_outcomes)
+    return values
 
 
 def _saturation(values: dict, exact: np.ndarray) -> float:

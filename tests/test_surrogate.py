@@ -198,3 +198,13 @@ def test_pattern_bits_is_joint_bits_on_every_subset(rng):
         ref = joint_bits(v[:, cols], sigma[:, cols], np.random.default_rng(6), 512)
         bits, err = found[mask]
         assert bits == pytest.approx(ref.bits, abs=5 * np.hypot(err, ref.stderr))
+
+
+def test_threads_do_not_change_the_surrogate():
+    # Explicit randomness (STYLE.md rule 8): each target draws from its own child generator,
+    # so the number of threads cannot change a value.
+    inst = shared_sky_instance(8, 2, 3)
+    one = build_surrogate(inst.problem, inst.predictors, rng=np.random.default_rng(3), workers=1)
+    two = build_surrogate(inst.problem, inst.predictors, rng=np.random.default_rng(3), workers=2)
+    assert one.patterns == two.patterns
+    assert np.array_equal(one.unary, two.unary) and np.array_equal(one.slots, two.slots)
