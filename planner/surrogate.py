@@ -17,7 +17,7 @@ A visit alone is worth ``rho b_c + (1 - rho) b_{r_n0}``, exact when it is the ni
 
 ``V`` is the exact expected information of the representatives (Lindley 1956) on the sample
 posterior, every pattern of a target estimated on the same simulated outcomes (common random
-numbers, :func:`pattern_bits`), so that differences between patterns, which are what the solver
+numbers, :func:`planner.visit_sets.pattern_bits`), so that differences between patterns, which are what the solver
 trades, carry little Monte Carlo noise. Without a generator (or past a work budget) ``V`` is
 the linearised Gaussian information ``0.5 log2 det(I + N^-1/2 C_P N^-1/2)`` (``C`` the sample
 covariance of the predicted velocities, ``N`` the noise variance) rescaled so that single visits
@@ -49,9 +49,10 @@ import numpy as np
 
 from planner.errors import PlanError
 from planner.problem import Problem
+from planner.visit_sets import enumerate_subsets, pattern_bits
 
 __all__ = ["Surrogate", "additive_surrogate", "build_surrogate", "gaussian_redundancy",
-           "pattern_bits", "slot_bit"]
+           "slot_bit"]
 
 log = logging.getLogger(__name__)
 
@@ -213,139 +214,6 @@ def gaussian_redundancy(predicted: np.ndarray, noise_var: np.ndarray) -> np.ndar
     return np.maximum(red, 0.0)
 
 
-def _subsets(requires: Sequence[int], top: int):
-    """Column bitmasks of every subset of at most ``top`` columns closed under ``requires``.
-
-    Column ``j`` may be in a subset only with column ``requires[j]`` (or freely when it is -1);
-    required columns come first. Yields ``(mask, columns)`` in depth-first order.
-    """
-    n = len(requires)
-    stack = [(0, -1, ())]
-    while stack:
-        mask, last, cols = stack.pop()
-        yield mask, cols
-        if len(cols) >= top:
-            continue
-        for j in range(n - 1, last, -1):
-            r = requires[j]
-            if r < 0 or mask >> r & 1:
-                stack.append((mask | 1 << j, j, cols + (j,)))
-
-
-def pattern_bits(predicted, sigma, requires, top, rng, n_outcomes=256):
-    """Exact expected information of many subsets of one star's visits, on shared outcomes.
-
-    Parameters
-    ----------
-    predicted : ndarray, shape (n_samples, n_visits)
-        Predicted velocities of the equal-weight posterior samples at the visits [m/s].
-    sigma : ndarray, broadcastable to (n_samples, n_visits)
-        Total noise standard deviation [m/s].
-    requires : sequence of int, length n_visits
-        Visit that must be in a subset for visit ``j`` to be in it (-1: none); earlier index.
-    top : int
-        Largest subset size.
-    rng : numpy.random.Generator
-        Source of the simulated outcomes (one set for every subset).
-    n_outcomes : int
-        Simulated outcomes.
-
-    Returns
-    -------
-    dict of int to (float, float)
-        Visit bitmask (bit ``j`` for visit ``j``) to ``(bits, stderr)``; the empty set is 0.
-
-    Notes
-    -----
-    ``I(S) = H(d_S) - E_theta H(d_S | theta)`` (Lindley 1956): the second term is closed form,
-    the first the mean of ``-log p(d_S)`` over outcomes drawn from the sample-posterior mixture,
-    with ``p`` its exact density (no nested-Monte-Carlo bias) and the moment-matched Gaussian
-    as a control variate: the estimator of :func:`planner.information.joint_bits`, which draws
-    the same outcomes from the same generator state. Each subset's log-likelihoods are its
-    parent's plus one visit's, and all subsets share the outcomes (common random numbers), so a
-    subset costs one ``(n_outcomes, n_samples)`` sum and one log-sum-exp.
-    """
-    v = np.asarray(predicted, dtype=float)
-    s = np.broadcast_to(np.asarray(sigma, dtype=float), v.shape)
-    n_s, n_v = v.shape
-    m = int(n_outcomes)
-    pick = np.concatenate([rng.permutation(n_s) for _ in range(-(-m // n_s))])[:m]
-    z = rng.standard_normal((m, n_v))
-    y = v[pick] + s[pick] * z
-    # Per visit: log N(y_mj; v_ij, s_ij^2) without the common 0.5 log(2 pi), shape (m, n_s),
-    # in float32 like joint_bits' exponentials (the sums that matter stay within ~1e-5).
-    ell = [(-0.5 * ((y[:, j, None] - v[None, :, j]) / s[None, :, j]) ** 2
-            - np.log(s[None, :, j])).astype(np.float32) for j in range(n_v)]
-    # Conditional entropy of each visit given the orbit, in the same units: exact.
-    noise = 0.5 + np.mean(np.log(s), axis=0)
-    masks, members, entropies = [], [], []
-    # _subsets walks depth first, so the log-likelihoods of a subset's parent are still in
-    # the buffer one level up; preallocated buffers avoid an allocation per subset.
-    logs = np.zeros((min(top, n_v) + 1, m, n_s), dtype=np.float32)
-    buf = np.empty((m, n_s), dtype=np.float32)
-    rows = np.arange(m)
-    log_n = math.log(n_s)
-    for mask, cols in _subsets(requires, top):
-        if mask == 0:
-            continue
-        total = logs[len(cols)]
-        np.add(logs[len(cols) - 1], ell[cols[-1]], out=total)
-        # Shift by each outcome's own sample (a component, so the sum is >= 1); rows where
-        # another sample is so much likelier that the float32 exponential overflows are redone
-        # with the row maximum.
-        peak = total[rows, pick].astype(np.float64)
-        np.subtract(total, peak[:, None].astype(np.float32), out=buf)
-        with np.errstate(over="ignore"):
-            np.exp(buf, out=buf)
-        mass = buf.sum(axis=1, dtype=np.float64)
-        bad = ~np.isfinite(mass)
-        if bad.any():
-            peak[bad] = total[bad].max(axis=1)
-            mass[bad] = np.exp(total[bad] - peak[bad, None].astype(np.float32)).sum(
-                axis=1, dtype=np.float64)
-        masks.append(mask)
-        members.append(cols)
-        entropies.append(log_n - peak - np.log(mass))
-    out = {0: (0.0, 0.0)}
-    if not masks:
-        return out
-    est = _gaussian_control(np.array(entropies), y, v, s, members)
-    for mask, cols, e in zip(masks, members, est, strict=True):
-        bits = (float(e.mean()) - float(noise[list(cols)].sum())) / _LN2
-        out[mask] = (bits, float(e.std(ddof=1)) / math.sqrt(m) / _LN2)
-    return out
-
-
-def _gaussian_control(h, y, v, s, members):
-    """Entropy samples ``h = -log p(y)`` corrected by the moment-matched Gaussian, per subset.
-
-    ``g = -log q(y_S)`` (without the 0.5 log 2 pi per visit, as ``h``) has the closed-form mean
-    ``0.5 (log det C_S + k)``; each subset's coefficient is fitted by least squares. Subsets of
-    one size are done together. ``h`` has shape (n_subsets, n_outcomes).
-    """
-    mean = v.mean(axis=0)
-    cov = (np.cov(v, rowvar=False, bias=True).reshape(v.shape[1], v.shape[1])
-           + np.diag(np.mean(s**2, axis=0)))
-    out = h.copy()
-    sizes = np.array([len(c) for c in members])
-    for k in np.unique(sizes):
-        rows = np.flatnonzero(sizes == k)
-        idx = np.array([members[r] for r in rows], dtype=np.int64)  # (n, k)
-        c = cov[idx[:, :, None], idx[:, None, :]]  # (n, k, k)
-        sign, logdet = np.linalg.slogdet(c)
-        d = y[:, idx].transpose(1, 0, 2) - mean[idx][:, None, :]  # (n, m, k)
-        quad = np.einsum("nmi,nmi->nm", d, np.linalg.solve(c, d.transpose(0, 2, 1))
-                         .transpose(0, 2, 1))
-        g = 0.5 * (logdet[:, None] + quad)
-        gc = g - g.mean(axis=1, keepdims=True)
-        hc = h[rows] - h[rows].mean(axis=1, keepdims=True)
-        denom = np.einsum("nm,nm->n", gc, gc)
-        beta = np.where((sign > 0) & (denom > 0),
-                        np.einsum("nm,nm->n", hc, gc) / np.where(denom > 0, denom, 1.0), 0.0)
-        out[rows] -= beta[:, None] * (g - 0.5 * (logdet[:, None] + k))
-    return out
-
-
 def _pattern_values(k_white: np.ndarray, exact: np.ndarray, top: int, requires=None) -> dict:
     """Rescaled Gaussian information of every allowed subset of columns (bitmask keys).
 
@@ -357,7 +225,7 @@ def _pattern_values(k_white: np.ndarray, exact: np.ndarray, top: int, requires=N
     single = 0.5 * np.log2(1.0 + np.diag(k_white))
     values = {0: 0.0}
     by_size = {}
-    for mask, cols in _subsets(requires, top):
+    for mask, cols in enumerate_subsets(requires, top):
         if cols:
             by_size.setdefault(len(cols), []).append((mask, cols))
     for size, group in by_size.items():
@@ -445,7 +313,7 @@ def _columns(problem: Problem, s: int, reps: dict, cap: int):
                 cols.append(reps[n][k])
                 keys.append(slot_bit(n, k, problem.n_nights))
     top = len(cols) if rule.max_visits is None else min(len(cols), rule.max_visits)
-    count = sum(1 for _ in itertools.islice(_subsets(requires, top), MAX_PATTERNS + 1))
+    count = sum(1 for _ in itertools.islice(enumerate_subsets(requires, top), MAX_PATTERNS + 1))
     if count > MAX_PATTERNS:
         raise PlanError(
             f"Target {problem.target_names[s]!r} could be visited in more than {MAX_PATTERNS} "
@@ -476,7 +344,7 @@ def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000
         Integer units per bit (1000: millibits).
     rng : numpy.random.Generator, optional
         When given, every pattern of two or more visits is valued by its exact joint information
-        (:func:`pattern_bits`, ``n_outcomes`` shared outcomes per target); without it, by the
+        (:func:`planner.visit_sets.pattern_bits`, ``n_outcomes`` shared outcomes per target); without it, by the
         rescaled Gaussian information.
     n_outcomes : int
         Simulated outcomes per target (each target draws from its own child of ``rng``).
@@ -610,7 +478,7 @@ def additive_surrogate(problem: Problem, *, scale: int = 1000) -> Surrogate:
             slots[s, n, :len(r)] = unary[r]
         cols, keys, requires, top, _ = _columns(problem, s, reps, caps[s])
         table = {}
-        for _, members in _subsets(requires, top):
+        for _, members in enumerate_subsets(requires, top):
             table[sum(keys[j] for j in members)] = int(unary[cols[list(members)]].sum())
         patterns.append(table)
     return Surrogate(scale=int(scale), unary=unary, slots=slots, patterns=tuple(patterns))

@@ -183,7 +183,7 @@ def test_pattern_bits_is_joint_bits_on_every_subset(rng):
     # generator state both draw the same outcomes with the same estimator, so they agree to
     # float32 rounding; a smaller subset sees the marginal of those outcomes, an independent
     # estimate of the same quantity: within 5 standard errors.
-    from planner.surrogate import pattern_bits
+    from planner.visit_sets import pattern_bits
 
     v = rng.standard_normal((200, 3)) @ np.array([[4.0, 1, 0], [0, 3, 1], [0, 0, 2]])
     v[:80] += 6.0  # two modes
