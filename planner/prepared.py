@@ -122,10 +122,9 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
     from planner.observability import Constraints, observable_starts
     from planner.outputs import parse_utc
     from planner.predict import Predictor
-    from planner.problem import build_problem
+    from planner.problem import build_problem, mount_slew
     from planner.rules import TargetRules
     from planner.sky import compute_sky
-    from planner.slew import slew_seconds
     from planner.surrogate import build_surrogate
 
     site, nights, aligned, moon_table, instrument, mount = physical_setup(scenario)
@@ -167,7 +166,7 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
         airmass=grid.scatter(sky.airmass, 99.0), altitude_deg=grid.scatter(sky.altitude_deg, -90.0),
         azimuth_deg=grid.scatter(sky.azimuth_deg, 0.0),
         bjd_tdb=fill_bjd(grid, sky), reserved_jd=closed,
-        slew=lambda a1, z1, a2, z2: slew_seconds(mount, a1, z1, a2, z2, include_overhead=False),
+        slew=mount_slew(mount),
         overhead_s=mount.overhead_s(), default_option=exposures.index(default),
         keep_per_night=CANDIDATE_STARTS, thin_spacing_min=CANDIDATE_SPACING_MIN)
     surrogate_rng = np.random.default_rng(

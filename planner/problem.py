@@ -161,8 +161,12 @@ class Problem:
 
     def gap_min(self, i, j) -> np.ndarray:
         """Whole minutes the telescope needs between the end of ``i`` and the start of ``j``."""
-        seconds = self.slew_seconds(i, j) + self._margin()
-        return np.ceil(seconds / 60.0 - 1e-9).astype(np.int64)
+        return self.minutes(self.slew_seconds(i, j))
+
+    def minutes(self, seconds) -> np.ndarray:
+        """Whole minutes of a gap of slew plus overhead ``seconds`` (margin added, rounded up)."""
+        total = np.asarray(seconds, dtype=float) + self._margin()
+        return np.ceil(total / 60.0 - 1e-9).astype(np.int64)
 
     @property
     def min_gap_min(self) -> int:
@@ -420,13 +424,14 @@ def build_problem(
 
 
 def mount_slew(mount) -> SlewModel:
-    """Return the slew model of a :class:`planner.slew.Mount` (motion only, no overhead)."""
-    from planner.slew import slew_seconds
+    """Return the slew model of a :class:`planner.slew.Mount` (motion only, no overhead).
 
-    def slew(alt1, az1, alt2, az2):
-        return slew_seconds(mount, alt1, az1, alt2, az2, include_overhead=False)
+    The model (a :class:`planner.slew.MountSlew`) also gives the exact largest slew over all
+    pairs of two sets of positions, which :func:`planner.allocate.conflicts.max_gap_min` uses.
+    """
+    from planner.slew import MountSlew
 
-    return slew
+    return MountSlew(mount)
 
 
 def problem_from_sky(

@@ -34,7 +34,7 @@ from numpy.typing import ArrayLike, NDArray
 from planner.airmass import wrap_degrees
 from planner.errors import ScenarioError
 
-__all__ = ["Mount", "axis_seconds", "slew_seconds"]
+__all__ = ["Mount", "MountSlew", "axis_seconds", "max_slew_seconds", "slew_seconds"]
 
 
 @dataclass(frozen=True)
@@ -175,3 +175,89 @@ def slew_seconds(
         axis_seconds(d2, mount.rate2_deg_s, mount.accel_deg_s2),
     )
     return motion + mount.overhead_s() if include_overhead else motion
+
+
+def _farthest_circular(a_deg, b_deg) -> float:
+    """Largest short-way angle [deg] between any angle of `a_deg` and any of `b_deg`."""
+    a = wrap_degrees(np.asarray(a_deg, dtype=float).ravel(), 0.0)
+    b = np.sort(wrap_degrees(np.asarray(b_deg, dtype=float).ravel(), 0.0))
+    # The farthest b from a is the one nearest a's antipode: its neighbours in sorted order.
+    target = wrap_degrees(a + 180.0, 0.0)
+    k = np.searchsorted(b, target)
+    best = 0.0
+    for cand in (b[k % b.size], b[(k - 1) % b.size]):
+        best = max(best, float(np.max(np.abs(wrap_degrees(cand - a)))))
+    return best
+
+
+def max_slew_seconds(mount: Mount, alt1_deg: ArrayLike, az1_deg: ArrayLike,
+                     alt2_deg: ArrayLike, az2_deg: ArrayLike, *,
+                     include_overhead: bool = True) -> float:
+    """Largest :func:`slew_seconds` over every pair (one end from set 1, one start from set 2).
+
+    Parameters
+    ----------
+    mount : Mount
+        An alt-azimuth mount.
+    alt1_deg, az1_deg : array_like, shape (n1,)
+        Where exposures end [deg].
+    alt2_deg, az2_deg : array_like, shape (n2,)
+        Where exposures start [deg].
+    include_overhead : bool
+        Add :meth:`Mount.overhead_s` (default) or return the motion alone.
+
+    Returns
+    -------
+    float
+        Seconds; equal to ``slew_seconds(mount, alt1[:, None], az1[:, None], alt2[None, :],
+        az2[None, :]).max()`` in O(n log n) instead of O(n1 n2).
+
+    Notes
+    -----
+    The motion is the longer of two axis moves and each axis time grows with its distance, so
+    the largest motion over pairs is the longer of the two largest axis moves, each found on its
+    own: the largest altitude change from the extremes, the largest mount-azimuth change from
+    the extremes of the canonical turns (with a cable wrap) or from each end's nearest start to
+    its antipode (without one).
+    """
+    if mount.kind != "altaz":
+        raise ScenarioError("max_slew_seconds: only alt-azimuth mounts are supported.")
+    alt1, az1 = np.asarray(alt1_deg, dtype=float), np.asarray(az1_deg, dtype=float)
+    alt2, az2 = np.asarray(alt2_deg, dtype=float), np.asarray(az2_deg, dtype=float)
+    if alt1.size == 0 or alt2.size == 0:
+        return 0.0
+    d_alt = max(alt2.max() - alt1.min(), alt1.max() - alt2.min())
+    if mount.az_wrap_deg is None:
+        d_az = _farthest_circular(az1, az2)
+    else:
+        mid = 0.5 * (mount.az_wrap_deg[0] + mount.az_wrap_deg[1])
+        turn1, turn2 = wrap_degrees(az1, mid - 180.0), wrap_degrees(az2, mid - 180.0)
+        d_az = max(turn2.max() - turn1.min(), turn1.max() - turn2.min())
+    motion = max(float(axis_seconds(d_az, mount.rate1_deg_s, mount.accel_deg_s2)),
+                 float(axis_seconds(d_alt, mount.rate2_deg_s, mount.accel_deg_s2)))
+    return motion + mount.overhead_s() if include_overhead else motion
+
+
+@dataclass(frozen=True)
+class MountSlew:
+    """A mount's slew model, motion only: ``(alt1, az1, alt2, az2) -> seconds`` (broadcasting).
+
+    Attributes
+    ----------
+    mount : Mount
+    """
+
+    mount: Mount
+
+    def __call__(self, alt1, az1, alt2, az2):
+        """Motion time [s] from (alt1, az1) to (alt2, az2) [deg], broadcasting."""
+        return slew_seconds(self.mount, alt1, az1, alt2, az2, include_overhead=False)
+
+    @property
+    def has_pair_max(self) -> bool:
+        """Whether :meth:`pair_max` is available (alt-azimuth mounts)."""
+        return self.mount.kind == "altaz"
+
+    def pair_max(self, alt1, az1, alt2, az2) -> float:
+        """Largest motion [s] over every pair of an end in set 1 and a start in set 2."""
+        return max_slew_seconds(self.mount, alt1, az1, alt2, az2, include_overhead=False)

@@ -17,12 +17,12 @@ A visit alone is worth ``rho b_c + (1 - rho) b_{r_n0}``, exact when it is the ni
 
 ``V`` is the exact expected information of the representatives (Lindley 1956) on the sample
 posterior, every pattern of a target estimated on the same simulated outcomes (common random
-numbers, :func:`planner.visit_sets.pattern_bits`), so that differences between patterns, which are what the solver
-trades, carry little Monte Carlo noise. Without a generator (or past a work budget) ``V`` is
-the linearised Gaussian information ``0.5 log2 det(I + N^-1/2 C_P N^-1/2)`` (``C`` the sample
-covariance of the predicted velocities, ``N`` the noise variance) rescaled so that single visits
-carry their exact bits. Mutual information is submodular for conditionally independent noise
-(Krause and Guestrin 2005), so ``V`` is, over slots.
+numbers, :func:`planner.visit_sets.pattern_bits`), so that differences between patterns, which
+are what the solver trades, carry little Monte Carlo noise. Without a generator (or past a work
+budget) ``V`` is the linearised Gaussian information ``0.5 log2 det(I + N^-1/2 C_P N^-1/2)``
+(``C`` the sample covariance of the predicted velocities, ``N`` the noise variance) rescaled so
+that single visits carry their exact bits. Mutual information is submodular for conditionally
+independent noise (Krause and Guestrin 2005), so ``V`` is, over slots.
 
 Counting patterns rather than sets of nights makes a second visit in a night worth its
 conditional gain given the whole pattern: on the demo, where stars near the sample posterior's
@@ -344,8 +344,8 @@ def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000
         Integer units per bit (1000: millibits).
     rng : numpy.random.Generator, optional
         When given, every pattern of two or more visits is valued by its exact joint information
-        (:func:`planner.visit_sets.pattern_bits`, ``n_outcomes`` shared outcomes per target); without it, by the
-        rescaled Gaussian information.
+        (:func:`planner.visit_sets.pattern_bits`, ``n_outcomes`` shared outcomes per target);
+        without it, by the rescaled Gaussian information.
     n_outcomes : int
         Simulated outcomes per target (each target draws from its own child of ``rng``).
     workers : int, optional

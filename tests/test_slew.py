@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from planner.errors import ScenarioError
-from planner.slew import Mount, axis_seconds, slew_seconds
+from planner.slew import Mount, axis_seconds, max_slew_seconds, slew_seconds
 
 
 def _bare(**kwargs):
@@ -88,3 +88,40 @@ def test_bad_mounts_get_a_sentence():
         Mount(az_wrap_deg=(-90.0, 180.0))
     with pytest.raises(ScenarioError, match="altaz"):
         Mount(kind="equatorial", az_wrap_deg=(-270.0, 270.0))
+
+
+@pytest.mark.parametrize("wrap", [None, (-270.0, 270.0), (0.0, 450.0)])
+@pytest.mark.parametrize("accel", [None, 0.8])
+def test_largest_slew_over_pairs_matches_brute_force(wrap, accel):
+    # Reference: the maximum of slew_seconds over the full pair matrix (brute force), on
+    # random end and start positions, including azimuths straddling north and the wrap limit.
+    rng = np.random.default_rng(11)
+    mount = Mount(rate1_deg_s=2.0, rate2_deg_s=1.5, accel_deg_s2=accel, az_wrap_deg=wrap)
+    for n1, n2 in ((1, 1), (7, 300), (250, 40)):
+        alt1, alt2 = rng.uniform(20, 88, n1), rng.uniform(20, 88, n2)
+        az1, az2 = rng.uniform(-720, 720, n1), rng.uniform(0, 360, n2)
+        brute = slew_seconds(mount, alt1[:, None], az1[:, None], alt2[None, :], az2[None, :])
+        assert max_slew_seconds(mount, alt1, az1, alt2, az2) == pytest.approx(brute.max(),
+                                                                                rel=1e-12)
+    # Clustered azimuths (a far pair is rare): the antipode search must still find it.
+    az1 = np.array([10.0, 11.0, 195.5])
+    az2 = np.array([12.0, 13.0, 14.0])
+    brute = slew_seconds(mount, 45.0, az1[:, None], 45.0, az2[None, :], include_overhead=False)
+    assert max_slew_seconds(mount, np.full(3, 45.0), az1, np.full(3, 45.0), az2,
+                            include_overhead=False) == pytest.approx(brute.max(), rel=1e-12)
+
+
+def test_problem_largest_gap_is_the_brute_force_over_pairs():
+    # Reference: the same problem with the mount's model hidden behind a plain function, whose
+    # largest gap conflicts.max_gap_min finds pair by pair (all pairs of each night).
+    from planner.allocate.conflicts import max_gap_min
+    from planner.problem import mount_slew
+    from tests.benchmarks.instances import grid_instance
+
+    mount = Mount(rate1_deg_s=0.5, rate2_deg_s=0.4, accel_deg_s2=0.3, az_wrap_deg=(-270, 270))
+    model = mount_slew(mount)
+    for seed in (1, 2):
+        fast = grid_instance(14, 2, rng=np.random.default_rng(seed), slew=model, overhead_s=40.0)
+        plain = grid_instance(14, 2, rng=np.random.default_rng(seed), overhead_s=40.0,
+                              slew=lambda a1, z1, a2, z2: model(a1, z1, a2, z2))
+        assert max_gap_min(fast) == max_gap_min(plain) > fast.min_gap_min

@@ -11,8 +11,8 @@ import pytest
 
 from planner.cli import main
 from planner.information import InformationError, joint_bits, one_visit_bits
-from planner.predict import Predictor
 from planner.labels import interval_labels, parameter_values, period_modes
+from planner.predict import Predictor
 from planner.subset import LabelEstimate, label_bits, label_joint_bits
 
 TINY = Path(__file__).resolve().parent / "data" / "tiny" / "tiny.yaml"

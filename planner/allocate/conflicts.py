@@ -43,7 +43,15 @@ def max_gap_min(problem: Problem) -> int:
         return _GAP_CACHE[problem]
     best = problem.min_gap_min
     if problem.slew is not None:
+        # A mount's model gives the largest slew over all pairs in O(n log n); any other
+        # model is checked pair by pair.
+        exact = getattr(problem.slew, "has_pair_max", False)
         for idx in _night_slices(problem):
+            if exact:
+                motion = problem.slew.pair_max(problem.alt_end[idx], problem.az_end[idx],
+                                               problem.alt_start[idx], problem.az_start[idx])
+                best = max(best, int(problem.minutes(problem.overhead_s + motion)))
+                continue
             for lo in range(0, idx.size, _CHUNK):
                 rows = idx[lo:lo + _CHUNK]
                 best = max(best, int(problem.gap_min(rows[:, None], idx[None, :]).max()))
