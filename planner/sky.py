@@ -227,7 +227,8 @@ def _apparent_places(ra, dec, times_jd):
         return app.ra.deg, app.dec.deg
 
 
-def pointing_at(site: Site, ra_deg: ArrayLike, dec_deg: ArrayLike, times_jd: ArrayLike) -> Pointing:
+def pointing_at(site: Site, ra_deg: ArrayLike, dec_deg: ArrayLike, times_jd: ArrayLike,
+                moon: bool = True) -> Pointing:
     """Exact altitude, azimuth, hour angle, airmass and Moon separation for given pairs.
 
     Parameters
@@ -237,6 +238,9 @@ def pointing_at(site: Site, ra_deg: ArrayLike, dec_deg: ArrayLike, times_jd: Arr
         ICRS coordinates [deg], broadcastable with ``times_jd``.
     times_jd : array_like
         JD (UTC scale) [d].
+    moon : bool, optional
+        Compute the Moon separation (the costliest part: astropy's Moon ephemeris); when False
+        ``moon_separation_deg`` is NaN.
 
     Returns
     -------
@@ -261,11 +265,13 @@ def pointing_at(site: Site, ra_deg: ArrayLike, dec_deg: ArrayLike, times_jd: Arr
         horiz = star.transform_to(AltAz(obstime=t, location=location, pressure=0.0 * u.hPa))
         tete = TETE(obstime=t, location=location)
         star_app = star.transform_to(tete)
-        moon_app = get_body("moon", t, location).transform_to(tete)
+        moon_app = get_body("moon", t, location).transform_to(tete) if moon else None
         last = t.sidereal_time("apparent", longitude=location.lon).deg
-    s = unit_from_radec(star_app.ra.deg, star_app.dec.deg)
-    m = unit_from_radec(moon_app.ra.deg, moon_app.dec.deg)
-    sep = np.degrees(np.arccos(np.clip(np.sum(s * m, -1), -1.0, 1.0)))
+    sep = np.full(star_app.ra.shape, np.nan)
+    if moon_app is not None:
+        s = unit_from_radec(star_app.ra.deg, star_app.dec.deg)
+        m = unit_from_radec(moon_app.ra.deg, moon_app.dec.deg)
+        sep = np.degrees(np.arccos(np.clip(np.sum(s * m, -1), -1.0, 1.0)))
     alt = horiz.alt.deg
     return Pointing(
         altitude_deg=alt.reshape(shape),

@@ -1,8 +1,9 @@
 """Independent feasibility check of a plan, from the plan and the physical inputs alone.
 
 Nothing here reads the strategies' candidate tables or the run grid: every position is
-recomputed at the exact visit times with astropy's full transforms
-(:func:`planner.sky.pointing_at`, the Moon's altitude and phase from astropy's ephemeris) and
+recomputed at the exact visit times with astropy's full transforms (the target and the Moon in
+astropy's AltAz frame, the Moon's phase from astropy's ephemeris; slews from
+:func:`planner.sky.pointing_at`) and
 every slew with :func:`planner.slew.slew_seconds`. A plan passes when
 
 * each exposure lies inside its night's dark window, lasts its exposure time, and keeps its
@@ -50,14 +51,21 @@ class Verification:
     n_checked: int
 
 
-def _moon(site, times_jd):
-    """Moon altitude [deg] and illuminated fraction at exact times (astropy ephemeris).
+def _exact_sky(site, ra_deg, dec_deg, times_jd):
+    """Target altitude and azimuth, Moon separation, Moon altitude and phase at exact times.
 
-    The phase uses the topocentric Moon and the geocentric Sun; the Moon's parallax (about
-    1 deg) changes the illuminated fraction by less than 0.01.
+    One pass of astropy's full transforms (no refraction): the target and the topocentric Moon
+    both go to AltAz, so the Moon is computed once and the separation is the angle between
+    their two directions there. The phase uses the topocentric Moon and the geocentric Sun; the
+    Moon's parallax (about 1 deg) changes the illuminated fraction by less than 0.01.
+
+    Returns
+    -------
+    altitude, azimuth, moon_separation, moon_altitude : ndarray [deg]
+    moon_illuminated : ndarray
     """
     import astropy.units as u
-    from astropy.coordinates import AltAz, get_body
+    from astropy.coordinates import AltAz, SkyCoord, get_body
     from astropy.time import Time
 
     from planner import offline
@@ -65,12 +73,16 @@ def _moon(site, times_jd):
 
     with offline.quiet_astropy():
         t = Time(np.asarray(times_jd, float), format="jd", scale="utc")
+        frame = AltAz(obstime=t, location=site.location(), pressure=0.0 * u.hPa)
+        star = SkyCoord(np.asarray(ra_deg, float) * u.deg, np.asarray(dec_deg, float) * u.deg,
+                        frame="icrs").transform_to(frame)
         moon = get_body("moon", t, site.location())
-        alt = moon.transform_to(AltAz(obstime=t, location=site.location(),
-                                      pressure=0.0 * u.hPa)).alt.deg
+        moon_h = moon.transform_to(frame)
         sun_geo = get_body("sun", t).cartesian.xyz.to_value(u.au).T
         moon_geo = moon.cartesian.xyz.to_value(u.au).T
-    return alt, illuminated_fraction(sun_geo, moon_geo)
+    sep = star.separation(moon_h).deg
+    return (star.alt.deg, star.az.deg, sep, moon_h.alt.deg,
+            illuminated_fraction(sun_geo, moon_geo))
 
 
 def _label(v) -> str:
@@ -118,6 +130,7 @@ def verify_plan(
     -------
     Verification
     """
+    from planner.airmass import airmass_kasten_young
     from planner.sky import pointing_at
     from planner.slew import slew_seconds
 
@@ -146,13 +159,13 @@ def verify_plan(
         inst_v.append(np.full(n + 1, k))
     t_all, v_all = np.concatenate(inst_t), np.concatenate(inst_v)
     tgt = np.array([index[v.target] for v in visits])
-    point = pointing_at(site, ra[tgt[v_all]], dec[tgt[v_all]], t_all)
-    moon_alt, moon_ill = _moon(site, t_all)
+    alt, _, moon_sep, moon_alt, moon_ill = _exact_sky(site, ra[tgt[v_all]], dec[tgt[v_all]],
+                                                     t_all)
     need = constraints.min_moon_separation(moon_ill)
-    bad_alt = (point.altitude_deg < site.min_altitude_deg - angle_tol_deg) | (
-        point.altitude_deg > site.max_altitude_deg + angle_tol_deg)
-    bad_am = point.airmass > limits[tgt[v_all]] * (1 + 1e-4)
-    bad_moon = (moon_alt > angle_tol_deg) & (point.moon_separation_deg < need - angle_tol_deg)
+    bad_alt = (alt < site.min_altitude_deg - angle_tol_deg) | (
+        alt > site.max_altitude_deg + angle_tol_deg)
+    bad_am = airmass_kasten_young(alt) > limits[tgt[v_all]] * (1 + 1e-4)
+    bad_moon = (moon_alt > angle_tol_deg) & (moon_sep < need - angle_tol_deg)
     for k, v in enumerate(visits):
         here = v_all == k
         night = night_of[v.night]
@@ -178,7 +191,8 @@ def verify_plan(
         first = np.array([index[a.target] for a, _ in pairs])
         second = np.array([index[b.target] for _, b in pairs])
         ends = pointing_at(site, ra[np.r_[first, second]], dec[np.r_[first, second]],
-                           [a.end_jd for a, _ in pairs] + [b.start_jd for _, b in pairs])
+                           [a.end_jd for a, _ in pairs] + [b.start_jd for _, b in pairs],
+                           moon=False)
         m = len(pairs)
         need_s = slew_seconds(mount, ends.altitude_deg[:m], ends.azimuth_deg[:m],
                               ends.altitude_deg[m:], ends.azimuth_deg[m:])

@@ -2,6 +2,7 @@
 
 import dataclasses
 
+import numpy as np
 import pytest
 
 from planner.allocate.cadence import cadence_plan
@@ -79,3 +80,26 @@ def test_violations_are_caught(case):
     problems = _check(inst, overlap, Constraints(max_airmass=1.0001)).problems
     assert any("overlaps the previous" in p for p in problems)
     assert any("airmass limit" in p for p in problems)
+
+
+def test_exact_sky_matches_pointing_at():
+    # Reference: planner.sky.pointing_at (astropy, the Moon separation in the TETE frame, itself
+    # checked against the sky grid in tests/test_sky.py). The verifier takes the target and the
+    # Moon both to AltAz in one pass; the two must give the same angles.
+    from planner.site import Site
+    from planner.sky import pointing_at
+    from planner.verify import _exact_sky
+
+    site = Site(latitude_deg=-27.45, longitude_deg=-69.95, elevation_m=2400.0,
+                timezone="America/Santiago")
+    rng = np.random.default_rng(3)
+    t = 2461683.6 + rng.uniform(0, 5, 200)
+    ra, dec = rng.uniform(0, 360, 200), rng.uniform(-80, 40, 200)
+    p = pointing_at(site, ra, dec, t)
+    alt, az, sep, moon_alt, moon_ill = _exact_sky(site, ra, dec, t)
+    np.testing.assert_allclose(alt, p.altitude_deg, atol=1e-6)
+    np.testing.assert_allclose(np.cos(np.radians(az - p.azimuth_deg)), 1.0, atol=1e-10)
+    np.testing.assert_allclose(sep, p.moon_separation_deg, atol=1e-4 / 3600)
+    assert np.all((moon_ill >= 0) & (moon_ill <= 1)) and np.all(np.abs(moon_alt) <= 90)
+    assert np.all(np.isnan(pointing_at(site, ra[:3], dec[:3], t[:3], moon=False)
+                           .moon_separation_deg))
