@@ -202,7 +202,7 @@ def one_visit_bits(predicted, sigma, weights=None):
     return np.maximum(h_mix - noise_entropy_bits(s, v.shape, w), 0.0)
 
 
-def simulate_outcomes(v, s, rng, n_outcomes):
+def simulate_outcomes(v, s, rng, n_outcomes, return_picks=False):
     """Simulate outcomes of a set of visits from the sample-posterior predictive.
 
     Balanced draws: every sample is used equally often (up to one) across the outcomes.
@@ -216,16 +216,22 @@ def simulate_outcomes(v, s, rng, n_outcomes):
     rng : numpy.random.Generator
     n_outcomes : int
 
+    return_picks : bool, optional
+        Also return the sample each outcome was drawn from.
+
     Returns
     -------
     y : ndarray, shape (n_outcomes, n_visits)
         Simulated velocities [m/s].
+    pick : ndarray of int, shape (n_outcomes,)
+        Only if `return_picks`: the sample behind each outcome.
     """
     n_s = v.shape[0]
     blocks = -(-n_outcomes // n_s)
     pick = np.concatenate([rng.permutation(n_s) for _ in range(blocks)])[:n_outcomes]
     s_full = np.broadcast_to(s, v.shape)
-    return v[pick] + s_full[pick] * rng.standard_normal((n_outcomes, v.shape[1]))
+    y = v[pick] + s_full[pick] * rng.standard_normal((n_outcomes, v.shape[1]))
+    return (y, pick) if return_picks else y
 
 
 def outcome_log_likelihoods(y, v, s):

@@ -19,7 +19,7 @@ from planner.rungrid import RunGrid, fill_bjd, physical_setup, run_grid
 from planner.saved_curves import reusable_curves
 from planner.scenario import Scenario
 
-__all__ = ["PreparedRun", "prepare", "visit_predictions"]
+__all__ = ["PreparedRun", "mid_exposure_columns", "prepare", "visit_predictions"]
 
 log = logging.getLogger(__name__)
 
@@ -194,7 +194,7 @@ def _check_observable(scenario, sky, constraints, observable) -> None:
         raise ScenarioError(f"{scenario.path.name}: targets[{i}]: {why}")
 
 
-def _mid_columns(sky, exposure_s: float) -> np.ndarray:
+def mid_exposure_columns(sky, exposure_s: float) -> np.ndarray:
     """Sky-grid column nearest the middle of an exposure starting at each column (same night)."""
     shift = int(round(0.5 * exposure_s / sky.step_s))
     cols = np.arange(sky.times_jd.size)
@@ -257,7 +257,7 @@ def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, d
             cols = np.flatnonzero(observable[o, s])
             if cols.size == 0:
                 continue
-            mid = _mid_columns(sky, e)[cols]
+            mid = mid_exposure_columns(sky, e)[cols]
             predicted = predictor.velocities(sky.bjd_tdb[s, mid])
             total = np.sqrt(sigma[o, s, mid][None, :] ** 2 + jitter2)
             set_pred, set_sigma = visit_predictions(scenario, sky, instrument, predictor, s,

@@ -236,12 +236,6 @@ def _target_labelling(predictor, about):
     return interval_labels(period, parameter="period")
 
 
-def _mid_columns(night_index, cols, shift):
-    """Return the grid column `shift` steps after each of `cols`, held inside the same night."""
-    last = np.searchsorted(night_index, night_index[cols], side="right") - 1
-    return np.minimum(cols + shift, last)
-
-
 def _target_table(work):
     """Bits about one target's labels at its observable starts, per exposure option."""
     predictor, about, starts, mids, sigma, bjd = work
@@ -278,6 +272,8 @@ def run_label_bits(run, about="period", targets=None, jobs=1):
     """
     from concurrent.futures import ProcessPoolExecutor
 
+    from planner.prepared import mid_exposure_columns
+
     if about not in ABOUT:
         raise InformationError(f"unknown subset {about!r}; choose one of {', '.join(ABOUT)}.")
     wanted = set(targets or [t.id for t in run.scenario.targets])
@@ -286,7 +282,7 @@ def run_label_bits(run, about="period", targets=None, jobs=1):
     work = []
     for s in chosen:
         starts = [np.flatnonzero(run.observable[o, s]) for o in range(len(run.exposures))]
-        mids = [_mid_columns(run.sky.night_index, cols, int(round(0.5 * e / run.sky.step_s)))
+        mids = [mid_exposure_columns(run.sky, e)[cols]
                 for cols, e in zip(starts, run.exposures, strict=True)]
         work.append((run.predictors[s], about, starts, mids, run.sigma[:, s],
                      run.sky.bjd_tdb[s]))

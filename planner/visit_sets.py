@@ -14,6 +14,8 @@ from collections.abc import Sequence
 
 import numpy as np
 
+from planner.information import simulate_outcomes
+
 __all__ = ["enumerate_subsets", "pattern_bits"]
 
 _LN2 = math.log(2.0)
@@ -75,9 +77,7 @@ def pattern_bits(predicted, sigma, requires, top, rng, n_outcomes=256):
     s = np.broadcast_to(np.asarray(sigma, dtype=float), v.shape)
     n_s, n_v = v.shape
     m = int(n_outcomes)
-    pick = np.concatenate([rng.permutation(n_s) for _ in range(-(-m // n_s))])[:m]
-    z = rng.standard_normal((m, n_v))
-    y = v[pick] + s[pick] * z
+    y, pick = simulate_outcomes(v, s, rng, m, return_picks=True)
     # Per visit: log N(y_mj; v_ij, s_ij^2) without the common 0.5 log(2 pi), shape (m, n_s),
     # in float32 like joint_bits' exponentials (the sums that matter stay within ~1e-5).
     ell = [(-0.5 * ((y[:, j, None] - v[None, :, j]) / s[None, :, j]) ** 2
