@@ -2,7 +2,7 @@
 
 import sys
 
-from planner.cli import main
+from planner.cli.main import main
 
 if __name__ == "__main__":
     sys.exit(main())

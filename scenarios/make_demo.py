@@ -25,7 +25,7 @@ if str(ROOT) not in sys.path:
     sys.path.insert(0, str(ROOT))
 
 from inference.keplerian import radial_velocity  # noqa: E402
-from planner.outputs import atomic_write_text  # noqa: E402
+from planner.workflow.outputs import atomic_write_text  # noqa: E402
 
 OUT = ROOT / "scenarios" / "demo"
 SEED = 20271004

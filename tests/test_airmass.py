@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from planner.airmass import (
+from planner.sky.airmass import (
     airmass_kasten_young,
     altaz_from_hadec,
     hadec_from_altaz,

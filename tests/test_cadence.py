@@ -2,9 +2,9 @@
 
 import numpy as np
 
-from planner.allocate.cadence import cadence_plan
-from planner.rules import TargetRules
-from planner.surrogate import additive_surrogate
+from planner.allocation.cadence import cadence_plan
+from planner.allocation.rules import TargetRules
+from planner.allocation.surrogate import additive_surrogate
 from tests.benchmarks.instances import grid_instance
 
 

@@ -9,7 +9,7 @@ from pathlib import Path
 import pytest
 import yaml
 
-from planner.cli import COMMANDS, build_parser, main
+from planner.cli.main import COMMANDS, build_parser, main
 
 TINY = Path(__file__).resolve().parent / "data" / "tiny" / "tiny.yaml"
 ROOT = Path(__file__).resolve().parents[1]
@@ -54,7 +54,7 @@ def test_help_is_instant_and_lists_the_commands():
 
 
 def test_help_imports_no_heavy_package():
-    code = ("import sys; from planner.cli import build_parser; build_parser(); "
+    code = ("import sys; from planner.cli.main import build_parser; build_parser(); "
             "print(','.join(m for m in ('numpy', 'astropy', 'ortools', 'emcee', 'scipy') "
             "if m in sys.modules))")
     result = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True,

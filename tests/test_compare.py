@@ -5,9 +5,9 @@ import json
 import numpy as np
 import pytest
 
-from planner.compare import compare_strategies, write_compare_json
-from planner.surrogate import build_surrogate
-from planner.verify import verify_plan
+from planner.allocation.compare import compare_strategies, write_compare_json
+from planner.allocation.surrogate import build_surrogate
+from planner.allocation.verify import verify_plan
 from tests.benchmarks.instances import shared_sky_instance
 
 

@@ -3,10 +3,10 @@
 import numpy as np
 import pytest
 
-from planner.curves import InformationCurve, _mean_noise_entropy_bits, build_curve
-from planner.entropy import InformationError
-from planner.information import one_visit_bits
-from planner.predict import Predictor
+from planner.information.curves import InformationCurve, _mean_noise_entropy_bits, build_curve
+from planner.information.entropy import InformationError
+from planner.information.gain import one_visit_bits
+from planner.information.predict import Predictor
 
 STEP = 120.0 / 86400.0
 
@@ -101,7 +101,7 @@ def test_plot_shows_bits_band_and_dark_time(rng):
     # What an observer needs to see (issue item 7): one line per exposure option, the predicted
     # velocity band from the samples, and the dark windows shaded in both panels.
     pytest.importorskip("matplotlib")
-    from planner.plot_curves import barycentric_shift_days, plot_information_curve
+    from planner.workflow.plot_curves import barycentric_shift_days, plot_information_curve
 
     pred = star(rng, 300)
     t, obs = grid()
@@ -121,7 +121,7 @@ def test_plot_shows_bits_band_and_dark_time(rng):
 
 def _counting(monkeypatch):
     """Count the columns whose entropy build_curve evaluates (not fills in)."""
-    import planner.curves as curves
+    import planner.information.curves as curves
 
     seen = []
     real = curves.mixture_entropy_bits
@@ -185,7 +185,7 @@ def test_midpoint_rule_and_its_error_bound():
     # cubics, and its error is -(3/128) d^4 f''''(xi) for spacing d (Lagrange interpolation
     # remainder, numerical-analysis textbook; from memory); the fourth difference estimates
     # d^4 f''''. Checked on a cubic and on cos(w x), whose error must sit within the estimate.
-    from planner.curves import _midpoint
+    from planner.information.curves import _midpoint
 
     x = np.arange(40.0)
     first = (x % 2 == 0)

@@ -7,7 +7,7 @@ import pytest
 from scipy import integrate
 from scipy.special import logsumexp
 
-from planner.entropy import InformationError, mixture_entropy_bits
+from planner.information.entropy import InformationError, mixture_entropy_bits
 
 
 def quad_entropy_bits(x, var, w=None):
@@ -160,7 +160,7 @@ def test_last_chunk_of_one_column_with_per_column_variances():
     # column must get its own variance-node split. Reference: each column computed on its
     # own, which takes the single-column path (the mixture entropy of a column does not
     # depend on the other columns).
-    from planner.entropy import mixture_entropy_bits
+    from planner.information.entropy import mixture_entropy_bits
 
     gen = np.random.default_rng(5)
     n_s, n_c = 2000, 33  # 2000 centres -> 32 columns per chunk, so the last chunk holds one

@@ -12,14 +12,14 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from planner.allocation.plan import Plan, Visit
 from planner.errors import PlanError
-from planner.experiment import STRATEGIES, Setup, run_experiment, run_strategy
-from planner.plan import Plan, Visit
-from planner.realised import cost_to_reach, measure_execution, support_curve
-from planner.scoreboard import summarise
-from planner.simulate import execute, visit_conditions
-from planner.truth import read_truths
-from planner.weather import Weather
+from planner.simulation.experiment import STRATEGIES, Setup, run_experiment, run_strategy
+from planner.simulation.realised import cost_to_reach, measure_execution, support_curve
+from planner.simulation.scoreboard import summarise
+from planner.simulation.simulate import execute, visit_conditions
+from planner.simulation.truth import read_truths
+from planner.simulation.weather import Weather
 
 INSTRUMENT = "ridge-echelle"
 
@@ -51,9 +51,9 @@ def _posterior_around(truth, rng, n=384):
 @pytest.fixture(scope="module")
 def world():
     """Two demo nights, three one-planet demo stars, their truths and invented posteriors."""
-    from planner import pipeline
-    from planner.sky import compute_sky
-    from planner.truth import read_truths as _read
+    from planner.simulation.truth import read_truths as _read
+    from planner.sky.tracks import compute_sky
+    from planner.workflow import pipeline
 
     scenario = pipeline.load(None)
     truths = _read(scenario.path.parent / "truth")
@@ -140,8 +140,8 @@ def test_more_visits_do_not_enlarge_the_volume_on_average(world):
     # larger than the prior's, and more data shrink it further. With the truth fixed and 1, 3
     # and 9 visits of the same star (nested sets, same noise), the mean log2 volume must not
     # grow; tolerance 3 standard errors of the paired mean difference (budget 1e-3 per check).
-    from planner.realised import measure_reweighted
-    from planner.update import new_data_log_likelihood
+    from planner.information.update import new_data_log_likelihood
+    from planner.simulation.realised import measure_reweighted
 
     target = next(iter(world["stars"]))
     post = world["posteriors"][target]
@@ -223,7 +223,7 @@ def test_unknown_strategy_is_refused(world):
 
 def test_demo_truth_folder_is_complete():
     # Every demo target has a true orbit for the simulator.
-    from planner import pipeline
+    from planner.workflow import pipeline
 
     scenario = pipeline.load(None)
     truths = read_truths(scenario.path.parent / "truth")
@@ -231,7 +231,7 @@ def test_demo_truth_folder_is_complete():
 
 
 def test_strategy_choices_match_the_experiment():
-    from planner.cli_simulate import STRATEGY_CHOICES
+    from planner.cli.simulate import STRATEGY_CHOICES
 
     assert STRATEGY_CHOICES == STRATEGIES
 
@@ -243,7 +243,7 @@ DEMO_TRUTH = Path(__file__).resolve().parents[1] / "scenarios" / "demo" / "truth
 @pytest.fixture
 def invented_fits(monkeypatch):
     """Replace the sampler by invented posteriors around the truths (keeps the test fast)."""
-    from planner import pipeline
+    from planner.workflow import pipeline
 
     truths = read_truths(DEMO_TRUTH)
 
@@ -263,7 +263,7 @@ def invented_fits(monkeypatch):
 def test_simulate_command_end_to_end(tmp_path, capsys, invented_fits):
     import json
 
-    from planner.cli import main
+    from planner.cli.main import main
 
     out = tmp_path / "sim"
     argv = [str(TINY), "--truth", str(DEMO_TRUTH), "--seeds", "2", "--strategies", "joint",
@@ -295,7 +295,7 @@ def test_simulate_command_end_to_end(tmp_path, capsys, invented_fits):
 
 
 def test_simulate_command_bad_input_writes_nothing(tmp_path, capsys, invented_fits):
-    from planner.cli import main
+    from planner.cli.main import main
 
     out = tmp_path / "sim"
     base = [str(TINY), "--truth", str(DEMO_TRUTH), "--out", str(out), "--no-cache"]
@@ -315,8 +315,8 @@ def test_calibration_through_the_simulator(world):
     # visits equals its expected information. Here end to end: real mid-exposure conditions
     # from the sky, the simulator, the experiment's expected_bits and measure_execution.
     # Tolerance 4 combined standard errors (false-failure budget 6e-5).
-    from planner.experiment import expected_bits
-    from planner.truth import truth_from_sample
+    from planner.simulation.experiment import expected_bits
+    from planner.simulation.truth import truth_from_sample
 
     setup = _setup(world, [])
     visits = _night_visits(world, 0, 2) + _night_visits(world, 1, 1)

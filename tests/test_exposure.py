@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from planner.errors import ScenarioError
-from planner.exposure import (
+from planner.sky.exposure import (
     DEFAULT_EXPOSURES_S,
     Instrument,
     grid_sigma,
@@ -82,8 +82,8 @@ def test_sky_term_matters_for_faint_stars_only():
 def test_grid_sigma_per_target_option_and_time():
     # Built from the same closed forms: the grid equals rv_sigma at each grid airmass, and the
     # Moon-sky term only ever adds noise.
-    from planner.site import Site, dark_windows
-    from planner.sky import compute_sky
+    from planner.sky.site import Site, dark_windows
+    from planner.sky.tracks import compute_sky
 
     site = Site(-29.3, -70.7, 2400.0, "America/Santiago")  # invented
     sky = compute_sky(

@@ -3,12 +3,12 @@
 import numpy as np
 import pytest
 
-from planner.allocate.conflicts import Schedule
-from planner.allocate.greedy import exact_gain, greedy_plan
-from planner.allocate.joint import joint_plan
-from planner.predict import Predictor
-from planner.rules import TargetRules
-from planner.surrogate import additive_surrogate, build_surrogate
+from planner.allocation.conflicts import Schedule
+from planner.allocation.greedy import exact_gain, greedy_plan
+from planner.allocation.joint import joint_plan
+from planner.allocation.rules import TargetRules
+from planner.allocation.surrogate import additive_surrogate, build_surrogate
+from planner.information.predict import Predictor
 from tests.benchmarks.instances import grid_instance
 
 

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy.stats import norm
 
-from planner.information import (
+from planner.information.gain import (
     InformationError,
     JointEstimate,
     conditional_bits,
@@ -14,8 +14,8 @@ from planner.information import (
     noise_entropy_bits,
     one_visit_bits,
 )
-from planner.predict import Predictor
-from planner.update import importance_weights
+from planner.information.predict import Predictor
+from planner.information.update import importance_weights
 from tests.test_entropy import quad_entropy_bits
 
 

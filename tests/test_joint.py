@@ -5,13 +5,13 @@ import itertools
 import numpy as np
 import pytest
 
-from planner.allocate.greedy import greedy_plan
-from planner.allocate.joint import build_model, joint_plan, solve
-from planner.predict import Predictor
-from planner.problem import build_problem
-from planner.rules import TargetRules
-from planner.slew import Mount, slew_seconds
-from planner.surrogate import additive_surrogate, build_surrogate
+from planner.allocation.greedy import greedy_plan
+from planner.allocation.joint import build_model, joint_plan, solve
+from planner.allocation.problem import build_problem
+from planner.allocation.rules import TargetRules
+from planner.allocation.surrogate import additive_surrogate, build_surrogate
+from planner.information.predict import Predictor
+from planner.sky.slew import Mount, slew_seconds
 from tests.benchmarks.instances import grid_instance
 
 
@@ -125,7 +125,7 @@ def test_slew_gap_appears_between_far_targets_and_vanishes_without_slews():
         first, second = plan.visits
         gap_s = (second.start_jd - first.end_jd) * 86400.0
         if expect_gap:
-            # Reference: planner.slew.slew_seconds for 180 deg of azimuth plus the overhead.
+            # Reference: planner.sky.slew.slew_seconds for 180 deg of azimuth plus the overhead.
             need = float(slew_seconds(mount, 60.0, 0.0, 60.0, 180.0))
             assert gap_s >= need - 1e-6
             assert second.slew_s == pytest.approx(need)

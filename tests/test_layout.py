@@ -4,5 +4,5 @@ import importlib
 
 
 def test_packages_import():
-    for name in ("inference", "planner", "planner.allocate"):
+    for name in ("inference", "planner", "planner.allocation"):
         assert importlib.import_module(name).__doc__

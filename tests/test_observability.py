@@ -8,15 +8,15 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from planner.errors import ScenarioError
-from planner.observability import (
+from planner.sky.observability import (
     Constraints,
     binding_constraints,
     instantaneous_ok,
     observable_hours,
     observable_starts,
 )
-from planner.site import Night, Site, dark_windows, run_dates
-from planner.sky import Sky, compute_sky, pointing_at
+from planner.sky.site import Night, Site, dark_windows, run_dates
+from planner.sky.tracks import Sky, compute_sky, pointing_at
 
 SITE = Site(-29.3, -70.7, 2400.0, "America/Santiago", min_altitude_deg=20.0, max_altitude_deg=87.0)
 STEP_S = 120.0
@@ -37,7 +37,7 @@ def synthetic_sky(altitude, moon_sep=None, moon_alt=None, illum=None, n_nights=1
         times.append(start + step_d * np.arange(n_per))
         index.append(np.full(n_per, k))
     n = altitude.shape[1]
-    from planner.airmass import airmass_kasten_young
+    from planner.sky.airmass import airmass_kasten_young
 
     return Sky(
         times_jd=np.concatenate(times),
@@ -137,7 +137,7 @@ def test_observable_hours_and_binding_sentences(caplog):
     n_dark = np.sum(sky.times_jd <= sky.nights[0].dark_end_jd)
     assert hours[0, 0] == pytest.approx(n_dark * STEP_S / 3600)
     assert hours[1, 0] == 0 and hours[2, 0] == 0
-    with caplog.at_level(logging.WARNING, logger="planner.observability"):
+    with caplog.at_level(logging.WARNING, logger="planner.sky.observability"):
         why = binding_constraints(sky, c)
     assert why[0] is None
     assert "'s1'" in why[1] and "altitude" in why[1] and "highest 10.0" in why[1]

@@ -10,7 +10,7 @@ import pytest
 from astropy.utils.exceptions import AstropyWarning
 from erfa import ErfaWarning
 
-from planner.offline import configure, quiet_astropy
+from planner.sky.offline import configure, quiet_astropy
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -29,8 +29,8 @@ _SCRIPT = textwrap.dedent(
     socket.create_connection = refuse
     socket.getaddrinfo = refuse
     urllib.request.urlopen = refuse
-    from planner.site import Site, dark_windows, run_dates
-    from planner.sky import compute_sky, pointing_at
+    from planner.sky.site import Site, dark_windows, run_dates
+    from planner.sky.tracks import compute_sky, pointing_at
     site = Site(28.3, -16.5, 2300.0, "Atlantic/Canary")
     for years in (1, 4):
         first = (dt.date.today() + dt.timedelta(days=365 * years)).isoformat()

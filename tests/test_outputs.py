@@ -8,7 +8,7 @@ import pytest
 from astropy.time import Time
 
 from planner.errors import PlanError
-from planner.outputs import (
+from planner.workflow.outputs import (
     NightSummary,
     PlanFile,
     ScheduledVisit,

@@ -11,11 +11,11 @@ import numpy as np
 import pytest
 from astropy.time import Time
 
-from planner import pipeline
-from planner.cli import main
-from planner.outputs import parse_utc, read_plan
-from planner.plan import Plan, Visit
-from planner.verify import verify_plan
+from planner.allocation.plan import Plan, Visit
+from planner.allocation.verify import verify_plan
+from planner.cli.main import main
+from planner.workflow import pipeline
+from planner.workflow.outputs import parse_utc, read_plan
 
 TINY = Path(__file__).resolve().parent / "data" / "tiny" / "tiny.yaml"
 
@@ -77,7 +77,7 @@ def test_plan_json_airmass_matches_astropy(planned):
     import astropy.units as u
     from astropy.coordinates import AltAz, EarthLocation, SkyCoord
 
-    from planner import offline
+    from planner.sky import offline
 
     out, _ = planned
     data = json.loads((out / "plan.json").read_text())
@@ -161,14 +161,14 @@ def test_demo_path_and_user_cache(monkeypatch, tmp_path):
 
 
 def test_prepared_surrogate_is_calibrated_and_repeatable(run):
-    from planner.surrogate import build_surrogate
+    from planner.allocation.surrogate import build_surrogate
 
     # Same scenario and seed give the same objective (STYLE.md rule 8, explicit randomness).
     again = pipeline.prepare(run.scenario, run.posteriors)
     assert again.surrogate.patterns == run.surrogate.patterns
     # The pipeline passes an rng, so multi-night patterns are calibrated to the exact joint
     # information while single nights keep their exact one-visit bits (the calibration factor
-    # is 1 for one night by construction: planner/surrogate.py, _calibrate).
+    # is 1 for one night by construction: planner/allocation/surrogate.py, _calibrate).
     plain = build_surrogate(run.problem, run.predictors)
     moved = 0
     for cal, raw in zip(run.surrogate.patterns, plain.patterns, strict=True):

@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 
 from inference.keplerian import radial_velocity
-from planner.entropy import InformationError
-from planner.predict import MAX_NODES, Predictor, nodes_for
+from planner.information.entropy import InformationError
+from planner.information.predict import MAX_NODES, Predictor, nodes_for
 
 
 @pytest.mark.parametrize("e", [0.0, 0.3, 0.6, 0.9, 0.95])

@@ -5,10 +5,10 @@ import math
 import numpy as np
 import pytest
 
+from planner.allocation.problem import build_problem
+from planner.allocation.rules import TargetRules
 from planner.errors import PlanError
-from planner.problem import build_problem
-from planner.rules import TargetRules
-from planner.slew import Mount, slew_seconds
+from planner.sky.slew import Mount, slew_seconds
 from tests.benchmarks.instances import grid_instance
 
 
@@ -56,7 +56,7 @@ def test_thinning_keeps_spaced_starts_not_adjacent_ones():
 
 
 def test_gaps_are_the_mount_slew_plus_overhead_rounded_up():
-    # Reference: planner.slew.slew_seconds (the physical model) plus overhead and margin.
+    # Reference: planner.sky.slew.slew_seconds (the physical model) plus overhead and margin.
     mount = Mount()
     args = _arrays()
     p = build_problem(**args, slew=lambda a1, z1, a2, z2: slew_seconds(

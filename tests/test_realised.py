@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from scipy import integrate, stats
 
-from planner.divergence import (
+from planner.simulation.divergence import (
     bridge_kl_bits,
     bridge_log_evidence,
     effective_sample_size,
@@ -216,8 +216,8 @@ def _synthetic_posterior(rng, n=256, target="Invented-1"):
 
 def test_measure_reweighted_volume_and_bits(rng):
     from inference.data import RVData
-    from planner.realised import measure_reweighted, volume_columns
-    from planner.update import new_data_log_likelihood
+    from planner.information.update import new_data_log_likelihood
+    from planner.simulation.realised import measure_reweighted, volume_columns
 
     post = _synthetic_posterior(rng)
     new = RVData.from_arrays([2461060.0, 2461061.0, 2461063.5], [3.0, -2.0, 5.0], np.ones(3),
@@ -234,10 +234,10 @@ def test_measure_reweighted_volume_and_bits(rng):
 
 def _calibration(rng, post, t, sigma, n_trials):
     """Mean realised bits over truths drawn from the posterior, and its standard error."""
-    from planner.realised import measure_reweighted
-    from planner.simulate import Conditions, execute
-    from planner.truth import truth_from_sample
-    from planner.update import new_data_log_likelihood
+    from planner.information.update import new_data_log_likelihood
+    from planner.simulation.realised import measure_reweighted
+    from planner.simulation.simulate import Conditions, execute
+    from planner.simulation.truth import truth_from_sample
 
     cond = Conditions(visits=tuple(_fake_visit(post.target, x, k) for k, x in enumerate(t)),
                       bjd_tdb=t, airmass=np.ones(t.size), sigma_ms=sigma)
@@ -251,7 +251,7 @@ def _calibration(rng, post, t, sigma, n_trials):
 
 
 def _fake_visit(target, bjd, k):
-    from planner.plan import Visit
+    from planner.allocation.plan import Visit
 
     return Visit(target=target, night="2026-01-01", start_jd=bjd - 0.004, end_jd=bjd + 0.004,
                  exposure_s=600.0, slew_s=0.0, option=0, bits=0.0, candidate=k)
@@ -262,7 +262,7 @@ def test_calibration_realised_equals_expected_fast(rng):
     # the posterior, E[KL(new || old)] = I(data; parameters). On the sample posterior the
     # identity is exact, so only Monte Carlo error separates the two; the tolerance is 4
     # combined standard errors (false-failure budget 6e-5 for a fresh seed).
-    from planner.information import joint_bits
+    from planner.information.gain import joint_bits
 
     post = _synthetic_posterior(rng)
     t = np.array([2461060.0, 2461062.7, 2461066.1])
@@ -278,7 +278,7 @@ def test_calibration_realised_equals_expected_fast(rng):
 def test_calibration_realised_equals_expected_one_visit_grid(rng):
     # The same identity against the deterministic one-visit expected information over many
     # single times (one_visit_bits, no Monte Carlo on the expected side); 3000 trials per time.
-    from planner.information import one_visit_bits
+    from planner.information.gain import one_visit_bits
 
     post = _synthetic_posterior(rng, n=512)
     for t in (2461055.3, 2461071.0, 2461090.8):
@@ -315,8 +315,8 @@ def test_measure_refit_matches_conjugate_closed_form(rng, n_new, err, jit, metho
     # inside the new posterior and the kNN fallback takes over: its spread there is 0.53 bits
     # over 30 seeds (bias -0.05), so the tolerance is 4 x 0.53 bits.
     from inference.data import RVData
-    from planner.realised import measure_refit
-    from planner.update import new_data_log_likelihood
+    from planner.information.update import new_data_log_likelihood
+    from planner.simulation.realised import measure_refit
 
     m0, s0 = 2.0, 3.0
     v = err**2 + jit**2

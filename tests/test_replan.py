@@ -10,10 +10,10 @@ import numpy as np
 import pytest
 
 from inference.keplerian import radial_velocity
-from planner import pipeline, replan
-from planner.cli import main
+from planner.cli.main import main
 from planner.errors import PlanError
-from planner.outputs import parse_utc, read_plan
+from planner.workflow import pipeline, replan
+from planner.workflow.outputs import parse_utc, read_plan
 
 TINY = Path(__file__).resolve().parent / "data" / "tiny" / "tiny.yaml"
 TRUTH = Path(__file__).resolve().parents[1] / "scenarios" / "demo" / "truth" / "gamur-7.json"
@@ -31,7 +31,7 @@ def base(tmp_path_factory, cache_dir):
     posteriors = pipeline.fit_posteriors(scenario, cache_dir)
     result = pipeline.make_plan(pipeline.prepare(scenario, posteriors))
     out = tmp_path_factory.mktemp("base")
-    from planner.outputs import write_plan
+    from planner.workflow.outputs import write_plan
 
     json_path, _ = write_plan(out, result.plan_file)
     return scenario, posteriors, result.plan_file, json_path

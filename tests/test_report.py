@@ -7,8 +7,8 @@ from zoneinfo import ZoneInfo
 
 from test_outputs import make_plan
 
-from planner.outputs import parse_utc
-from planner.report import WIDTH, render_schedule
+from planner.workflow.outputs import parse_utc
+from planner.workflow.report import WIDTH, render_schedule
 
 ZONE = ZoneInfo("America/Santiago")
 

@@ -10,7 +10,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from planner.errors import ScenarioError
-from planner.scenario import Scenario, load_scenario, parse_scenario
+from planner.workflow.scenario import Scenario, load_scenario, parse_scenario
 
 DEMO = Path(__file__).resolve().parents[1] / "scenarios" / "demo" / "demo.yaml"
 

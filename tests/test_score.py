@@ -3,9 +3,9 @@
 import numpy as np
 import pytest
 
-from planner.plan import assemble_plan
-from planner.rules import TargetRules
-from planner.score import score_plan
+from planner.allocation.plan import assemble_plan
+from planner.allocation.rules import TargetRules
+from planner.allocation.score import score_plan
 from tests.benchmarks.instances import grid_instance
 
 

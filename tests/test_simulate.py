@@ -8,8 +8,8 @@ import pytest
 from scipy import stats
 
 from planner.errors import ScenarioError
-from planner.truth import Planet, TrueOrbit, read_truths
-from planner.weather import LostTime, Weather, draw_weather, lost_mask
+from planner.simulation.truth import Planet, TrueOrbit, read_truths
+from planner.simulation.weather import LostTime, Weather, draw_weather, lost_mask
 
 DEMO_TRUTH = Path(__file__).resolve().parents[1] / "scenarios" / "demo" / "truth"
 
@@ -118,8 +118,8 @@ def test_lost_mask_overlap_rules():
 @pytest.fixture(scope="module")
 def demo_night():
     """Site, first demo night, its sky for three demo stars, the instrument and their truths."""
-    from planner import pipeline
-    from planner.sky import compute_sky
+    from planner.sky.tracks import compute_sky
+    from planner.workflow import pipeline
 
     scenario = pipeline.load(None)
     site, _, aligned, _, instrument, _ = pipeline.physical_setup(scenario)
@@ -132,7 +132,7 @@ def demo_night():
 
 
 def _visits(night, stars, per_star, exposure_s=600.0):
-    from planner.plan import Visit
+    from planner.allocation.plan import Visit
 
     span = night.dark_end_jd - night.dark_start_jd - exposure_s / 86400.0
     out = []
@@ -146,9 +146,9 @@ def _visits(night, stars, per_star, exposure_s=600.0):
 
 
 def test_simulator_uses_the_planner_noise_model(demo_night, monkeypatch):
-    # One implementation: replacing planner.exposure.rv_sigma changes the simulator's noise.
-    from planner import exposure
-    from planner.simulate import visit_conditions
+    # One implementation: replacing planner.sky.exposure.rv_sigma changes the simulator's noise.
+    from planner.simulation.simulate import visit_conditions
+    from planner.sky import exposure
 
     site, night, sky, instrument, stars, _ = demo_night
     visits = _visits(night, stars, 2)
@@ -171,8 +171,8 @@ def test_conditions_match_astropy(demo_night):
     from astropy.coordinates import AltAz, SkyCoord
     from astropy.time import Time
 
-    from planner import offline
-    from planner.simulate import visit_conditions
+    from planner.simulation.simulate import visit_conditions
+    from planner.sky import offline
 
     site, night, sky, instrument, stars, _ = demo_night
     visits = _visits(night, stars, 3)
@@ -194,7 +194,7 @@ def test_conditions_match_astropy(demo_night):
 def test_simulated_residuals_are_standard_normal(demo_night):
     # The velocity minus the true orbit, over sqrt(sigma^2 + jitter^2), must be N(0, 1):
     # Kolmogorov-Smirnov test from scipy.stats, false-failure budget 1e-4.
-    from planner.simulate import execute, visit_conditions
+    from planner.simulation.simulate import execute, visit_conditions
 
     site, night, sky, instrument, stars, truths = demo_night
     c = visit_conditions(_visits(night, stars, 150), stars, site, sky, instrument)
@@ -210,7 +210,7 @@ def test_simulated_residuals_are_standard_normal(demo_night):
 
 
 def test_weather_removes_visits_and_keeps_the_rest_unchanged(demo_night):
-    from planner.simulate import execute, visit_conditions
+    from planner.simulation.simulate import execute, visit_conditions
 
     site, night, sky, instrument, stars, truths = demo_night
     c = visit_conditions(_visits(night, stars, 6), stars, site, sky, instrument)
@@ -229,7 +229,7 @@ def test_weather_removes_visits_and_keeps_the_rest_unchanged(demo_night):
 
 def test_visit_without_truth_is_refused(demo_night):
     from planner.errors import PlanError
-    from planner.simulate import execute, visit_conditions
+    from planner.simulation.simulate import execute, visit_conditions
 
     site, night, sky, instrument, stars, truths = demo_night
     c = visit_conditions(_visits(night, stars, 1), stars, site, sky, instrument)

@@ -7,8 +7,8 @@ from astropy.coordinates import AltAz, get_body
 from astropy.time import Time
 
 from planner.errors import ScenarioError, SkyError
-from planner.offline import quiet_astropy
-from planner.site import SUNSET_ALTITUDE_DEG, Site, dark_windows, run_dates, twilight_altitude
+from planner.sky.offline import quiet_astropy
+from planner.sky.site import SUNSET_ALTITUDE_DEG, Site, dark_windows, run_dates, twilight_altitude
 
 # Invented sites (numbers only).
 SOUTH = Site(-29.3, -70.7, 2400.0, "America/Santiago")

@@ -8,11 +8,11 @@ import pytest
 from astropy.coordinates import AltAz, HADec, SkyCoord, get_body
 from astropy.time import Time
 
-from planner.ephemeris import illuminated_fraction, node_ephemeris
 from planner.errors import ScenarioError
-from planner.offline import quiet_astropy
-from planner.site import Site, dark_windows, night_span_start_jd, run_dates
-from planner.sky import compute_sky, pointing_at
+from planner.sky.ephemeris import illuminated_fraction, node_ephemeris
+from planner.sky.offline import quiet_astropy
+from planner.sky.site import Site, dark_windows, night_span_start_jd, run_dates
+from planner.sky.tracks import compute_sky, pointing_at
 
 # An invented site (numbers only, no real observatory).
 SITE = Site(-29.3, -70.7, 2400.0, "America/Santiago", min_altitude_deg=20.0)

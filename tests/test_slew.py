@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from planner.errors import ScenarioError
-from planner.slew import Mount, axis_seconds, max_slew_seconds, slew_seconds
+from planner.sky.slew import Mount, axis_seconds, max_slew_seconds, slew_seconds
 
 
 def _bare(**kwargs):
@@ -114,8 +114,8 @@ def test_largest_slew_over_pairs_matches_brute_force(wrap, accel):
 def test_problem_largest_gap_is_the_brute_force_over_pairs():
     # Reference: the same problem with the mount's model hidden behind a plain function, whose
     # largest gap conflicts.max_gap_min finds pair by pair (all pairs of each night).
-    from planner.allocate.conflicts import max_gap_min
-    from planner.problem import mount_slew
+    from planner.allocation.conflicts import max_gap_min
+    from planner.allocation.problem import mount_slew
     from tests.benchmarks.instances import grid_instance
 
     mount = Mount(rate1_deg_s=0.5, rate2_deg_s=0.4, accel_deg_s2=0.3, az_wrap_deg=(-270, 270))

@@ -9,11 +9,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from planner.cli import main
-from planner.information import InformationError, joint_bits, one_visit_bits
-from planner.labels import interval_labels, parameter_values, period_modes
-from planner.predict import Predictor
-from planner.subset import LabelEstimate, label_bits, label_joint_bits
+from planner.cli.main import main
+from planner.information.gain import InformationError, joint_bits, one_visit_bits
+from planner.information.labels import interval_labels, parameter_values, period_modes
+from planner.information.partial import LabelEstimate, label_bits, label_joint_bits
+from planner.information.predict import Predictor
 
 TINY = Path(__file__).resolve().parent / "data" / "tiny" / "tiny.yaml"
 
@@ -215,7 +215,7 @@ def cache_dir(tmp_path_factory):
 
 @pytest.fixture(scope="session")
 def tiny_run(cache_dir):
-    from planner import pipeline
+    from planner.workflow import pipeline
 
     scenario = pipeline.load(TINY)
     return pipeline.prepare(scenario, pipeline.fit_posteriors(scenario, cache_dir, jobs=1), jobs=1)
@@ -225,7 +225,7 @@ def test_run_bits_match_the_array_core_and_stay_below_the_full_curves(tiny_run):
     # Data processing (Cover and Thomas 2006): never above the full one-visit bits of the same
     # starts; and the run path (all options in one pass, worker processes) gives what the
     # array core gives for one option's starts, predicted at the same mid-exposure columns.
-    from planner.subset import run_label_bits
+    from planner.information.partial import run_label_bits
 
     run = tiny_run
     one = run_label_bits(run, "period", jobs=1)

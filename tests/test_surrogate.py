@@ -5,10 +5,10 @@ import itertools
 import numpy as np
 import pytest
 
-from planner.allocate.cadence import cadence_plan
-from planner.allocate.greedy import greedy_plan
-from planner.information import joint_bits
-from planner.surrogate import _pattern_values, build_surrogate, gaussian_redundancy
+from planner.allocation.cadence import cadence_plan
+from planner.allocation.greedy import greedy_plan
+from planner.allocation.surrogate import _pattern_values, build_surrogate, gaussian_redundancy
+from planner.information.gain import joint_bits
 from tests.benchmarks.instances import shared_sky_instance
 
 
@@ -62,7 +62,7 @@ def test_marginal_gains_shrink_as_the_set_grows():
 
 def test_surrogate_error_against_the_exact_joint_information():
     # Outside reference: the exact joint information of each target's visits (mixture entropy
-    # by Monte Carlo over outcomes, planner.information.joint_bits). Measured on this instance
+    # by Monte Carlo over outcomes, planner.information.gain.joint_bits). Measured on this instance
     # (Gaussian patterns, no generator): per-target median relative error 1.4 % (3 to 5 %
     # before the saturation share rho); the check allows 12 %.
     inst = shared_sky_instance(8, 2, 3)
@@ -83,9 +83,9 @@ def test_surrogate_error_against_the_exact_joint_information():
 
 
 def test_calibration_makes_the_largest_pattern_exact():
-    # Outside reference: planner.information.joint_bits on the target's best candidate of each
+    # Outside reference: planner.information.gain.joint_bits on the target's best candidate of each
     # night (the pattern the calibration matches), with a fresh generator.
-    from planner.surrogate import _best_per_night
+    from planner.allocation.surrogate import _best_per_night
 
     inst = shared_sky_instance(8, 2, 3)
     p = inst.problem
@@ -110,7 +110,7 @@ def test_calibration_makes_the_largest_pattern_exact():
 
 def _alias_star(rng, n_samples, semi_amplitude):
     """An invented star whose period is 3.0 d or its alias 1.5 d (60 / 40 % of the samples)."""
-    from planner.predict import Predictor
+    from planner.information.predict import Predictor
 
     alias = rng.uniform(size=n_samples) < 0.4
     return Predictor.from_parameters(
@@ -125,8 +125,8 @@ def _one_star_problem(rng, predictor):
     """Two 6-hour nights, up to two visits a night an hour apart, exact one-visit bits."""
     import dataclasses
 
-    from planner.information import one_visit_bits
-    from planner.rules import TargetRules
+    from planner.allocation.rules import TargetRules
+    from planner.information.gain import one_visit_bits
     from tests.benchmarks.instances import grid_instance
 
     problem = grid_instance(1, 2, rng=rng, hours=6.0, step_min=30, keep_per_night=13,
@@ -139,12 +139,12 @@ def _one_star_problem(rng, predictor):
 @pytest.mark.parametrize("n_samples, semi_amplitude", [(300, 8.0), (32, 30.0)])
 def test_two_mode_star_and_same_night_pairs_match_the_exact_joint_information(
         rng, n_samples, semi_amplitude):
-    # Outside reference: planner.information.joint_bits (checked against Lindley's closed form
+    # Outside reference: planner.information.gain.joint_bits (checked against Lindley's closed form
     # in tests/test_information.py), 4096 outcomes, on an invented period-alias star: a
     # strongly non-Gaussian predictive, where a Gaussian log-det over-states the information.
     # The second case has 32 samples and 30 m/s against 1.4 m/s of noise, so four visits reach
     # the sample posterior's ceiling of log2(32) = 5 bits, as the demo's best stars did.
-    from planner.surrogate import _slot_representatives
+    from planner.allocation.surrogate import _slot_representatives
 
     predictor = _alias_star(rng, n_samples, semi_amplitude)
     problem, v, total = _one_star_problem(rng, predictor)
@@ -179,11 +179,11 @@ def test_two_mode_star_and_same_night_pairs_match_the_exact_joint_information(
 
 
 def test_pattern_bits_is_joint_bits_on_every_subset(rng):
-    # Outside reference: planner.information.joint_bits. On the whole set with the same
+    # Outside reference: planner.information.gain.joint_bits. On the whole set with the same
     # generator state both draw the same outcomes with the same estimator, so they agree to
     # float32 rounding; a smaller subset sees the marginal of those outcomes, an independent
     # estimate of the same quantity: within 5 standard errors.
-    from planner.visit_sets import pattern_bits
+    from planner.information.visit_sets import pattern_bits
 
     v = rng.standard_normal((200, 3)) @ np.array([[4.0, 1, 0], [0, 3, 1], [0, 0, 2]])
     v[:80] += 6.0  # two modes

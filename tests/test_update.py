@@ -7,8 +7,8 @@ import numpy as np
 import pytest
 
 from inference.data import RVData
-from planner.entropy import InformationError
-from planner.update import (
+from planner.information.entropy import InformationError
+from planner.information.update import (
     importance_weights,
     new_data_log_likelihood,
     systematic_resample,

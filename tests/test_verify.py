@@ -5,13 +5,13 @@ import dataclasses
 import numpy as np
 import pytest
 
-from planner.allocate.cadence import cadence_plan
-from planner.allocate.greedy import greedy_plan
-from planner.allocate.joint import joint_plan
+from planner.allocation.cadence import cadence_plan
+from planner.allocation.greedy import greedy_plan
+from planner.allocation.joint import joint_plan
+from planner.allocation.surrogate import build_surrogate
+from planner.allocation.verify import require_valid, verify_plan
 from planner.errors import PlanError
-from planner.observability import Constraints
-from planner.surrogate import build_surrogate
-from planner.verify import require_valid, verify_plan
+from planner.sky.observability import Constraints
 from tests.benchmarks.instances import shared_sky_instance
 
 
@@ -40,8 +40,8 @@ def _replace(plan, k, **changes):
 
 
 def test_every_strategy_passes(case):
-    # Positions recomputed with astropy's full transforms (planner.sky.pointing_at) at exact
-    # times, slews with planner.slew.slew_seconds: independent of the strategies' tables.
+    # Positions recomputed with astropy's full transforms (planner.sky.tracks.pointing_at) at exact
+    # times, slews with planner.sky.slew.slew_seconds: independent of the strategies' tables.
     inst, plans = case
     for plan in plans.values():
         result = _check(inst, plan)
@@ -83,12 +83,13 @@ def test_violations_are_caught(case):
 
 
 def test_exact_sky_matches_pointing_at():
-    # Reference: planner.sky.pointing_at (astropy, the Moon separation in the TETE frame, itself
+    # Reference: planner.sky.tracks.pointing_at (astropy, the Moon separation in the TETE frame,
+    # itself
     # checked against the sky grid in tests/test_sky.py). The verifier takes the target and the
     # Moon both to AltAz in one pass; the two must give the same angles.
-    from planner.site import Site
-    from planner.sky import pointing_at
-    from planner.verify import _exact_sky
+    from planner.allocation.verify import _exact_sky
+    from planner.sky.site import Site
+    from planner.sky.tracks import pointing_at
 
     site = Site(latitude_deg=-27.45, longitude_deg=-69.95, elevation_m=2400.0,
                 timezone="America/Santiago")

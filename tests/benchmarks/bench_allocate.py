@@ -3,7 +3,8 @@
 Run ``python tests/benchmarks/bench_allocate.py [--quick] [--scale demo|large|both]``.
 
 For each instance it prints the joint plan's surrogate objective, CP-SAT's proven bound and the
-gap, and the exact expected information (``planner.score``) of the joint, greedy (surrogate
+gap, and the exact expected information (``planner.allocation.score``) of the joint, greedy
+(surrogate
 gains and exact conditional gains) and cadence plans, with the surrogate's error against the
 exact score; then medians over the instances and the joint/greedy ratios.
 """
@@ -20,11 +21,11 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from planner.allocate.cadence import cadence_plan  # noqa: E402
-from planner.allocate.greedy import exact_gain, greedy_plan  # noqa: E402
-from planner.allocate.joint import joint_plan  # noqa: E402
-from planner.score import score_plan  # noqa: E402
-from planner.surrogate import build_surrogate  # noqa: E402
+from planner.allocation.cadence import cadence_plan  # noqa: E402
+from planner.allocation.greedy import exact_gain, greedy_plan  # noqa: E402
+from planner.allocation.joint import joint_plan  # noqa: E402
+from planner.allocation.score import score_plan  # noqa: E402
+from planner.allocation.surrogate import build_surrogate  # noqa: E402
 from tests.benchmarks.instances import sky_instance  # noqa: E402
 
 

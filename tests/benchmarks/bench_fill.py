@@ -1,7 +1,8 @@
 """Benchmark how fully each strategy fills the demo nights, and what the idle time is made of.
 
 For the demo run (posteriors from the cache; the first run fits every target) it prints, per
-strategy (cadence, greedy, joint): exposures, exact bits (``planner.score.score_plan``), and the
+strategy (cadence, greedy, joint): exposures, exact bits (``planner.allocation.score.score_plan``),
+and the
 idle hours of each night (dark time not spent exposing or slewing). For the joint plan it then
 lists the idle stretches of at least 15 minutes and, for each, how many candidate visits of the
 problem fit inside it (in time, without looking at rules) and how many of those belong to a
@@ -58,8 +59,8 @@ def _stretches(plan, problem, least_min: float = 15.0):
 
 def main() -> None:
     """Measure and print."""
-    from planner import pipeline
-    from planner.score import score_plan
+    from planner.allocation.score import score_plan
+    from planner.workflow import pipeline
 
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="5 s solver limit")

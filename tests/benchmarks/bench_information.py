@@ -22,10 +22,10 @@ import time
 
 import numpy as np
 
-from planner.curves import build_curve
-from planner.entropy import mixture_entropy_bits
-from planner.information import conditional_bits, joint_bits
-from planner.predict import Predictor
+from planner.information.curves import build_curve
+from planner.information.entropy import mixture_entropy_bits
+from planner.information.gain import conditional_bits, joint_bits
+from planner.information.predict import Predictor
 
 STEP_D = 120.0 / 86400.0
 N_SAMPLES = 2000

@@ -20,10 +20,10 @@ if str(ROOT) not in sys.path:
     sys.path.insert(0, str(ROOT))
 
 from planner import pipeline  # noqa: E402
-from planner.cli_simulate import render_tables  # noqa: E402
-from planner.experiment import STRATEGIES, build_setup, run_strategy  # noqa: E402
-from planner.scoreboard import Experiment, summarise  # noqa: E402
-from planner.truth import read_truths  # noqa: E402
+from planner.cli.simulate import render_tables  # noqa: E402
+from planner.simulation.experiment import STRATEGIES, build_setup, run_strategy  # noqa: E402
+from planner.simulation.scoreboard import Experiment, summarise  # noqa: E402
+from planner.simulation.truth import read_truths  # noqa: E402
 
 
 def main():

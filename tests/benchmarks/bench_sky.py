@@ -21,11 +21,11 @@ import time  # noqa: E402
 
 import numpy as np  # noqa: E402
 
-from planner.ephemeris import _cached_nodes  # noqa: E402
-from planner.observability import Constraints, observable_starts  # noqa: E402
-from planner.offline import quiet_astropy  # noqa: E402
-from planner.site import Site, dark_windows, run_dates  # noqa: E402
-from planner.sky import compute_sky  # noqa: E402
+from planner.sky.ephemeris import _cached_nodes  # noqa: E402
+from planner.sky.observability import Constraints, observable_starts  # noqa: E402
+from planner.sky.offline import quiet_astropy  # noqa: E402
+from planner.sky.site import Site, dark_windows, run_dates  # noqa: E402
+from planner.sky.tracks import compute_sky  # noqa: E402
 
 SITE = Site(-29.3, -70.7, 2400.0, "America/Santiago", min_altitude_deg=20.0)  # invented
 

@@ -18,9 +18,9 @@ import time
 
 import numpy as np
 
-from planner.information import one_visit_bits
-from planner.labels import default_label_count, interval_labels
-from planner.subset import label_bits
+from planner.information.gain import one_visit_bits
+from planner.information.labels import default_label_count, interval_labels
+from planner.information.partial import label_bits
 
 #: (a, b, sigma) of the linear-Gaussian cases.
 CASES = ((2.0, 1.0, 1.0), (5.0, 0.5, 0.5), (1.0, 2.0, 0.5), (1.0, 4.0, 0.5), (3.0, 6.0, 0.5))

@@ -2,7 +2,8 @@
 
 Loads the bundled demo through the pipeline (cached posteriors: ``nightbits fit`` first),
 builds the cadence, greedy and joint plans as ``nightbits compare`` does, and prints per star:
-visits, nights, exact joint bits (``planner.information.joint_bits``) with their standard error,
+visits, nights, exact joint bits (``planner.information.gain.joint_bits``) with their standard
+error,
 the surrogate's value and its parts: ``V(first)`` (the pattern of each night's first slot),
 ``within`` (what the further same-night slots add to ``V``) and ``unary`` (the visits' own
 one-visit bits less their slot representatives'). Then per strategy the totals, the median
@@ -24,11 +25,11 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from planner import pipeline  # noqa: E402
-from planner.allocate.cadence import cadence_plan  # noqa: E402
-from planner.allocate.greedy import greedy_plan  # noqa: E402
-from planner.allocate.joint import build_model, joint_plan  # noqa: E402
-from planner.score import score_plan  # noqa: E402
-from planner.surrogate import build_surrogate, slot_bit  # noqa: E402
+from planner.allocation.cadence import cadence_plan  # noqa: E402
+from planner.allocation.greedy import greedy_plan  # noqa: E402
+from planner.allocation.joint import build_model, joint_plan  # noqa: E402
+from planner.allocation.score import score_plan  # noqa: E402
+from planner.allocation.surrogate import build_surrogate, slot_bit  # noqa: E402
 
 
 def decompose(surrogate, problem, s, mine):

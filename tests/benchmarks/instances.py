@@ -5,8 +5,8 @@ Two kinds:
 * :func:`grid_instance`: hand-made geometry and values on a small grid (no sky, no posterior),
   for exact tests of the strategies (enumeration, constructed cases);
 * :func:`sky_instance`: an invented site and run with invented stars, real sky geometry from
-  :mod:`planner.sky`, observability, noise and slews from the physical modules, and synthetic
-  orbit-posterior clouds whose one-visit information comes from :mod:`planner.information`.
+  :mod:`planner.sky.tracks`, observability, noise and slews from the physical modules, and synthetic
+  orbit-posterior clouds whose one-visit information comes from :mod:`planner.information.gain`.
 
 Nothing here is real: the site, the stars and their orbits are drawn from the seed.
 """
@@ -18,8 +18,8 @@ from functools import lru_cache
 
 import numpy as np
 
-from planner.problem import Problem, build_problem, problem_from_sky
-from planner.rules import TargetRules
+from planner.allocation.problem import Problem, build_problem, problem_from_sky
+from planner.allocation.rules import TargetRules
 
 __all__ = ["SkyInstance", "grid_instance", "shared_sky_instance", "sky_instance"]
 
@@ -100,11 +100,11 @@ class SkyInstance:
     Attributes
     ----------
     problem : Problem
-    predictors : tuple of planner.predict.Predictor
+    predictors : tuple of planner.information.predict.Predictor
         One synthetic posterior per target (problem order).
-    sky : planner.sky.Sky
-    constraints : planner.observability.Constraints
-    mount : planner.slew.Mount
+    sky : planner.sky.tracks.Sky
+    constraints : planner.sky.observability.Constraints
+    mount : planner.sky.slew.Mount
     ra_deg, dec_deg : ndarray, shape (n_targets,)
     """
 
@@ -157,13 +157,13 @@ def sky_instance(
     slews: bool = True,
 ) -> SkyInstance:
     """An invented run of ``n_targets`` stars over ``n_nights`` nights, fully seeded."""
-    from planner.exposure import Instrument, rv_sigma
-    from planner.information import one_visit_bits
-    from planner.observability import Constraints, observable_starts
-    from planner.predict import Predictor
-    from planner.site import Site, dark_windows, run_dates
-    from planner.sky import compute_sky
-    from planner.slew import Mount
+    from planner.information.gain import one_visit_bits
+    from planner.information.predict import Predictor
+    from planner.sky.exposure import Instrument, rv_sigma
+    from planner.sky.observability import Constraints, observable_starts
+    from planner.sky.site import Site, dark_windows, run_dates
+    from planner.sky.slew import Mount
+    from planner.sky.tracks import compute_sky
 
     rng = np.random.default_rng(seed)
     site = Site(**SITE_ARGS)

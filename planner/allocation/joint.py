@@ -1,0 +1,360 @@
+"""Joint strategy: all nights at once with OR-Tools CP-SAT.
+
+The model is time-indexed: one Boolean per candidate visit (fixed start, option and target).
+Visits of one night may not overlap and must leave each slew between them:
+
+* one ``AtMostOne`` per slot clique, the candidates whose exposure plus the smallest possible gap
+  covers one start time (a clique formulation, whose linear relaxation is much stronger than one
+  NoOverlap of optional intervals);
+* one clause per remaining pair that conflicts only through its real, longer slew, so the
+  returned schedule respects the exact slew between every pair of neighbours.
+
+Per-target rules are linear constraints; the objective is the visit-pattern surrogate
+(:mod:`planner.allocation.surrogate`, one Boolean per visit pattern of each target) in integer
+units. The greedy plan is given as a complete hint, so the solver starts from a feasible plan
+and never returns a worse one. CP-SAT's best objective bound is a proven upper bound on the
+surrogate over every plan of the problem; the gap is reported against it (no bound when the
+search found nothing in time).
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+
+import numpy as np
+from ortools.sat.python import cp_model
+
+from planner.allocation.conflicts import max_gap_min, slew_pairs, slot_cliques, spacing_cliques
+from planner.allocation.greedy import greedy_plan
+from planner.allocation.plan import Plan, assemble_plan
+from planner.allocation.problem import Problem
+from planner.allocation.surrogate import Surrogate
+from planner.errors import PlanError
+
+__all__ = ["FOCUS_GAP_LIMIT", "JointHandles", "build_model", "joint_plan", "solve"]
+
+#: Relative gap at which the first (reduced) stage of a two-stage solve stops; the second stage
+#: searches on from its plan. On the demo the reduced model reached 0.5 % in 5.3 s (114.88
+#: surrogate bits; 115.13 after its whole 12.5 s). Giving the second stage the time the first
+#: left made `nightbits plan` 16 % slower than with the previous surrogate (54.3 s against
+#: 46.9 s) for no measurable gain (113.46 and 113.92 exact bits against 113.05 and 113.78).
+FOCUS_GAP_LIMIT = 0.005
+
+
+@dataclass(frozen=True, eq=False)
+class JointHandles:
+    """Variables of a joint model, for reading a solution back.
+
+    Attributes
+    ----------
+    problem : Problem
+        The problem the model was built from.
+    surrogate : Surrogate
+        Its objective.
+    x : list of cp_model.IntVar
+        One Boolean per candidate visit.
+    hint : ndarray of int or None
+        Candidate indices given as the solution hint.
+    stats : tuple of (str, float)
+        Model size figures.
+    """
+
+    problem: Problem
+    surrogate: Surrogate
+    x: list
+    hint: np.ndarray | None
+    stats: tuple[tuple[str, float], ...]
+
+
+def build_model(
+    problem: Problem, surrogate: Surrogate, *, hint: np.ndarray | None = None
+) -> tuple[cp_model.CpModel, JointHandles]:
+    """Build the CP-SAT model of a problem.
+
+    Parameters
+    ----------
+    problem : Problem
+        Candidate visits and rules.
+    surrogate : Surrogate
+        Integer objective.
+    hint : ndarray of int, optional
+        Candidate indices of a feasible plan, given as a full solution hint.
+
+    Returns
+    -------
+    model : cp_model.CpModel
+        The model (maximisation).
+    handles : JointHandles
+        Its variables.
+    """
+    model = cp_model.CpModel()
+    x = [model.NewBoolVar(f"x_{c}") for c in range(problem.n_candidates)]
+    cliques = slot_cliques(problem)
+    for members in cliques:
+        model.AddAtMostOne(x[c] for c in members)
+    pairs = slew_pairs(problem, max_gap_min(problem))
+    for a, b in pairs:
+        model.AddBoolOr([x[a].Not(), x[b].Not()])
+    for members in spacing_cliques(problem):
+        model.AddAtMostOne(x[c] for c in members)
+
+    objective = [int(surrogate.unary[c]) * x[c] for c in range(problem.n_candidates)]
+    hint_set = set() if hint is None else {int(c) for c in hint}
+    n_patterns = 0
+    for s, rule in enumerate(problem.rules):
+        mine = np.flatnonzero(problem.target == s)
+        if mine.size == 0:
+            if rule.min_visits > 0 or rule.must_windows_jd:
+                raise PlanError(
+                    f"Target {problem.target_names[s]!r} has required visits but no observable "
+                    "start in the run; relax its rules or its limits."
+                )
+            continue
+        total = sum(x[c] for c in mine)
+        model.Add(total >= rule.min_visits)
+        if rule.max_visits is not None:
+            model.Add(total <= rule.max_visits)
+        for lo, hi in rule.must_windows_jd:
+            inside = mine[(problem.start_jd(mine) >= lo) & (problem.end_jd(mine) <= hi)]
+            model.Add(sum(x[c] for c in inside) >= 1)
+        # One Boolean per visit pattern (visits per night); each night's visit count is the
+        # sum of the patterns' counts for it, so the relaxation is the convex hull of V.
+        hinted = [c for c in hint_set if problem.target[c] == s]
+        hinted_key = surrogate.key(problem, *np.unique(problem.night[hinted], return_counts=True))
+        chooser = []
+        per_night = {}
+        for key in surrogate.patterns[s]:
+            if key == 0:
+                continue
+            p = model.NewBoolVar(f"p_{s}_{key}")
+            chooser.append(p)
+            objective.append(int(surrogate.net(problem, s, key)) * p)
+            for n in range(problem.n_nights):
+                k = sum(key >> (n + j * problem.n_nights) & 1
+                        for j in range(surrogate.slots.shape[2]))
+                if k:
+                    per_night.setdefault(n, []).append((k, p))
+            if hint is not None:
+                model.AddHint(p, int(key == hinted_key))
+        n_patterns += len(chooser)
+        model.AddAtMostOne(chooser)
+        for n in np.unique(problem.night[mine]):
+            members = mine[problem.night[mine] == n]
+            model.Add(sum(x[c] for c in members)
+                      == sum(k * p for k, p in per_night.get(int(n), [])))
+    model.Maximize(sum(objective))
+    if hint is not None:
+        for c in range(problem.n_candidates):
+            model.AddHint(x[c], int(c in hint_set))
+    stats = (
+        ("candidates", problem.n_candidates),
+        ("slot_cliques", len(cliques)),
+        ("slew_pairs", len(pairs)),
+        ("night_patterns", n_patterns),
+    )
+    return model, JointHandles(problem, surrogate, x, None if hint is None else np.asarray(hint),
+                               stats)
+
+
+def solve(
+    model: cp_model.CpModel,
+    handles: JointHandles,
+    *,
+    time_limit_s: float = 60.0,
+    seed: int = 0,
+    workers: int = 2,
+    gap_limit: float = 0.0,
+) -> Plan:
+    """Solve a joint model and read the plan back.
+
+    Parameters
+    ----------
+    model : cp_model.CpModel
+        From :func:`build_model`.
+    handles : JointHandles
+        Its variables.
+    time_limit_s : float
+        Wall-clock limit of the search [s].
+    seed : int
+        CP-SAT random seed.
+    workers : int
+        CP-SAT search workers.
+    gap_limit : float
+        Stop once the relative gap is at most this (0: search to the optimum or the limit); a
+        plan stopped so has status ``WITHIN_GAP``.
+
+    Returns
+    -------
+    Plan
+        The best plan found (the hint's plan if the solver found none in time), with the proven
+        bound and the gap on the surrogate.
+
+    Raises
+    ------
+    PlanError
+        If the rules cannot all be met, or no plan was found and no hint was given.
+    """
+    problem, surrogate = handles.problem, handles.surrogate
+    solver = cp_model.CpSolver()
+    solver.parameters.max_time_in_seconds = float(time_limit_s)
+    solver.parameters.random_seed = int(seed)
+    solver.parameters.num_workers = int(workers)
+    # Probing in presolve adds about a million implications between the visit-pattern
+    # Booleans and took the whole demo limit; without it the demo's reduced model reached a
+    # 0.3 % gap in 12.5 s (docs/allocation.md).
+    solver.parameters.cp_model_probing_level = 0
+    solver.parameters.relative_gap_limit = float(gap_limit)
+    if workers == 1:
+        solver.parameters.linearization_level = 2
+    elif workers == 2:
+        # CP-SAT's own two-worker portfolio leaves the bound at a weak value on these models;
+        # two LP-based workers (full and default linearisation) close it (docs/allocation.md).
+        solver.parameters.subsolvers.extend(["max_lp", "default_lp"])
+    t0 = time.perf_counter()
+    status = solver.Solve(model)
+    runtime = time.perf_counter() - t0
+    name = solver.StatusName(status)
+    if status == cp_model.INFEASIBLE:
+        raise PlanError(
+            "No plan meets every rule (minimum visits, must-do windows or spacing clash with the "
+            "sky limits); relax those rules."
+        )
+    if status in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+        chosen = np.array([c for c in range(problem.n_candidates) if solver.Value(handles.x[c])],
+                          dtype=np.int64)
+    elif handles.hint is not None:
+        chosen, name = handles.hint, "HINT_ONLY"  # nothing proven either: no bound
+    else:
+        raise PlanError(
+            f"The solver found no plan within {time_limit_s:g} s; raise the time limit."
+        )
+    value = surrogate.value(problem, chosen)
+    bound = (max(solver.BestObjectiveBound(), value) / surrogate.scale
+             if name != "HINT_ONLY" else None)
+    if name == "OPTIMAL" and bound is not None and bound * surrogate.scale > value:
+        name = "WITHIN_GAP"  # CP-SAT calls a search stopped by the gap limit optimal
+    marginal = _marginals(problem, surrogate, chosen)
+    stats = handles.stats + (
+        ("branches", solver.NumBranches()),
+        ("conflicts", solver.NumConflicts()),
+        ("wall_time_s", solver.WallTime()),
+    )
+    return assemble_plan(
+        problem, chosen, strategy="joint", objective=value / surrogate.scale,
+        marginal_bits=marginal, bound=bound, status=name,
+        runtime_s=runtime, seed=int(seed), stats=stats,
+    )
+
+
+def _marginals(problem: Problem, surrogate: Surrogate, chosen: np.ndarray) -> np.ndarray:
+    """Surrogate marginal bits of each chosen visit given the earlier ones of its target."""
+    chosen = np.asarray(chosen, dtype=np.int64)
+    out = np.zeros(chosen.size)
+    for k, c in enumerate(chosen):
+        earlier = chosen[(problem.target[chosen] == problem.target[c])
+                         & (problem.start[chosen] < problem.start[c])]
+        out[k] = surrogate.marginal(problem, [c], earlier)[0] / surrogate.scale
+    return out
+
+
+def _best_per_group(problem: Problem, surrogate: Surrogate, keep: int, extra) -> np.ndarray:
+    """Return the ``keep`` most valuable candidates per (target, night, option), plus extra."""
+    group = (problem.target * problem.n_nights + problem.night) * problem.exposure_s.size \
+        + problem.option
+    order = np.lexsort((-surrogate.unary, group))
+    first = np.r_[0, np.flatnonzero(np.diff(group[order])) + 1]
+    rank = np.arange(order.size) - np.repeat(first, np.diff(np.r_[first, order.size]))
+    chosen = np.zeros(problem.n_candidates, dtype=bool)
+    chosen[order[rank < keep]] = True
+    chosen[np.asarray(extra, dtype=np.int64)] = True
+    return np.flatnonzero(chosen)
+
+
+def joint_plan(
+    problem: Problem,
+    surrogate: Surrogate,
+    *,
+    time_limit_s: float = 60.0,
+    seed: int = 0,
+    workers: int = 2,
+    hint: Plan | None = None,
+    keep_per_group: int | None = None,
+    focus_per_group: int | None = None,
+    focus_share: float = 0.5,
+    gap_limit: float = 0.0,
+) -> Plan:
+    """Build and solve the joint model, hinted with ``hint`` (default: the greedy plan).
+
+    Parameters
+    ----------
+    problem : Problem
+        Candidate visits and rules.
+    surrogate : Surrogate
+        Integer objective.
+    time_limit_s, seed, workers
+        Solver limits (see :func:`solve`); the time limit covers the search only.
+    hint : Plan, optional
+        A feasible plan of this problem to start from; default: :func:`greedy_plan` on the
+        surrogate.
+    keep_per_group : int, optional
+        Give the solver only the best ``keep_per_group`` candidates per (target, night, option)
+        by value, plus the hint's; the bound then holds for that reduced problem only.
+    focus_per_group : int, optional
+        Solve in two stages: first the problem reduced to the best ``focus_per_group``
+        candidates per group (plus the hint's) for at most ``focus_share`` of the time limit
+        (stopping at a gap of ``FOCUS_GAP_LIMIT``), then the whole problem, hinted with the
+        first stage's plan, for the other share. The plan is at least the first stage's; the
+        bound is the second stage's, so it holds for the whole problem.
+    focus_share : float
+        Share of ``time_limit_s`` given to the first stage, in (0, 1).
+    gap_limit : float
+        Relative gap at which the search stops (see :func:`solve`); the first of two stages
+        stops at ``FOCUS_GAP_LIMIT`` or less.
+
+    Returns
+    -------
+    Plan
+        The joint plan; its ``runtime_s`` includes building the hint and the model.
+    """
+    t0 = time.perf_counter()
+    hint = greedy_plan(problem, surrogate) if hint is None else hint
+    if focus_per_group is not None:
+        if not 0.0 < focus_share < 1.0:
+            raise ValueError(f"focus_share must lie strictly between 0 and 1, got {focus_share}.")
+        first = joint_plan(problem, surrogate, time_limit_s=focus_share * time_limit_s,
+                           seed=seed, workers=workers, hint=hint, keep_per_group=focus_per_group,
+                           gap_limit=max(gap_limit, FOCUS_GAP_LIMIT))
+        plan = joint_plan(problem, surrogate, time_limit_s=(1.0 - focus_share) * time_limit_s,
+                          seed=seed, workers=workers, hint=first, keep_per_group=keep_per_group,
+                          gap_limit=gap_limit)
+        status = plan.status
+        if status == "HINT_KEPT" and first.status != "HINT_KEPT":
+            status = "FOCUSED"  # the first stage's solution, unimproved by the second
+        stats = plan.stats + (("focus_objective", float(first.objective)),
+                              ("focus_optimal", float(first.status == "OPTIMAL")))
+        return Plan(**{**plan.__dict__, "status": status, "stats": stats,
+                       "runtime_s": time.perf_counter() - t0})
+    keep = np.arange(problem.n_candidates)
+    if keep_per_group is not None:
+        keep = _best_per_group(problem, surrogate, keep_per_group, hint.candidates)
+    sub, sub_surrogate = problem.subset(keep), surrogate.subset(keep)
+    position = {int(c): k for k, c in enumerate(keep)}
+    model, handles = build_model(sub, sub_surrogate,
+                                 hint=np.array([position[int(c)] for c in hint.candidates]))
+    found = solve(model, handles, time_limit_s=time_limit_s, seed=seed, workers=workers,
+                  gap_limit=gap_limit)
+    chosen = keep[found.candidates]
+    plan = assemble_plan(
+        problem, chosen, strategy="joint", objective=surrogate.bits(problem, chosen),
+        marginal_bits=_marginals(problem, surrogate, chosen), bound=found.bound,
+        status=found.status, runtime_s=found.runtime_s, seed=seed,
+        stats=found.stats + (("kept_candidates", keep.size),),
+    )
+    if plan.objective < hint.objective:
+        plan = assemble_plan(
+            problem, hint.candidates, strategy="joint", objective=hint.objective,
+            marginal_bits=_marginals(problem, surrogate, hint.candidates), bound=plan.bound,
+            status="HINT_KEPT", runtime_s=plan.runtime_s, seed=seed, stats=plan.stats,
+        )
+    return Plan(**{**plan.__dict__, "runtime_s": time.perf_counter() - t0})

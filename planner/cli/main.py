@@ -1,0 +1,323 @@
+"""The ``nightbits`` command: fit, curves, plan, compare and replan an observing run.
+
+Every command takes an optional SCENARIO (the bundled demo run when omitted). Exit codes: 0 on
+success, 2 on a user error (one sentence on stderr; ``--debug`` adds the traceback), 1 on an
+internal error. This module only parses arguments, wires logging and the progress bar, and calls
+:mod:`planner.workflow.pipeline`; heavy imports happen inside the command functions so ``--help`` is
+instant.
+
+Adding a command: write ``_add_<name>(sub)`` that registers its parser and sets
+``func=_run_<name>``, and list it in :data:`COMMANDS`.
+"""
+
+from __future__ import annotations
+
+import argparse
+import logging
+import sys
+import time
+from pathlib import Path
+
+from planner.cli.simulate import add_simulate
+
+__all__ = ["COMMANDS", "build_parser", "main"]
+
+log = logging.getLogger(__name__)
+
+EXIT_OK, EXIT_INTERNAL, EXIT_USER = 0, 1, 2
+
+
+class _ProgressBar:
+    """A one-line progress bar on stderr (only when stderr is a terminal)."""
+
+    def __init__(self, stream, label: str) -> None:
+        self.stream, self.label, self.start = stream, label, time.monotonic()
+        self.live = bool(getattr(stream, "isatty", lambda: False)())
+
+    def __call__(self, done: int, total: int, label: str = "") -> None:
+        if not self.live:
+            log.info("%s %d/%d %s", self.label, done, total, label)
+            return
+        width = 30
+        filled = int(width * done / max(total, 1))
+        elapsed = time.monotonic() - self.start
+        line = (f"\r{self.label} [{'#' * filled}{'.' * (width - filled)}] {done}/{total} "
+                f"{elapsed:5.0f}s {label[:24]:<24}")
+        self.stream.write(line)
+        if done >= total:
+            self.stream.write("\n")
+        self.stream.flush()
+
+
+def _common(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("scenario", nargs="?", default=None, metavar="SCENARIO",
+                        help="scenario YAML file (default: the bundled invented demo run)")
+    parser.add_argument("--cache", metavar="DIR", default=None,
+                        help="posterior cache folder (default: the scenario's 'cache:', else "
+                             "$NIGHTBITS_CACHE or ~/.cache/nightbits)")
+    parser.add_argument("--no-cache", action="store_true", help="fit again, keep nothing")
+    parser.add_argument("--jobs", type=int, default=None, metavar="N",
+                        help="processes for fitting (default: all cores)")
+
+
+def _command(sub, name: str, summary: str, description: str, func):
+    """Register one subcommand with the options every command shares."""
+    p = sub.add_parser(name, help=summary, description=description)
+    _common(p)
+    p.set_defaults(func=func)
+    return p
+
+
+def _add_fit(sub) -> None:
+    _command(sub, "fit", "sample every target's orbit posterior (cached)",
+             "Sample the orbit posterior of every target from its past velocities and keep the "
+             "samples in the cache.", _run_fit)
+
+
+def _add_curves(sub) -> None:
+    p = _command(sub, "curves", "information curves: bits of one more velocity over the run",
+                 "Print, per target, the expected information of one more velocity over the "
+                 "run (best time and value per night).", _run_curves)
+    p.add_argument("--target", metavar="ID", action="append", help="only this target (repeat)")
+    p.add_argument("--plot", metavar="FILE", help="also draw the curves to FILE (needs matplotlib)")
+    p.add_argument("--about", choices=("period", "alias"), default=None,
+                   help="also print the bits about part of the orbit: 'period' (a lower bound "
+                        "from equal-count period intervals) or 'alias' (which period mode)")
+
+
+def _plan_options(p, out_default: str | None) -> None:
+    p.add_argument("--strategy", choices=("joint", "greedy", "cadence"), default=None,
+                   help="allocation strategy (default: the scenario's solver.strategy, joint)")
+    p.add_argument("--time-limit", type=float, default=None, metavar="S",
+                   help="solver wall-clock limit in seconds (default: solver.time_limit_s, "
+                        "for replan solver.replan_time_limit_s)")
+    p.add_argument("--out", metavar="DIR", default=out_default,
+                   help="folder for plan.json and plan.csv (default: %(default)s)")
+    p.add_argument("--force", action="store_true", help="replace an existing plan in DIR")
+    p.add_argument("--plot", metavar="FILE", help="also draw the night altitude charts to FILE")
+
+
+def _add_plan(sub) -> None:
+    p = _command(sub, "plan", "plan the run and print the hour-by-hour schedule",
+                 "Plan every night of the run at once, print the hour-by-hour schedule and "
+                 "write DIR/plan.json and DIR/plan.csv.", _run_plan)
+    _plan_options(p, "nightbits-plan")
+
+
+def _add_compare(sub) -> None:
+    p = _command(sub, "compare", "joint, greedy and cadence plans on one exact score",
+                 "Plan the run with every strategy and compare them on the exact joint "
+                 "information score.", _run_compare)
+    p.add_argument("--time-limit", type=float, default=None, metavar="S",
+                   help="solver wall-clock limit in seconds (default: solver.time_limit_s)")
+    p.add_argument("--out", metavar="DIR", default=None,
+                   help="also write DIR/compare.json (one record per strategy)")
+    p.add_argument("--force", action="store_true", help="replace an existing DIR/compare.json")
+    p.add_argument("--plot", metavar="FILE", help="also draw the comparison bar chart to FILE")
+
+
+def _add_replan(sub) -> None:
+    p = _command(sub, "replan", "re-plan after lost time, executed visits or new velocities",
+                 "Drop lost nights or hours, keep what was executed, fold in new velocities and "
+                 "plan the rest of the run.", _run_replan)
+    p.add_argument("--plan", required=True, metavar="FILE", help="the plan.json to start from")
+    p.add_argument("--lost", action="append", default=[], metavar="NIGHT|START/END",
+                   help="a lost night (its local evening date YYYY-MM-DD) or a lost UTC "
+                        "interval START/END in ISO form; repeat for more")
+    p.add_argument("--done", metavar="FILE",
+                   help="CSV of executed visits (plan.csv rows: target, start_utc at least)")
+    p.add_argument("--rvs", metavar="FILE", action="append", default=[],
+                   help="CSV of new velocities with a 'target' column; repeatable")
+    p.add_argument("--now", metavar="TIME",
+                   help="UTC time now (ISO); visits before it count as executed unless lost")
+    _plan_options(p, "nightbits-replan")
+
+
+#: The subcommands, in the order ``--help`` lists them.
+COMMANDS = (_add_fit, _add_curves, _add_plan, _add_compare, _add_replan, add_simulate)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """Return the argument parser of the ``nightbits`` command."""
+    parser = argparse.ArgumentParser(
+        prog="nightbits",
+        description="Plan precision radial-velocity observing runs by expected information "
+                    "gain. Schedules never replace the observatory's own safety rules.")
+    parser.add_argument("--debug", action="store_true", help="show tracebacks and debug logs")
+    parser.add_argument("-v", "--verbose", action="store_true", help="log progress on stderr")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    for add in COMMANDS:
+        add(sub)
+    return parser
+
+
+def _session(args):
+    from planner.workflow import pipeline
+
+    scenario = pipeline.load(args.scenario)
+    cache = pipeline.cache_folder(scenario, args.cache, args.no_cache)
+    return pipeline, scenario, cache
+
+
+def _fit(args, pipeline, scenario, cache):
+    bar = _ProgressBar(sys.stderr, "fitting")
+    return pipeline.fit_posteriors(scenario, cache=cache, jobs=args.jobs, progress=bar)
+
+
+def _run_fit(args) -> int:
+    pipeline, scenario, cache = _session(args)
+    from planner.workflow.report import fit_summary
+
+    posteriors = _fit(args, pipeline, scenario, cache)
+    sys.stdout.write(fit_summary(scenario, posteriors))
+    return EXIT_OK
+
+
+def _run_curves(args) -> int:
+    pipeline, scenario, cache = _session(args)
+    for target in args.target or ():
+        scenario.target(target)
+    posteriors = _fit(args, pipeline, scenario, cache)
+    run = pipeline.prepare(scenario, posteriors)
+    from planner.workflow.report import curves_summary
+
+    sys.stdout.write(curves_summary(run, args.target))
+    if args.about:
+        from dataclasses import replace
+
+        from planner.information.partial import run_label_bits
+
+        what = {"period": "the period alone (a lower bound: equal-count period intervals)",
+                "alias": "which period mode (alias) is right (0 for a single mode)"}[args.about]
+        sys.stdout.write(f"\nabout {what}, first signal:\n")
+        part = replace(run, bits=run_label_bits(run, args.about, args.target, jobs=args.jobs))
+        sys.stdout.write(curves_summary(part, args.target))
+    if args.plot:
+        from planner.workflow.plots import plot_curves
+
+        plot_curves(run, args.plot, targets=args.target)
+        sys.stderr.write(f"wrote {args.plot}\n")
+    return EXIT_OK
+
+
+def _run_plan(args) -> int:
+    from planner.workflow.outputs import write_plan
+    from planner.workflow.report import render_schedule
+
+    pipeline, scenario, cache = _session(args)
+    pipeline.check_out_folder(args.out, args.force)
+    posteriors = _fit(args, pipeline, scenario, cache)
+    run = pipeline.prepare(scenario, posteriors)
+    result = pipeline.make_plan(run, strategy=args.strategy, time_limit_s=args.time_limit)
+    sys.stdout.write(render_schedule(result.plan_file))
+    paths = write_plan(args.out, result.plan_file, force=args.force)
+    pipeline.save_curves(run, paths[0].parent / "curves.npz")
+    sys.stderr.write(f"wrote {paths[0]} and {paths[1]}\n")
+    _maybe_night_plot(args, run, result)
+    return EXIT_OK
+
+
+def _maybe_night_plot(args, run, result) -> None:
+    if args.plot:
+        from planner.workflow.plots import plot_nights
+
+        plot_nights(run, result.plan_file, args.plot)
+        sys.stderr.write(f"wrote {args.plot}\n")
+
+
+def _run_compare(args) -> int:
+    pipeline, scenario, cache = _session(args)
+    target = None
+    if args.out is not None:
+        target = Path(args.out) / "compare.json"
+        pipeline.check_out_folder(args.out, args.force, names=(target.name,))
+    posteriors = _fit(args, pipeline, scenario, cache)
+    run = pipeline.prepare(scenario, posteriors)
+    comparison = pipeline.compare(run, time_limit_s=args.time_limit)
+    sys.stdout.write(comparison.text)
+    if target is not None:
+        from planner.allocation.compare import write_compare_json
+
+        target.parent.mkdir(parents=True, exist_ok=True)
+        write_compare_json(comparison.comparison, target)
+        sys.stderr.write(f"wrote {target}\n")
+    if args.plot:
+        from planner.workflow.plots import plot_comparison
+
+        plot_comparison(comparison, args.plot)
+        sys.stderr.write(f"wrote {args.plot}\n")
+    return EXIT_OK
+
+
+def _run_replan(args) -> int:
+    from planner.workflow import replan
+    from planner.workflow.outputs import read_plan, write_plan
+    from planner.workflow.report import render_schedule
+
+    pipeline, scenario, cache = _session(args)
+    pipeline.check_out_folder(args.out, args.force)
+    old = read_plan(args.plan)
+    request = replan.parse_request(old, scenario, lost=args.lost, done_file=args.done,
+                                   rv_files=args.rvs, now=args.now)
+    posteriors = _fit(args, pipeline, scenario, cache)
+    saved = pipeline.load_curves(Path(args.plan).parent / "curves.npz")
+    result = replan.replan(scenario, posteriors, old, request, strategy=args.strategy,
+                           time_limit_s=args.time_limit, reuse=saved)
+    sys.stdout.write(render_schedule(result.plan_file))
+    sys.stdout.write(result.changes)
+    paths = write_plan(args.out, result.plan_file, force=args.force)
+    pipeline.save_curves(result.run, paths[0].parent / "curves.npz")
+    sys.stderr.write(f"wrote {paths[0]} and {paths[1]}\n")
+    _maybe_night_plot(args, result.run, result)
+    return EXIT_OK
+
+
+def _configure_logging(args) -> None:
+    level = logging.DEBUG if args.debug else logging.INFO if args.verbose else logging.WARNING
+    handler = logging.StreamHandler(sys.stderr)
+    handler.setFormatter(logging.Formatter("nightbits: %(levelname)s: %(message)s"))
+    root = logging.getLogger()
+    root.handlers[:] = [handler]
+    root.setLevel(level)
+    for noisy in ("matplotlib", "PIL"):
+        logging.getLogger(noisy).setLevel(max(level, logging.WARNING))
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the ``nightbits`` command line.
+
+    Parameters
+    ----------
+    argv : list of str, optional
+        Arguments without the program name (default: ``sys.argv[1:]``).
+
+    Returns
+    -------
+    int
+        Exit code: 0 success, 2 user error, 1 internal error.
+    """
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # argparse has printed its own message or the help
+        return int(exc.code or 0) and EXIT_USER
+    _configure_logging(args)
+    from inference.errors import InferenceError
+    from planner.errors import PlannerError
+
+    try:
+        return args.func(args)
+    except (PlannerError, InferenceError) as exc:  # user errors: one sentence each
+        if args.debug:
+            raise
+        sys.stderr.write(f"nightbits {args.command}: {exc}\n")
+        return EXIT_USER
+    except KeyboardInterrupt:
+        sys.stderr.write(f"nightbits {args.command}: interrupted; nothing was written.\n")
+        return 130
+    except Exception as exc:
+        if args.debug:
+            raise
+        sys.stderr.write(f"nightbits {args.command}: internal error ({type(exc).__name__}: "
+                         f"{exc}); rerun with --debug for the traceback and report it.\n")
+        return EXIT_INTERNAL

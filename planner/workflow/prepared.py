@@ -1,0 +1,282 @@
+"""Everything between the posteriors and the strategies: the :class:`PreparedRun` of a scenario.
+
+:func:`prepare` computes, once per run, the dark windows, the sky on the run grid
+(:mod:`planner.workflow.rungrid`), the observable starts of every exposure option, the measurement
+noise,
+the information curves (in worker processes), the candidate visits
+(:class:`planner.allocation.problem.Problem`) and the solver's surrogate objective.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+from dataclasses import dataclass
+
+import numpy as np
+
+from planner.errors import ScenarioError
+from planner.workflow.rungrid import RunGrid, fill_bjd, physical_setup, run_grid
+from planner.workflow.saved_curves import reusable_curves
+from planner.workflow.scenario import Scenario
+
+__all__ = ["PreparedRun", "mid_exposure_columns", "prepare", "visit_predictions"]
+
+log = logging.getLogger(__name__)
+
+#: Candidate starts kept per (target, night, exposure option), and their least spacing [min].
+#: Measured on the demo (docs/architecture.md, Decisions): 8 starts 20 minutes apart left
+#: 2 to 8 minutes idle before most exposures; 40 starts 5 minutes apart let the plans pack
+#: exposures back to back at the cost of about 5 times as many candidates.
+CANDIDATE_STARTS = 40
+CANDIDATE_SPACING_MIN = 5
+
+
+@dataclass(frozen=True)
+class PreparedRun:
+    """Everything between the posteriors and the strategies, computed once per run.
+
+    Attributes
+    ----------
+    scenario : Scenario
+    site : planner.sky.site.Site
+    nights : tuple of planner.sky.site.Night
+        The true nights (for the schedule's headers).
+    aligned : tuple of planner.sky.site.Night
+        The nights with dark windows shrunk to the run grid (what the plan may use).
+    sky : planner.sky.tracks.Sky
+        Sky on the aligned nights' grid.
+    grid : RunGrid
+    constraints : planner.sky.observability.Constraints
+    moon_table : tuple of (float, float)
+    instrument : planner.sky.exposure.Instrument
+    mount : planner.sky.slew.Mount
+    posteriors : dict of str to inference.posterior.Posterior
+    predictors : tuple of planner.information.predict.Predictor
+        In scenario target order.
+    exposures : tuple of float
+        The exposure options of the run [s] (union of every target's).
+    observable, bits, sigma : ndarray, shape (n_options, n_targets, n_sky)
+        On the sky grid: observable starts, one-visit expected bits (conditional on executed
+        visits without velocities), measurement noise [m/s].
+    problem : planner.allocation.problem.Problem
+    surrogate : planner.allocation.surrogate.Surrogate
+    lost_jd : tuple of (float, float)
+        Time given up (JD UTC pairs).
+    done : tuple of planner.workflow.outputs.ScheduledVisit
+        Executed visits kept from an earlier plan.
+    """
+
+    scenario: Scenario
+    site: object
+    nights: tuple
+    aligned: tuple
+    sky: object
+    grid: RunGrid
+    constraints: object
+    moon_table: tuple
+    instrument: object
+    mount: object
+    posteriors: dict
+    predictors: tuple
+    exposures: tuple
+    observable: np.ndarray
+    bits: np.ndarray
+    sigma: np.ndarray
+    problem: object
+    surrogate: object
+    lost_jd: tuple = ()
+    done: tuple = ()
+
+
+def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict: bool = True,
+            seed: int | None = None, jobs: int | None = None, reuse=None) -> PreparedRun:
+    """Compute the sky, limits, noise, information and candidate visits of a run.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    posteriors : dict of str to Posterior
+        One per target.
+    lost_jd : sequence of (float, float)
+        Time given up (weather, engineering, the past), JD UTC pairs.
+    done : sequence of planner.workflow.outputs.ScheduledVisit
+        Executed visits: their telescope time is closed, and for targets whose velocities from
+        them are not yet in the posterior, new visits are valued given them.
+    strict : bool
+        Raise if a target is never observable (a scenario error); off when re-planning, where
+        lost time may legitimately leave a target out.
+    seed : int, optional
+        Seed of the simulated outcomes behind conditional values (default: the solver seed).
+    jobs : int, optional
+        Worker processes for the information curves (None: every core; 1: this process).
+    reuse : dict, optional
+        Curves saved with an earlier plan (:func:`planner.workflow.saved_curves.load_curves`): a
+        target whose posterior and grid are unchanged, and whose observable starts are a subset
+        of the saved ones, keeps its saved bits instead of recomputing them.
+
+    Returns
+    -------
+    PreparedRun
+    """
+    from planner.allocation.problem import build_problem, mount_slew
+    from planner.allocation.rules import TargetRules
+    from planner.allocation.surrogate import build_surrogate
+    from planner.information.predict import Predictor
+    from planner.sky.exposure import grid_sigma
+    from planner.sky.observability import Constraints, observable_starts
+    from planner.sky.tracks import compute_sky
+    from planner.workflow.outputs import parse_utc
+
+    site, nights, aligned, moon_table, instrument, mount = physical_setup(scenario)
+    targets = scenario.targets
+    sky = compute_sky(site, aligned, [t.ra_deg for t in targets], [t.dec_deg for t in targets],
+                      step_s=scenario.sky.step_s, names=[t.id for t in targets])
+    grid = run_grid(sky, aligned)
+    busy = [(parse_utc(v.start_utc) - v.slew_s / 86400.0, parse_utc(v.end_utc)) for v in done]
+    closed = tuple(scenario.constraints.blackouts) + tuple(lost_jd) + tuple(busy)
+    airmass_limits = tuple(t.max_airmass or scenario.constraints.max_airmass for t in targets)
+    constraints = Constraints(max_airmass=airmass_limits, moon_table=moon_table,
+                              blackouts=closed,
+                              target_windows=tuple(t.windows or None for t in targets))
+    exposures = tuple(sorted({e for t in targets for e in scenario.target_exposures(t)}))
+    offered = np.array([[e in scenario.target_exposures(t) for t in targets] for e in exposures])
+    observable = np.stack([observable_starts(sky, constraints, e) for e in exposures])
+    observable &= offered[:, :, None]
+    if strict:
+        _check_observable(scenario, sky, constraints, observable)
+    v_mag = np.array([t.v_mag for t in targets])
+    sigma = np.moveaxis(grid_sigma(instrument, sky, v_mag, exposures), 1, 0)
+    predictors = tuple(Predictor.from_posterior(posteriors[t.id], scenario.instrument.name)
+                       for t in targets)
+    rng = np.random.default_rng(scenario.solver.seed if seed is None else seed)
+    saved = reusable_curves(reuse, scenario, sky, exposures, observable, posteriors)
+    bits = _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, done, rng,
+                 jobs, saved)
+    rules = tuple(TargetRules(
+        min_visits=t.min_visits, max_visits=t.max_visits, max_per_night=t.max_visits_per_night,
+        min_spacing_min=int(round(t.min_gap_h * 60.0)), weight=t.weight,
+        windows_jd=tuple(t.windows), must_windows_jd=tuple(t.must_windows)) for t in targets)
+    default = scenario.exposures.options_s[0]
+    problem = build_problem(
+        times_jd=grid.times_jd, night_index=grid.night_index,
+        dark_jd=np.array([(n.dark_start_jd, n.dark_end_jd) for n in aligned]),
+        night_dates=[n.date for n in aligned], target_names=[t.id for t in targets],
+        rules=rules, exposure_s=exposures, observable=grid.scatter(observable, False),
+        bits=grid.scatter(bits, 0.0), sigma=grid.scatter(sigma, 1e3),
+        airmass=grid.scatter(sky.airmass, 99.0), altitude_deg=grid.scatter(sky.altitude_deg, -90.0),
+        azimuth_deg=grid.scatter(sky.azimuth_deg, 0.0),
+        bjd_tdb=fill_bjd(grid, sky), reserved_jd=closed,
+        slew=mount_slew(mount),
+        overhead_s=mount.overhead_s(), default_option=exposures.index(default),
+        keep_per_night=CANDIDATE_STARTS, thin_spacing_min=CANDIDATE_SPACING_MIN)
+    surrogate_rng = np.random.default_rng(
+        np.random.SeedSequence(scenario.solver.seed if seed is None else seed).spawn(1)[0])
+    surrogate = build_surrogate(problem, predictors, rng=surrogate_rng)
+    log.info("prepared %d targets, %d nights, %d candidate visits", len(targets), len(aligned),
+             problem.n_candidates)
+    return PreparedRun(scenario=scenario, site=site, nights=nights, aligned=aligned, sky=sky,
+                       grid=grid, constraints=constraints, moon_table=moon_table,
+                       instrument=instrument, mount=mount, posteriors=dict(posteriors),
+                       predictors=predictors, exposures=exposures, observable=observable,
+                       bits=bits, sigma=sigma, problem=problem, surrogate=surrogate,
+                       lost_jd=tuple(lost_jd), done=tuple(done))
+
+
+def _check_observable(scenario, sky, constraints, observable) -> None:
+    from planner.sky.observability import binding_constraints
+
+    never = np.flatnonzero(~observable.any(axis=(0, 2)))
+    if never.size:
+        i = int(never[0])
+        shortest = min(scenario.target_exposures(scenario.targets[i]))
+        reasons = binding_constraints(sky, constraints, shortest)
+        why = reasons[i] or f"Target {scenario.targets[i].id!r} is never observable in this run."
+        raise ScenarioError(f"{scenario.path.name}: targets[{i}]: {why}")
+
+
+def mid_exposure_columns(sky, exposure_s: float) -> np.ndarray:
+    """Sky-grid column nearest the middle of an exposure starting at each column (same night)."""
+    shift = int(round(0.5 * exposure_s / sky.step_s))
+    cols = np.arange(sky.times_jd.size)
+    mid = np.minimum(cols + shift, cols.size - 1)
+    same = sky.night_index[mid] == sky.night_index
+    while not same.all():  # near a night's end: step back into the night
+        mid = np.where(same, mid, mid - 1)
+        same = sky.night_index[mid] == sky.night_index
+    return mid
+
+
+def _curve_bits(args) -> np.ndarray:
+    """One target's information curve (all options), NaN (not observable) as 0 bits."""
+    from planner.information.curves import build_curve
+
+    predictor, bjd, sigma, observable, exposures, times_jd, target = args
+    curve = build_curve(predictor, bjd, sigma, observable, exposures, times_jd=times_jd,
+                        target=target)
+    return np.nan_to_num(curve.bits, nan=0.0)
+
+
+def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, done,
+          rng, jobs=None, saved=None) -> np.ndarray:
+    """One-visit expected bits on the sky grid, conditional on executed visits without data.
+
+    The unconditional curves of the targets are independent and computed in ``jobs`` worker
+    processes (None: every core).
+    """
+    from concurrent.futures import ProcessPoolExecutor
+
+    from planner.information.gain import conditional_bits
+    from planner.workflow.outputs import parse_utc
+
+    bits = np.zeros(observable.shape)
+    pending = {}
+    for visit in done:
+        if visit.status == "done":
+            pending.setdefault(visit.target, []).append(visit)
+    saved = saved or {}
+    for s, target_bits in saved.items():
+        if scenario.targets[s].id not in pending:
+            bits[:, s] = np.where(observable[:, s], target_bits, 0.0)
+    plain = [s for s, t in enumerate(scenario.targets) if t.id not in pending and s not in saved]
+    work = [(predictors[s], sky.bjd_tdb[s], sigma[:, s], observable[:, s], exposures,
+             sky.times_jd, scenario.targets[s].id) for s in plain]
+    workers = max(1, min(jobs or os.cpu_count() or 1, len(work)))
+    if workers > 1:
+        with ProcessPoolExecutor(workers) as pool:
+            curves = list(pool.map(_curve_bits, work, chunksize=4))
+    else:
+        curves = [_curve_bits(item) for item in work]
+    for s, curve in zip(plain, curves, strict=True):
+        bits[:, s] = curve
+    for s, target in enumerate(scenario.targets):
+        if target.id not in pending:
+            continue
+        predictor = predictors[s]
+        jitter2 = predictor.jitter[:, None] ** 2
+        for o, e in enumerate(exposures):
+            cols = np.flatnonzero(observable[o, s])
+            if cols.size == 0:
+                continue
+            mid = mid_exposure_columns(sky, e)[cols]
+            predicted = predictor.velocities(sky.bjd_tdb[s, mid])
+            total = np.sqrt(sigma[o, s, mid][None, :] ** 2 + jitter2)
+            set_pred, set_sigma = visit_predictions(scenario, sky, instrument, predictor, s,
+                                                     pending[target.id], parse_utc)
+            bits[o, s, cols] = conditional_bits(set_pred, set_sigma, predicted, total, rng)
+    return bits
+
+
+def visit_predictions(scenario, sky, instrument, predictor, s, visits, parse_utc):
+    """Predicted velocities and total noise of a target's visits (mid-exposure, nearest column)."""
+    mids = np.array([0.5 * (parse_utc(v.start_utc) + parse_utc(v.end_utc)) for v in visits])
+    cols = np.clip(np.searchsorted(sky.times_jd, mids), 0, sky.times_jd.size - 1)
+    bjd = sky.bjd_tdb[s, cols] + (mids - sky.times_jd[cols])
+    predicted = predictor.velocities(bjd)
+    from planner.sky.exposure import rv_sigma
+
+
+    airmass = np.array([0.5 * (v.airmass_start + v.airmass_end) for v in visits])
+    noise = rv_sigma(instrument, scenario.targets[s].v_mag,
+                     np.array([v.exposure_s for v in visits]), airmass)
+    return predicted, np.sqrt(noise[None, :] ** 2 + predictor.jitter[:, None] ** 2)

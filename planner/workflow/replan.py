@@ -1,0 +1,289 @@
+"""Re-planning: give up lost time, keep what was executed, fold in new velocities, plan the rest.
+
+A re-plan starts from a plan file and a request:
+
+* lost time, as whole nights (``--lost 2027-10-05``, the night's local evening date) or UTC
+  intervals (``--lost 2027-10-06T02:00Z/2027-10-06T04:30Z``), added to whatever the plan file
+  already lists as lost;
+* executed visits, from a CSV of plan.csv rows (``--done``) and/or every planned visit that
+  started before ``--now`` outside lost time; the past itself is closed;
+* new velocities (``--rvs``, a CSV with a ``target`` column), folded into each star's posterior
+  by :func:`planner.information.update.update_posterior` (reweighting, or a refit when too few
+  samples
+  carry the weight).
+
+Executed visits keep their telescope time and their recorded expected bits. For a star whose
+executed visits have no velocities yet, new visits are valued given those visits (their outcomes
+unknown); once its velocities are folded in, the updated posterior already holds them. The new
+plan is made, verified and scored like any other (:func:`planner.workflow.pipeline.make_plan`), and
+the
+differences from the old plan are listed in plain text.
+"""
+
+from __future__ import annotations
+
+import csv
+import dataclasses
+import logging
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from planner.errors import PlanError
+from planner.workflow.outputs import PlanFile, ScheduledVisit, format_utc, parse_utc
+
+__all__ = ["ReplanRequest", "ReplanResult", "parse_request", "read_new_velocities", "replan"]
+
+log = logging.getLogger(__name__)
+
+_MATCH_D = 61.0 / 86400.0  # a --done row matches a planned visit starting within a minute
+
+
+@dataclass(frozen=True)
+class ReplanRequest:
+    """What happened since the plan was made.
+
+    Attributes
+    ----------
+    lost_jd : tuple of (float, float)
+        Lost time, JD UTC pairs (whole nights from sunset to sunrise), old and new.
+    lost_labels : tuple of str
+        The lost time as given, for the change list.
+    done : tuple of ScheduledVisit
+        Executed visits (status ``done``), in time order.
+    now_jd : float or None
+        The present, JD UTC; nothing may be planned before it.
+    new_data : dict of str to inference.data.RVData
+        New velocities per target.
+    """
+
+    lost_jd: tuple
+    lost_labels: tuple
+    done: tuple
+    now_jd: float | None
+    new_data: dict
+
+
+@dataclass(frozen=True)
+class ReplanResult:
+    """A re-plan: the new plan and what changed.
+
+    Attributes
+    ----------
+    plan_file : PlanFile
+    changes : str
+        Plain-text list of the changes from the old plan.
+    plan : planner.allocation.plan.Plan
+        The new visits only.
+    run : planner.workflow.pipeline.PreparedRun
+    updates : dict of str to planner.information.update.PosteriorUpdate
+        Per target with new velocities.
+    """
+
+    plan_file: PlanFile
+    changes: str
+    plan: object
+    run: object
+    updates: dict
+
+
+def _lost_items(old: PlanFile, lost) -> tuple[list, list]:
+    nights = {n.date: n for n in old.nights}
+    spans, labels = [], []
+    for item in lost:
+        text = str(item).strip()
+        if "/" in text:
+            start_text, end_text = text.split("/", 1)
+            a = parse_utc(start_text, f"--lost {text}")
+            b = parse_utc(end_text, f"--lost {text}")
+            if b <= a:
+                raise PlanError(f"--lost {text}: the interval ends before it starts; give "
+                                "START/END with the start first.")
+            spans.append((a, b))
+            labels.append(f"{format_utc(a)} to {format_utc(b)}")
+        elif text in nights:
+            night = nights[text]
+            spans.append((parse_utc(night.sunset_utc), parse_utc(night.sunrise_utc)))
+            labels.append(f"the night of {text}")
+        else:
+            dates = ", ".join(nights)
+            raise PlanError(f"--lost {text}: not a night of this plan ({dates}) nor a UTC "
+                            "interval START/END such as 2027-10-06T02:00Z/2027-10-06T04:30Z.")
+    for night in old.nights:  # what the plan file already gave up
+        spans.extend((parse_utc(a), parse_utc(b)) for a, b in night.lost)
+    return spans, labels
+
+
+def _in_lost(visit: ScheduledVisit, spans) -> bool:
+    a, b = parse_utc(visit.start_utc), parse_utc(visit.end_utc)
+    return any(a < hi and b > lo for lo, hi in spans)
+
+
+def _done_rows(path: Path, old: PlanFile) -> list[ScheduledVisit]:
+    try:
+        with path.open(newline="", encoding="utf-8") as handle:
+            rows = list(csv.DictReader(handle))
+    except OSError as exc:
+        raise PlanError(f"--done {path}: cannot be read ({exc.strerror or exc}).") from None
+    if rows and not {"target", "start_utc"} <= set(rows[0]):
+        raise PlanError(f"--done {path}: needs the columns target and start_utc (copy the rows "
+                        "of plan.csv that were observed).")
+    done = []
+    for line, row in enumerate(rows, start=2):
+        t = parse_utc(row["start_utc"], f"--done {path} line {line}")
+        match = [v for v in old.visits if v.target == row["target"]
+                 and abs(parse_utc(v.start_utc) - t) <= _MATCH_D]
+        if not match:
+            raise PlanError(f"--done {path} line {line}: the plan has no visit of "
+                            f"{row['target']!r} starting at {row['start_utc']}; copy the row "
+                            "from plan.csv.")
+        done.append(match[0])
+    return done
+
+
+def read_new_velocities(path: str | Path, scenario) -> dict:
+    """Read new velocities per target from a CSV: target, time, rv, rv_err[, instrument].
+
+    Raises
+    ------
+    PlanError
+        If the file is unreadable, lacks a column, or names an unknown target.
+    """
+    from inference.data import RVData
+
+    path = Path(path)
+    try:
+        with path.open(newline="", encoding="utf-8") as handle:
+            rows = list(csv.DictReader(handle))
+    except OSError as exc:
+        raise PlanError(f"--rvs {path}: cannot be read ({exc.strerror or exc}).") from None
+    need = {"target", "time", "rv", "rv_err"}
+    if not rows or not need <= set(rows[0]):
+        raise PlanError(f"--rvs {path}: needs a header with the columns target, time (BJD_TDB), "
+                        "rv and rv_err (m/s), and at least one row.")
+    groups: dict[str, list] = {}
+    for line, row in enumerate(rows, start=2):
+        scenario.target(row["target"])  # a ScenarioError with a did-you-mean if unknown
+        try:
+            values = tuple(float(row[key]) for key in ("time", "rv", "rv_err"))
+        except (TypeError, ValueError):
+            raise PlanError(f"--rvs {path} line {line}: time, rv and rv_err must be "
+                            "numbers.") from None
+        instrument = (row.get("instrument") or scenario.instrument.name).strip()
+        groups.setdefault(row["target"], []).append((*values, instrument))
+    data = {}
+    for target, items in groups.items():
+        time, rv, err, inst = zip(*items, strict=True)
+        data[target] = RVData.from_arrays(np.array(time), np.array(rv), np.array(err),
+                                          np.array(inst, dtype=object),
+                                          source=f"{path} ({target})")
+    return data
+
+
+def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=(),
+                  now=None) -> ReplanRequest:
+    """Turn the command's options into a :class:`ReplanRequest` (checked against the old plan)."""
+    spans, labels = _lost_items(old, lost)
+    now_jd = None if now is None else parse_utc(now, "--now")
+    done = [v for v in old.visits if v.status != "planned"]
+    if done_file:
+        done += _done_rows(Path(done_file), old)
+    if now_jd is not None:
+        done += [v for v in old.visits if parse_utc(v.start_utc) < now_jd]
+    unique = {(v.target, v.start_utc): v for v in done}
+    kept = sorted((v for v in unique.values() if not _in_lost(v, spans)),
+                  key=lambda v: v.start_utc)
+    kept = tuple(dataclasses.replace(v, status="done") if v.status == "planned" else v
+                 for v in kept)
+    if now_jd is not None:  # the past is closed
+        spans.append((min(parse_utc(n.sunset_utc) for n in old.nights), now_jd))
+    new_data = {}
+    for path in rv_files:
+        for target, data in read_new_velocities(path, scenario).items():
+            new_data[target] = data if target not in new_data else new_data[target].concat(data)
+    if not (spans or kept or new_data):
+        raise PlanError("nothing to re-plan: give lost time (--lost), executed visits (--done "
+                        "or --now) or new velocities (--rvs).")
+    return ReplanRequest(lost_jd=tuple(spans), lost_labels=tuple(labels), done=kept,
+                         now_jd=now_jd, new_data=new_data)
+
+
+def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
+           strategy: str | None = None, time_limit_s: float | None = None,
+           reuse=None) -> ReplanResult:
+    """Plan the rest of the run after lost time, executed visits and new velocities.
+
+    Parameters
+    ----------
+    scenario : planner.workflow.scenario.Scenario
+    posteriors : dict of str to Posterior
+        The posteriors the old plan was made from (fitted on the scenario's RV files).
+    old : PlanFile
+    request : ReplanRequest
+    strategy : str, optional
+        Default: the old plan's strategy.
+    reuse : dict, optional
+        Curves saved with the old plan (:func:`planner.workflow.pipeline.load_curves`), reused for
+        the
+        targets they still describe.
+    time_limit_s : float, optional
+        Solver limit (default: the scenario's ``solver.replan_time_limit_s``, shorter than the
+        planning limit because observers re-plan at the telescope).
+
+    Returns
+    -------
+    ReplanResult
+    """
+    from inference.data import read_rv_csv
+    from planner.information.update import update_posterior
+    from planner.workflow import pipeline
+
+    rng = np.random.default_rng(scenario.solver.seed)
+    posteriors, updates = dict(posteriors), {}
+    for target_id, data in request.new_data.items():
+        target = scenario.target(target_id)
+        update = update_posterior(posteriors[target_id], read_rv_csv(target.rv_file), data, rng,
+                                  settings=pipeline.sampler_settings(scenario))
+        posteriors[target_id], updates[target_id] = update.posterior, update
+    done = tuple(dataclasses.replace(v, status="measured") if v.target in request.new_data
+                 else v for v in request.done)
+    run = pipeline.prepare(scenario, posteriors, lost_jd=request.lost_jd, done=done,
+                           strict=False, reuse=reuse)
+    limit = scenario.solver.replan_time_limit_s if time_limit_s is None else time_limit_s
+    result = pipeline.make_plan(run, strategy or old.strategy, limit)
+    changes = describe_changes(old, result.plan_file, request, updates)
+    return ReplanResult(plan_file=result.plan_file, changes=changes, plan=result.plan, run=run,
+                        updates=updates)
+
+
+def describe_changes(old: PlanFile, new: PlanFile, request: ReplanRequest, updates) -> str:
+    """List, in plain text, what the re-plan changed."""
+    lines = [f"re-planned: {len(old.visits)} exposures and {old.total_bits:.2f} bits before, "
+             f"{len(new.visits)} exposures and {new.total_bits:.2f} bits now."]
+    if request.lost_labels:
+        lines.append("lost: " + "; ".join(request.lost_labels) + ".")
+    if request.now_jd is not None:
+        lines.append(f"now: {format_utc(request.now_jd)}; nothing is planned before it.")
+    if request.done:
+        lines.append(f"executed and kept: {len(request.done)} exposures.")
+    for target, update in updates.items():
+        lines.append(f"new velocities for {target}: {len(request.new_data[target])} folded in "
+                     f"by {update.method} (effective samples {update.ess_fraction:.0%}).")
+    old_keys = {(v.target, v.start_utc) for v in old.visits}
+    new_keys = {(v.target, v.start_utc) for v in new.visits}
+    dropped = sorted(old_keys - new_keys, key=lambda k: k[1])
+    added = sorted(new_keys - old_keys, key=lambda k: k[1])
+    lines.append(f"dropped {len(dropped)} planned exposures, added {len(added)}.")
+    width = max([len(t) for t in new.target_bits] + [6])
+    header = f"  {'target':<{width}}  visits before -> now   bits before -> now"
+    rows = []
+    for target in new.target_bits:
+        nb = sum(v.target == target for v in old.visits)
+        na = sum(v.target == target for v in new.visits)
+        bb, ba = old.target_bits.get(target, 0.0), new.target_bits[target]
+        if nb != na or abs(bb - ba) > 0.005:
+            rows.append(f"  {target:<{width}}  {nb:>6} -> {na:<6}      {bb:>6.2f} -> {ba:.2f}")
+    if rows:
+        lines += ["changed targets:", header, *rows]
+    return "\n".join(lines) + "\n"
