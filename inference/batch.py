@@ -12,7 +12,8 @@ from dataclasses import dataclass
 
 from .errors import InferenceError, ModelError
 from .model import ModelSpec
-from .sample import SamplerSettings, fit
+from .sample import fit
+from .settings import SamplerSettings
 
 __all__ = ["FitFailure", "FitJob", "dask_executor", "fit_many", "run_job"]
 

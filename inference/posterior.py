@@ -14,6 +14,9 @@ from pathlib import Path
 
 import numpy as np
 
+from inference.diagnostics import Diagnostics
+from inference.settings import SamplerSettings
+
 from .errors import InferenceError, ModelError
 from .keplerian import radial_velocity
 from .model import ModelSpec
@@ -203,8 +206,6 @@ class Posterior:
         InferenceError
             If the file is missing, not a posterior file, or of another format version.
         """
-        from .sample import Diagnostics, SamplerSettings
-
         path = Path(path)
         try:
             with np.load(path, allow_pickle=False) as npz:

@@ -11,7 +11,7 @@ from inference.data import RVData
 from inference.errors import InferenceError, ModelError
 from inference.keplerian import radial_velocity
 from inference.model import ModelSpec
-from inference.sample import SamplerSettings
+from inference.settings import SamplerSettings
 
 SETTINGS = SamplerSettings(n_walkers=16, n_samples=100, start_draws=128, start_rounds=2)
 

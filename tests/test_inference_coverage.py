@@ -7,7 +7,8 @@ from scipy import stats
 from inference.data import RVData
 from inference.keplerian import radial_velocity
 from inference.model import EccentricityPrior, GaussianPrior, JitterPrior, ModelSpec, PeriodPrior
-from inference.sample import SamplerSettings, fit
+from inference.sample import fit
+from inference.settings import SamplerSettings
 
 N_DATASETS = 60
 AMPLITUDE = 12.0  # m/s, prior sigma of A and B

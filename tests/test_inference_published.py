@@ -10,7 +10,8 @@ from conftest import SHARED_RV
 
 from inference.data import read_rv_csv
 from inference.model import ModelSpec
-from inference.sample import SamplerSettings, fit
+from inference.sample import fit
+from inference.settings import SamplerSettings
 
 SETTINGS = SamplerSettings(n_walkers=64, n_samples=600)
 

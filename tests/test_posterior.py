@@ -10,7 +10,8 @@ from inference.errors import InferenceError, ModelError
 from inference.keplerian import radial_velocity
 from inference.model import ModelSpec
 from inference.posterior import Posterior
-from inference.sample import SamplerSettings, fit
+from inference.sample import fit
+from inference.settings import SamplerSettings
 
 
 @pytest.fixture(scope="module")

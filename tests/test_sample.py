@@ -9,7 +9,8 @@ from inference.data import RVData
 from inference.errors import ModelError
 from inference.keplerian import radial_velocity
 from inference.model import EccentricityPrior, GaussianPrior, JitterPrior, ModelSpec, PeriodPrior
-from inference.sample import SamplerSettings, fit, integrated_time
+from inference.sample import fit, integrated_time
+from inference.settings import SamplerSettings
 
 FAST = SamplerSettings(n_walkers=64, n_samples=1000, start_draws=512)
 

@@ -208,7 +208,7 @@ def measure_execution(posteriors, execution, rng, past=None, refit=False,
         for every target (the estimator the expected bits are comparable with).
     min_ess_fraction : float
         Threshold of the refit.
-    fit_settings : inference.sample.SamplerSettings, optional
+    fit_settings : inference.settings.SamplerSettings, optional
         Settings of the refits.
 
     Returns

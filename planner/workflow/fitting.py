@@ -66,8 +66,8 @@ def fit_jobs(scenario: Scenario) -> list:
 
 
 def sampler_settings(scenario: Scenario):
-    """Return the scenario's sampler section as :class:`inference.sample.SamplerSettings`."""
-    from inference.sample import SamplerSettings
+    """Return the scenario's sampler section as :class:`inference.settings.SamplerSettings`."""
+    from inference.settings import SamplerSettings
 
     return SamplerSettings(n_walkers=scenario.sampler.walkers,
                            n_samples=scenario.sampler.samples,

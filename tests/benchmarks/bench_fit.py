@@ -15,7 +15,8 @@ from inference.batch import FitJob, fit_many
 from inference.data import RVData
 from inference.keplerian import radial_velocity
 from inference.model import ModelSpec
-from inference.sample import SamplerSettings, fit
+from inference.sample import fit
+from inference.settings import SamplerSettings
 
 
 def invented_target(rng, n_obs=30):
