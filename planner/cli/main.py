@@ -15,55 +15,28 @@ from __future__ import annotations
 import argparse
 import logging
 import sys
-import time
 from pathlib import Path
 
 from planner.cli.simulate import add_simulate
+from planner.cli.support import (
+    EXIT_INTERNAL,
+    EXIT_OK,
+    EXIT_USER,
+    add_common_options,
+    fit_with_progress,
+    open_session,
+)
 
 __all__ = ["COMMANDS", "build_parser", "main"]
 
 log = logging.getLogger(__name__)
 
-EXIT_OK, EXIT_INTERNAL, EXIT_USER = 0, 1, 2
-
-
-class _ProgressBar:
-    """A one-line progress bar on stderr (only when stderr is a terminal)."""
-
-    def __init__(self, stream, label: str) -> None:
-        self.stream, self.label, self.start = stream, label, time.monotonic()
-        self.live = bool(getattr(stream, "isatty", lambda: False)())
-
-    def __call__(self, done: int, total: int, label: str = "") -> None:
-        if not self.live:
-            log.info("%s %d/%d %s", self.label, done, total, label)
-            return
-        width = 30
-        filled = int(width * done / max(total, 1))
-        elapsed = time.monotonic() - self.start
-        line = (f"\r{self.label} [{'#' * filled}{'.' * (width - filled)}] {done}/{total} "
-                f"{elapsed:5.0f}s {label[:24]:<24}")
-        self.stream.write(line)
-        if done >= total:
-            self.stream.write("\n")
-        self.stream.flush()
-
-
-def _common(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("scenario", nargs="?", default=None, metavar="SCENARIO",
-                        help="scenario YAML file (default: the bundled invented demo run)")
-    parser.add_argument("--cache", metavar="DIR", default=None,
-                        help="posterior cache folder (default: the scenario's 'cache:', else "
-                             "$NIGHTBITS_CACHE or ~/.cache/nightbits)")
-    parser.add_argument("--no-cache", action="store_true", help="fit again, keep nothing")
-    parser.add_argument("--jobs", type=int, default=None, metavar="N",
-                        help="processes for fitting (default: all cores)")
 
 
 def _command(sub, name: str, summary: str, description: str, func):
     """Register one subcommand with the options every command shares."""
     p = sub.add_parser(name, help=summary, description=description)
-    _common(p)
+    add_common_options(p)
     p.set_defaults(func=func)
     return p
 
@@ -151,33 +124,20 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def _session(args):
-    from planner.workflow import pipeline
-
-    scenario = pipeline.load(args.scenario)
-    cache = pipeline.cache_folder(scenario, args.cache, args.no_cache)
-    return pipeline, scenario, cache
-
-
-def _fit(args, pipeline, scenario, cache):
-    bar = _ProgressBar(sys.stderr, "fitting")
-    return pipeline.fit_posteriors(scenario, cache=cache, jobs=args.jobs, progress=bar)
-
-
 def _run_fit(args) -> int:
-    pipeline, scenario, cache = _session(args)
+    pipeline, scenario, cache = open_session(args)
     from planner.workflow.report import fit_summary
 
-    posteriors = _fit(args, pipeline, scenario, cache)
+    posteriors = fit_with_progress(args, pipeline, scenario, cache)
     sys.stdout.write(fit_summary(scenario, posteriors))
     return EXIT_OK
 
 
 def _run_curves(args) -> int:
-    pipeline, scenario, cache = _session(args)
+    pipeline, scenario, cache = open_session(args)
     for target in args.target or ():
         scenario.target(target)
-    posteriors = _fit(args, pipeline, scenario, cache)
+    posteriors = fit_with_progress(args, pipeline, scenario, cache)
     run = pipeline.prepare(scenario, posteriors)
     from planner.workflow.report import curves_summary
 
@@ -204,9 +164,9 @@ def _run_plan(args) -> int:
     from planner.workflow.outputs import write_plan
     from planner.workflow.report import render_schedule
 
-    pipeline, scenario, cache = _session(args)
+    pipeline, scenario, cache = open_session(args)
     pipeline.check_out_folder(args.out, args.force)
-    posteriors = _fit(args, pipeline, scenario, cache)
+    posteriors = fit_with_progress(args, pipeline, scenario, cache)
     run = pipeline.prepare(scenario, posteriors)
     result = pipeline.make_plan(run, strategy=args.strategy, time_limit_s=args.time_limit)
     sys.stdout.write(render_schedule(result.plan_file))
@@ -226,12 +186,12 @@ def _maybe_night_plot(args, run, result) -> None:
 
 
 def _run_compare(args) -> int:
-    pipeline, scenario, cache = _session(args)
+    pipeline, scenario, cache = open_session(args)
     target = None
     if args.out is not None:
         target = Path(args.out) / "compare.json"
         pipeline.check_out_folder(args.out, args.force, names=(target.name,))
-    posteriors = _fit(args, pipeline, scenario, cache)
+    posteriors = fit_with_progress(args, pipeline, scenario, cache)
     run = pipeline.prepare(scenario, posteriors)
     comparison = pipeline.compare(run, time_limit_s=args.time_limit)
     sys.stdout.write(comparison.text)
@@ -254,12 +214,12 @@ def _run_replan(args) -> int:
     from planner.workflow.outputs import read_plan, write_plan
     from planner.workflow.report import render_schedule
 
-    pipeline, scenario, cache = _session(args)
+    pipeline, scenario, cache = open_session(args)
     pipeline.check_out_folder(args.out, args.force)
     old = read_plan(args.plan)
     request = replan.parse_request(old, scenario, lost=args.lost, done_file=args.done,
                                    rv_files=args.rvs, now=args.now)
-    posteriors = _fit(args, pipeline, scenario, cache)
+    posteriors = fit_with_progress(args, pipeline, scenario, cache)
     saved = pipeline.load_curves(Path(args.plan).parent / "curves.npz")
     result = replan.replan(scenario, posteriors, old, request, strategy=args.strategy,
                            time_limit_s=args.time_limit, reuse=saved)

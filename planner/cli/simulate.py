@@ -24,7 +24,7 @@ CAUTION = ("A simulation on invented stars: it tests the method, not a night's s
 
 def add_simulate(sub) -> None:
     """Register the ``simulate`` subcommand on an argparse subparsers object."""
-    from planner.cli.main import _common
+    from planner.cli.support import add_common_options
 
     p = sub.add_parser(
         "simulate", help="execute the strategies against true orbits and measure realised bits",
@@ -32,7 +32,7 @@ def add_simulate(sub) -> None:
                     "true orbits with the planner's noise model, fold the synthetic velocities "
                     "into the posteriors and measure what was really learnt, over several "
                     "seeds. " + CAUTION)
-    _common(p)
+    add_common_options(p)
     p.add_argument("--strategies", nargs="+", choices=STRATEGY_CHOICES,
                    default=list(STRATEGY_CHOICES), metavar="NAME",
                    help=f"strategies to run (default: {' '.join(STRATEGY_CHOICES)})")
@@ -80,21 +80,21 @@ def _check(args, scenario):
 
 def run_simulate(args) -> int:
     """Run the ``simulate`` subcommand (called by :func:`planner.cli.main.main`)."""
-    from planner.cli.main import EXIT_OK, _fit, _ProgressBar, _session
+    from planner.cli.support import EXIT_OK, ProgressBar, fit_with_progress, open_session
     from planner.simulation.experiment import build_setup, run_experiment
     from planner.simulation.truth import read_truths
     from planner.simulation.weather import Weather
     from planner.workflow.outputs import atomic_write_text
 
-    pipeline, scenario, cache = _session(args)
+    pipeline, scenario, cache = open_session(args)
     out = _check(args, scenario)
     truths = read_truths(args.truth or scenario.path.parent / "truth")
-    posteriors = _fit(args, pipeline, scenario, cache)
+    posteriors = fit_with_progress(args, pipeline, scenario, cache)
     setup = build_setup(scenario, posteriors, truths, time_limit_s=args.time_limit)
     seeds = tuple(range(args.first_seed, args.first_seed + args.seeds))
     weather = Weather(night_loss=args.night_loss, hour_loss=args.hour_loss)
     experiment = run_experiment(setup, strategies=args.strategies, seeds=seeds, weather=weather,
-                                refit=args.refit, progress=_ProgressBar(sys.stderr, "simulating"))
+                                refit=args.refit, progress=ProgressBar(sys.stderr, "simulating"))
     doc = simulate_document(scenario, experiment, weather, args.refit)
     sys.stdout.write(render_tables(experiment))
     out.parent.mkdir(parents=True, exist_ok=True)

@@ -272,7 +272,7 @@ def run_label_bits(run, about="period", targets=None, jobs=1):
     """
     from concurrent.futures import ProcessPoolExecutor
 
-    from planner.workflow.prepared import mid_exposure_columns
+    from planner.sky.tracks import mid_exposure_columns
 
     if about not in ABOUT:
         raise InformationError(f"unknown subset {about!r}; choose one of {', '.join(ABOUT)}.")

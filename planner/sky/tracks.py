@@ -27,7 +27,7 @@ from planner.sky.airmass import airmass_kasten_young, altaz_from_hadec, wrap_deg
 from planner.sky.ephemeris import node_ephemeris, radec_from_unit, unit_from_radec
 from planner.sky.site import Night, Site, night_span_start_jd
 
-__all__ = ["Pointing", "Sky", "compute_sky", "pointing_at"]
+__all__ = ["Pointing", "Sky", "compute_sky", "mid_exposure_columns", "pointing_at"]
 
 offline.configure()
 
@@ -280,3 +280,15 @@ def pointing_at(site: Site, ra_deg: ArrayLike, dec_deg: ArrayLike, times_jd: Arr
         airmass=airmass_kasten_young(alt).reshape(shape),
         moon_separation_deg=sep.reshape(shape),
     )
+
+
+def mid_exposure_columns(sky, exposure_s: float) -> np.ndarray:
+    """Sky-grid column nearest the middle of an exposure starting at each column (same night)."""
+    shift = int(round(0.5 * exposure_s / sky.step_s))
+    cols = np.arange(sky.times_jd.size)
+    mid = np.minimum(cols + shift, cols.size - 1)
+    same = sky.night_index[mid] == sky.night_index
+    while not same.all():  # near a night's end: step back into the night
+        mid = np.where(same, mid, mid - 1)
+        same = sky.night_index[mid] == sky.night_index
+    return mid

@@ -16,11 +16,12 @@ from dataclasses import dataclass
 import numpy as np
 
 from planner.errors import ScenarioError
+from planner.sky.tracks import mid_exposure_columns
 from planner.workflow.rungrid import RunGrid, fill_bjd, physical_setup, run_grid
 from planner.workflow.saved_curves import reusable_curves
 from planner.workflow.scenario import Scenario
 
-__all__ = ["PreparedRun", "mid_exposure_columns", "prepare", "visit_predictions"]
+__all__ = ["PreparedRun", "prepare", "visit_predictions"]
 
 log = logging.getLogger(__name__)
 
@@ -193,18 +194,6 @@ def _check_observable(scenario, sky, constraints, observable) -> None:
         reasons = binding_constraints(sky, constraints, shortest)
         why = reasons[i] or f"Target {scenario.targets[i].id!r} is never observable in this run."
         raise ScenarioError(f"{scenario.path.name}: targets[{i}]: {why}")
-
-
-def mid_exposure_columns(sky, exposure_s: float) -> np.ndarray:
-    """Sky-grid column nearest the middle of an exposure starting at each column (same night)."""
-    shift = int(round(0.5 * exposure_s / sky.step_s))
-    cols = np.arange(sky.times_jd.size)
-    mid = np.minimum(cols + shift, cols.size - 1)
-    same = sky.night_index[mid] == sky.night_index
-    while not same.all():  # near a night's end: step back into the night
-        mid = np.where(same, mid, mid - 1)
-        same = sky.night_index[mid] == sky.night_index
-    return mid
 
 
 def _curve_bits(args) -> np.ndarray:

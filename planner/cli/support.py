@@ -1,0 +1,77 @@
+"""What every nightbits command shares: exit codes, common options, the session, progress.
+
+Public so that each command module (``planner.cli.main``, ``planner.cli.simulate``) imports it
+instead of another command module's private names.
+"""
+
+from __future__ import annotations
+
+import argparse
+import logging
+import sys
+import time
+
+__all__ = [
+    "EXIT_INTERNAL",
+    "EXIT_OK",
+    "EXIT_USER",
+    "ProgressBar",
+    "add_common_options",
+    "fit_with_progress",
+    "open_session",
+]
+
+log = logging.getLogger(__name__)
+
+#: Exit codes: success, internal error (a bug), bad input (one sentence on stderr).
+EXIT_OK, EXIT_INTERNAL, EXIT_USER = 0, 1, 2
+
+
+class ProgressBar:
+    """A one-line progress bar on stderr (only when stderr is a terminal)."""
+
+    def __init__(self, stream, label: str) -> None:
+        self.stream, self.label, self.start = stream, label, time.monotonic()
+        self.live = bool(getattr(stream, "isatty", lambda: False)())
+
+    def __call__(self, done: int, total: int, label: str = "") -> None:
+        """Show that ``done`` of ``total`` steps are finished, the current one named ``label``."""
+        if not self.live:
+            log.info("%s %d/%d %s", self.label, done, total, label)
+            return
+        width = 30
+        filled = int(width * done / max(total, 1))
+        elapsed = time.monotonic() - self.start
+        line = (f"\r{self.label} [{'#' * filled}{'.' * (width - filled)}] {done}/{total} "
+                f"{elapsed:5.0f}s {label[:24]:<24}")
+        self.stream.write(line)
+        if done >= total:
+            self.stream.write("\n")
+        self.stream.flush()
+
+
+def add_common_options(parser: argparse.ArgumentParser) -> None:
+    """Add the options every command shares: SCENARIO, --cache, --no-cache, --jobs."""
+    parser.add_argument("scenario", nargs="?", default=None, metavar="SCENARIO",
+                        help="scenario YAML file (default: the bundled invented demo run)")
+    parser.add_argument("--cache", metavar="DIR", default=None,
+                        help="posterior cache folder (default: the scenario's 'cache:', else "
+                             "$NIGHTBITS_CACHE or ~/.cache/nightbits)")
+    parser.add_argument("--no-cache", action="store_true", help="fit again, keep nothing")
+    parser.add_argument("--jobs", type=int, default=None, metavar="N",
+                        help="processes for fitting (default: all cores)")
+
+
+def open_session(args):
+    """Load the scenario named on the command line; return (pipeline, scenario, cache folder)."""
+    from planner.workflow import pipeline
+
+    scenario = pipeline.load(args.scenario)
+    cache = pipeline.cache_folder(scenario, args.cache, args.no_cache)
+    return pipeline, scenario, cache
+
+
+def fit_with_progress(args, pipeline, scenario, cache):
+    """Fit (or load from the cache) every target's posterior, with a progress bar on stderr."""
+    bar = ProgressBar(sys.stderr, "fitting")
+    return pipeline.fit_posteriors(scenario, cache=cache, jobs=args.jobs, progress=bar)
