@@ -5,9 +5,10 @@ import json
 import numpy as np
 import pytest
 
-from planner.allocation.compare import compare_strategies, write_compare_json
+from planner.allocation.compare import compare_strategies
 from planner.allocation.surrogate import build_surrogate
 from planner.allocation.verify import verify_plan
+from planner.workflow.outputs import write_compare_json
 from tests.benchmarks.instances import shared_sky_instance
 
 

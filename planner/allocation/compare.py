@@ -4,17 +4,13 @@
 when given a verifier, scores each with :func:`planner.allocation.score.score_plan`, and returns a
 :class:`Comparison`: one :class:`StrategyRow` per strategy (exact bits total and per dark hour,
 visits, stars observed, slew and idle time, solver gap, run time) and the per-star bits and
-visits under each. :func:`write_compare_json` writes ``compare.json`` atomically.
+visits under each. :meth:`Comparison.document` gives the JSON document that ``compare.json`` holds.
 """
 
 from __future__ import annotations
 
-import json
-import os
-import tempfile
 from collections.abc import Callable, Sequence
 from dataclasses import asdict, dataclass
-from pathlib import Path
 
 import numpy as np
 
@@ -26,7 +22,7 @@ from planner.allocation.problem import Problem
 from planner.allocation.score import PlanScore, score_plan
 from planner.allocation.surrogate import Surrogate
 
-__all__ = ["Comparison", "StrategyRow", "compare_strategies", "write_compare_json"]
+__all__ = ["Comparison", "StrategyRow", "compare_strategies"]
 
 
 @dataclass(frozen=True)
@@ -94,6 +90,15 @@ class Comparison:
     def records(self) -> list[dict]:
         """One JSON-ready record per strategy (the fields of :class:`StrategyRow`)."""
         return [asdict(r) for r in self.rows]
+
+    def document(self) -> dict:
+        """Return the JSON-ready ``compare.json`` document: strategies, per-target figures."""
+        return {
+            "strategies": self.records(),
+            "targets": list(self.targets),
+            "per_target_bits": {k: list(v) for k, v in self.per_target_bits.items()},
+            "per_target_visits": {k: list(v) for k, v in self.per_target_visits.items()},
+        }
 
 
 def _row(plan: Plan, score: PlanScore, problem: Problem, verified) -> StrategyRow:
@@ -171,37 +176,3 @@ def compare_strategies(
         visits[plan.strategy] = score.per_target_visits
         plans[plan.strategy] = plan
     return Comparison(tuple(rows), problem.target_names, bits, visits, plans)
-
-
-def write_compare_json(comparison: Comparison, path) -> Path:
-    """Write ``compare.json`` (one record per strategy, plus per-target figures) atomically.
-
-    Parameters
-    ----------
-    comparison : Comparison
-    path : str or Path
-        Output file; written to a temporary file in the same folder, then renamed over it.
-
-    Returns
-    -------
-    Path
-        The written file.
-    """
-    path = Path(path)
-    doc = {
-        "strategies": comparison.records(),
-        "targets": list(comparison.targets),
-        "per_target_bits": {k: list(v) for k, v in comparison.per_target_bits.items()},
-        "per_target_visits": {k: list(v) for k, v in comparison.per_target_visits.items()},
-    }
-    fd, tmp = tempfile.mkstemp(prefix=".compare-", suffix=".json", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            json.dump(doc, fh, indent=2)
-            fh.write("\n")
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
-    return path

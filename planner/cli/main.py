@@ -196,7 +196,7 @@ def _run_compare(args) -> int:
     comparison = pipeline.compare(run, time_limit_s=args.time_limit)
     sys.stdout.write(comparison.text)
     if target is not None:
-        from planner.allocation.compare import write_compare_json
+        from planner.workflow.outputs import write_compare_json
 
         target.parent.mkdir(parents=True, exist_ok=True)
         write_compare_json(comparison.comparison, target)

@@ -38,6 +38,7 @@ __all__ = [
     "format_utc",
     "parse_utc",
     "read_plan",
+    "write_compare_json",
     "write_plan",
 ]
 
@@ -222,6 +223,25 @@ def atomic_write_bytes(path: str | Path, data: bytes) -> None:
 def atomic_write_text(path: str | Path, text: str) -> None:
     """Write UTF-8 ``text`` to ``path`` atomically."""
     atomic_write_bytes(path, text.encode("utf-8"))
+
+
+def write_compare_json(comparison, path: str | Path) -> Path:
+    """Write ``compare.json`` (one record per strategy, plus per-target figures) atomically.
+
+    Parameters
+    ----------
+    comparison : planner.allocation.compare.Comparison
+    path : str or Path
+        Output file; written to a temporary file in the same folder, then renamed over it.
+
+    Returns
+    -------
+    Path
+        The written file.
+    """
+    path = Path(path)
+    atomic_write_text(path, json.dumps(comparison.document(), indent=2) + "\n")
+    return path
 
 
 def _write_temporary(path: Path, data: bytes) -> Path:

@@ -7,13 +7,13 @@ folder, then renamed); the format follows the file's suffix (``.png``, ``.pdf``,
 
 from __future__ import annotations
 
-import os
-import tempfile
+import io
 from pathlib import Path
 
 import numpy as np
 
 from planner.errors import PlanError
+from planner.workflow.outputs import atomic_write_bytes
 
 __all__ = ["plot_comparison", "plot_curves", "plot_nights"]
 
@@ -35,16 +35,10 @@ def _save(fig, path: str | Path) -> Path:
     suffix = path.suffix.lower().lstrip(".") or "png"
     if suffix not in ("png", "pdf", "svg"):
         raise PlanError(f"--plot {path}: use a .png, .pdf or .svg file name.")
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=f".{suffix}",
-                               dir=path.parent if str(path.parent) else ".")
-    os.close(fd)
+    buffer = io.BytesIO()
     try:
-        fig.savefig(tmp, format=suffix, dpi=110)
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
+        fig.savefig(buffer, format=suffix, dpi=110)
+        atomic_write_bytes(path, buffer.getvalue())
     finally:
         import matplotlib.pyplot as plt
 
