@@ -95,3 +95,17 @@ def test_bad_inputs_get_one_clear_sentence():
     args["times_jd"] = args["times_jd"] + np.r_[0, np.full(29, 30 / 86400)]
     with pytest.raises(PlanError, match="whole number of minutes"):
         build_problem(**args)
+
+
+def test_problem_arrays_are_read_only():
+    # Problem is a frozen record: its arrays must refuse writes too (numpy's writeable flag),
+    # since the slew-gap cache is keyed on the record.
+    import dataclasses
+
+    problem = build_problem(**_arrays())
+    arrays = [f.name for f in dataclasses.fields(problem)
+              if isinstance(getattr(problem, f.name), np.ndarray)]
+    assert arrays
+    for name in arrays:
+        with pytest.raises(ValueError):
+            getattr(problem, name)[...] = 0

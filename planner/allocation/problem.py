@@ -15,7 +15,7 @@ from __future__ import annotations
 import dataclasses
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 
 import numpy as np
 
@@ -114,6 +114,16 @@ class Problem:
     alt_end: np.ndarray
     az_end: np.ndarray
     bjd_mid: np.ndarray
+
+    def __post_init__(self) -> None:
+        # The record is immutable, its arrays too: caches keyed on a Problem (the largest slew
+        # gap in planner.allocation.conflicts) rely on its content never changing.
+        for field_ in fields(self):
+            value = getattr(self, field_.name)
+            if isinstance(value, np.ndarray) and value.flags.writeable:
+                value = value.copy()  # the caller's array stays the caller's
+                value.flags.writeable = False
+                object.__setattr__(self, field_.name, value)
 
     @property
     def n_candidates(self) -> int:
