@@ -40,7 +40,6 @@ from __future__ import annotations
 
 import itertools
 import logging
-import math
 import os
 from collections.abc import Sequence
 from concurrent.futures import ThreadPoolExecutor
@@ -62,7 +61,6 @@ MAX_PATTERNS = 20000
 #: Largest exact-pattern work per target (patterns x outcomes x samples); beyond it the
 #: Gaussian patterns are used, calibrated on the largest pattern of first slots.
 EXACT_BUDGET = 3e8
-_LN2 = math.log(2.0)
 
 
 def slot_bit(night, slot, n_nights: int) -> int:

@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from planner.information.entropy import InformationError, mixture_entropy_bits
+from planner.information.entropy import LN2, InformationError, mixture_entropy_bits
 from planner.information.gain import mean_log_shifted
 
 __all__ = ["INTERPOLATION_TOLERANCE_BITS", "InformationCurve", "build_curve"]
@@ -33,7 +33,6 @@ INTERPOLATION_TOLERANCE_BITS = 1e-4
 _GUARD = 8
 
 _DAY_S = 86400.0
-_LN2 = math.log(2.0)
 _HALF_LOG_2PIE = 0.5 * math.log(2.0 * math.pi * math.e)
 
 
@@ -75,7 +74,7 @@ class InformationCurve:
 
 def _mean_noise_entropy_bits(jitter_var, meas_var):
     """Return sum_i (1/N) 0.5 log2(2 pi e (s_i^2 + x)) for every x in `meas_var` (any shape)."""
-    return (mean_log_shifted(jitter_var, meas_var) + 2 * _HALF_LOG_2PIE) / (2 * _LN2)
+    return (mean_log_shifted(jitter_var, meas_var) + 2 * _HALF_LOG_2PIE) / (2 * LN2)
 
 
 def _prediction_columns(bjd, exposures_s, observable):

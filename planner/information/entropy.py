@@ -31,7 +31,7 @@ import numpy as np
 
 from planner.errors import PlannerError
 
-__all__ = ["GAP_SIGMAS", "InformationError", "mixture_entropy_bits"]
+__all__ = ["LN2", "GAP_SIGMAS", "InformationError", "mixture_entropy_bits"]
 
 #: Gaps between sorted centres wider than this many standard deviations are shrunk to it.
 GAP_SIGMAS = 14.0
@@ -50,7 +50,8 @@ _LADDER = 2.0**0.25
 _CHUNK_FLOATS = 1 << 23
 #: Centres handled per chunk, so that the per-sample temporaries stay in cache.
 _CACHE_FLOATS = 1 << 16
-_LN2 = math.log(2.0)
+#: ln 2: nats per bit.
+LN2 = math.log(2.0)
 
 
 class InformationError(PlannerError):
@@ -392,4 +393,4 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
                 # chunk of per-column variances needs its own.
                 sp = _node_split(cc, nd, floor)
             out[:, c] = _chunk_entropy(xt[c], cc, wc, extra[:, c], h_c, mid[c], size, nd, sp)
-    return out / _LN2
+    return out / LN2

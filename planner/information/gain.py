@@ -15,7 +15,7 @@ import numpy as np
 from scipy.interpolate import CubicSpline
 from scipy.special import logsumexp
 
-from planner.information.entropy import InformationError, mixture_entropy_bits
+from planner.information.entropy import LN2, InformationError, mixture_entropy_bits
 
 __all__ = [
     "InformationError",
@@ -30,7 +30,6 @@ __all__ = [
     "simulate_outcomes",
 ]
 
-_LN2 = math.log(2.0)
 _HALF_LOG_2PIE = 0.5 * math.log(2.0 * math.pi * math.e)
 #: Largest total weight of the samples dropped from a reweighted mixture.
 _PRUNE_MASS = 1e-7
@@ -163,7 +162,7 @@ def noise_entropy_bits(sigma, shape, weights=None):
             mean = mean_log_shifted(rest[:, 0], col, w)  # jitter^2 + sigma_t^2
         else:
             mean = np.mean(np.log(var), axis=0) if w is None else w @ np.log(var)
-    return np.broadcast_to((mean + 2 * _HALF_LOG_2PIE) / (2 * _LN2), (n_c,)).copy()
+    return np.broadcast_to((mean + 2 * _HALF_LOG_2PIE) / (2 * LN2), (n_c,)).copy()
 
 
 def one_visit_bits(predicted, sigma, weights=None):
@@ -323,9 +322,9 @@ def joint_bits(predicted, sigma, rng, n_outcomes=512):
         est = h_samples - beta * (g - g_mean)
     else:
         est = h_samples
-    noise = float(np.sum(noise_entropy_bits(s, v.shape))) * _LN2
-    bits = (float(est.mean()) - noise) / _LN2
-    stderr = float(est.std(ddof=1)) / math.sqrt(est.size) / _LN2
+    noise = float(np.sum(noise_entropy_bits(s, v.shape))) * LN2
+    bits = (float(est.mean()) - noise) / LN2
+    stderr = float(est.std(ddof=1)) / math.sqrt(est.size) / LN2
     return JointEstimate(bits, stderr, int(est.size))
 
 

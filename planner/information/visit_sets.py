@@ -15,11 +15,11 @@ from collections.abc import Sequence
 
 import numpy as np
 
+from planner.information.entropy import LN2
 from planner.information.gain import simulate_outcomes
 
 __all__ = ["enumerate_subsets", "pattern_bits"]
 
-_LN2 = math.log(2.0)
 
 
 def enumerate_subsets(requires: Sequence[int], top: int):
@@ -118,8 +118,8 @@ def pattern_bits(predicted, sigma, requires, top, rng, n_outcomes=256):
         return out
     est = _gaussian_control(np.array(entropies), y, v, s, members)
     for mask, cols, e in zip(masks, members, est, strict=True):
-        bits = (float(e.mean()) - float(noise[list(cols)].sum())) / _LN2
-        out[mask] = (bits, float(e.std(ddof=1)) / math.sqrt(m) / _LN2)
+        bits = (float(e.mean()) - float(noise[list(cols)].sum())) / LN2
+        out[mask] = (bits, float(e.std(ddof=1)) / math.sqrt(m) / LN2)
     return out
 
 

@@ -31,6 +31,8 @@ import math
 import numpy as np
 from scipy.spatial import cKDTree
 
+from planner.information.entropy import LN2
+
 __all__ = [
     "LN2",
     "normalised_log_weights",
@@ -45,7 +47,6 @@ __all__ = [
 ]
 
 #: Natural log of 2: nats per bit.
-LN2 = math.log(2.0)
 
 
 def _logsumexp(a):
