@@ -183,6 +183,8 @@ def test_saved_curves_are_reused_only_where_they_still_hold(base, tmp_path):
     # A changed posterior is never served from the file.
     moved = dict(posteriors)
     moved["Gamur-7"] = dataclasses.replace(posteriors["Gamur-7"], data_digest="changed")
-    assert 0 not in pipeline._reusable(saved, scenario, first.sky, first.exposures,
-                                       first.observable, moved)
+    from planner.workflow.saved_curves import reusable_curves
+
+    assert 0 not in reusable_curves(saved, scenario, first.sky, first.exposures,
+                                    first.observable, moved)
     assert pipeline.load_curves(tmp_path / "missing.npz") is None

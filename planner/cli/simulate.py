@@ -71,11 +71,10 @@ def _check(args, scenario):
             raise PlanError(f"{flag} {value}: give a probability between 0 and 1.")
     if args.plot_star is not None:
         scenario.target(args.plot_star)
-    out = Path(args.out) / "simulate.json"
-    if out.exists() and not args.force:
-        raise PlanError(f"{out} already exists; pass --force to replace it or choose another "
-                        "folder with --out.")
-    return out
+    from planner.workflow.outputs import check_out_folder
+
+    check_out_folder(args.out, args.force, ("simulate.json",))
+    return Path(args.out) / "simulate.json"
 
 
 def run_simulate(args) -> int:

@@ -35,6 +35,7 @@ __all__ = [
     "ScheduledVisit",
     "atomic_write_bytes",
     "atomic_write_text",
+    "check_out_folder",
     "format_utc",
     "parse_utc",
     "read_plan",
@@ -258,6 +259,15 @@ def _write_temporary(path: Path, data: bytes) -> Path:
     return Path(name)
 
 
+def check_out_folder(out: str | Path, force: bool,
+                     names: tuple[str, ...] = ("plan.json", "plan.csv")) -> None:
+    """Fail at once, before any work, if ``out`` holds one of ``names`` and ``force`` is off."""
+    existing = [Path(out) / name for name in names if (Path(out) / name).exists()]
+    if existing and not force:
+        raise PlanError(f"{existing[0]} already exists; pass --force to replace it or choose "
+                        "another folder with --out.")
+
+
 def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False) -> tuple[Path, Path]:
     """Write ``plan.json`` and ``plan.csv`` into ``out_dir`` atomically.
 
@@ -281,9 +291,7 @@ def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False) -> tupl
     """
     out = Path(out_dir)
     json_path, csv_path = out / "plan.json", out / "plan.csv"
-    if not force and (json_path.exists() or csv_path.exists()):
-        raise PlanError(f"{json_path} already exists; pass --force to replace it or choose "
-                        "another folder with --out.")
+    check_out_folder(out, force)
     payload = {json_path: plan.to_json().encode("utf-8"), csv_path: plan.to_csv().encode("utf-8")}
     try:
         out.mkdir(parents=True, exist_ok=True)

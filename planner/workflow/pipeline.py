@@ -28,11 +28,11 @@ import numpy as np
 
 from planner.errors import PlanError
 from planner.workflow.fitting import cache_folder, fit_jobs, fit_posteriors, sampler_settings
+from planner.workflow.outputs import check_out_folder
 from planner.workflow.plan_file import build_plan_file, exact_marginals
 from planner.workflow.prepared import PreparedRun, prepare
 from planner.workflow.rungrid import RunGrid, physical_setup, run_grid
 from planner.workflow.saved_curves import load_curves, save_curves
-from planner.workflow.saved_curves import reusable_curves as _reusable  # noqa: F401 (tests use it)
 from planner.workflow.scenario import Scenario, load_scenario
 
 #: The joint strategy first solves the problem reduced to the best starts per (star, night,
@@ -80,15 +80,6 @@ def demo_scenario_path() -> Path:
 def load(path: str | Path | None) -> Scenario:
     """Load and validate a scenario; ``None`` loads the bundled demo run."""
     return load_scenario(demo_scenario_path() if path is None else path)
-
-
-def check_out_folder(out: str | Path, force: bool,
-                     names: tuple[str, ...] = ("plan.json", "plan.csv")) -> None:
-    """Fail at once, before any work, if ``out`` holds one of ``names`` and ``force`` is off."""
-    existing = [Path(out) / name for name in names if (Path(out) / name).exists()]
-    if existing and not force:
-        raise PlanError(f"{existing[0]} already exists; pass --force to replace it or choose "
-                        "another folder with --out.")
 
 
 @dataclass(frozen=True)
