@@ -60,6 +60,7 @@ __all__ = [
     "make_plan",
     "physical_setup",
     "prepare",
+    "require_room",
     "run_grid",
     "run_strategy",
     "sampler_settings",
@@ -139,6 +140,43 @@ def verify(run: PreparedRun, plan):
                        constraints=run.constraints, mount=run.mount)
 
 
+def _dark_time_left_d(run: PreparedRun) -> float:
+    """Dark time of the run outside the lost (and past) time [d]."""
+    left = 0.0
+    for night in run.aligned:
+        a, b = night.dark_start_jd, night.dark_end_jd
+        cuts = sorted((max(lo, a), min(hi, b)) for lo, hi in run.lost_jd if lo < b and hi > a)
+        covered, reach = 0.0, a
+        for lo, hi in cuts:
+            if hi > reach:
+                covered += hi - max(lo, reach)
+                reach = hi
+        left += max(0.0, (b - a) - covered)
+    return left
+
+
+def require_room(run: PreparedRun) -> None:
+    """Fail with one sentence when the run leaves nothing that could be planned.
+
+    Raises
+    ------
+    PlanError
+        If every target has ``max_visits: 0``, every night is lost or past, or no target can
+        be observed in the dark time that is left.
+    """
+    scenario = run.scenario
+    if all(t.max_visits == 0 for t in scenario.targets):
+        raise PlanError(f"{scenario.path.name}: every target has max_visits: 0, so there is "
+                        "nothing to plan; give at least one target max_visits: 1 or more.")
+    if run.problem.n_candidates > 0:
+        return
+    if _dark_time_left_d(run) <= 0.0:
+        raise PlanError("nothing left to plan: every night of the run is lost or already past "
+                        "(--lost, --now), so no new plan was made and the old plan stands.")
+    raise PlanError(f"{scenario.path.name}: no target can be observed in the dark time that is "
+                    "left; check the lost time, the targets' windows and the constraints.")
+
+
 def make_plan(run: PreparedRun, strategy: str | None = None,
               time_limit_s: float | None = None, notes=()) -> PlanResult:
     """Plan the run with one strategy, verify it, score it exactly and build its plan file.
@@ -146,10 +184,12 @@ def make_plan(run: PreparedRun, strategy: str | None = None,
     Raises
     ------
     PlanError
-        If the plan fails the independent feasibility check.
+        If nothing can be planned (:func:`require_room`) or the plan fails the independent
+        feasibility check.
     """
     from planner.allocation.verify import require_valid
 
+    require_room(run)
     strategy = strategy or run.scenario.solver.strategy
     plan = run_strategy(run, strategy, time_limit_s)
     verification = verify(run, plan)
@@ -188,6 +228,7 @@ def compare(run: PreparedRun, time_limit_s: float | None = None) -> ComparisonRe
     """
     from planner.allocation.compare import compare_strategies
 
+    require_room(run)
     solver = run.scenario.solver
     limit = solver.time_limit_s if time_limit_s is None else float(time_limit_s)
     comparison = compare_strategies(
