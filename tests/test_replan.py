@@ -317,3 +317,25 @@ def test_every_target_at_max_visits_zero(base, tmp_path, cache_dir, capsys):
         err = capsys.readouterr().err.strip().splitlines()
         assert code == 2 and not out.exists()
         assert len(err) == 1 and "max_visits: 0" in err[0] and "nothing to plan" in err[0]
+
+
+def test_nothing_left_to_plan_is_found_before_any_fitting_or_solving(base):
+    scenario, posteriors, old, _ = base
+    with pytest.raises(PlanError, match="nothing left to plan"):
+        replan.parse_request(old, scenario, lost=[n.date for n in old.nights])
+    later = parse_utc(old.nights[-1].dark_end_utc) + 0.01
+    with pytest.raises(PlanError, match="nothing left to plan"):
+        replan.parse_request(old, scenario, now=format_utc(later))
+    # One dark minute left is still something to plan.
+    last = old.nights[-1]
+    cut = format_utc(parse_utc(last.dark_end_utc) - 60.0 / 86400.0)
+    request = replan.parse_request(
+        old, scenario, lost=[old.nights[0].date, f"{last.sunset_utc}/{cut}"])
+    assert len(request.lost_jd) == 2  # accepted: no error
+    # The library refuses the same run when it is prepared directly.
+    lost = tuple((parse_utc(n.sunset_utc), parse_utc(n.sunrise_utc)) for n in old.nights)
+    run = pipeline.prepare(scenario, posteriors, lost_jd=lost, strict=False, jobs=1)
+    with pytest.raises(PlanError, match="nothing left to plan"):
+        pipeline.make_plan(run)
+    spans = [(0.2, 0.5), (0.4, 0.6), (2.0, 3.0)]  # overlapping and outside
+    assert pipeline.uncovered_d(0.0, 1.0, spans) == pytest.approx(0.6)

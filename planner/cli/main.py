@@ -50,9 +50,12 @@ class _ProgressBar:
         self.stream.flush()
 
 
-def _common(parser: argparse.ArgumentParser) -> None:
+_SCENARIO_HELP = "scenario YAML file (default: the bundled invented demo run)"
+
+
+def _common(parser: argparse.ArgumentParser, scenario_help: str = _SCENARIO_HELP) -> None:
     parser.add_argument("scenario", nargs="?", default=None, metavar="SCENARIO",
-                        help="scenario YAML file (default: the bundled invented demo run)")
+                        help=scenario_help)
     parser.add_argument("--cache", metavar="DIR", default=None,
                         help="posterior cache folder (default: the scenario's 'cache:', else "
                              "$NIGHTBITS_CACHE or ~/.cache/nightbits)")
@@ -61,10 +64,11 @@ def _common(parser: argparse.ArgumentParser) -> None:
                         help="processes for fitting (default: all cores)")
 
 
-def _command(sub, name: str, summary: str, description: str, func):
+def _command(sub, name: str, summary: str, description: str, func,
+             scenario_help: str = _SCENARIO_HELP):
     """Register one subcommand with the options every command shares."""
     p = sub.add_parser(name, help=summary, description=description)
-    _common(p)
+    _common(p, scenario_help)
     p.set_defaults(func=func)
     return p
 
@@ -122,7 +126,9 @@ def _add_replan(sub) -> None:
                  "Drop lost nights or hours, keep what was executed, fold in new velocities and "
                  "plan the rest of the run. SCENARIO defaults to the scenario file recorded in "
                  "the plan; a scenario whose targets or site differ from the plan's is "
-                 "refused.", _run_replan)
+                 "refused.", _run_replan,
+                 scenario_help="scenario YAML file (default: the one recorded in the plan "
+                               "file; it must have the plan's targets and site)")
     p.add_argument("--plan", required=True, metavar="FILE", help="the plan.json to start from")
     p.add_argument("--lost", action="append", default=[], metavar="NIGHT|START/END",
                    help="a lost night (its local evening date YYYY-MM-DD) or a lost UTC "

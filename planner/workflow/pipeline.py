@@ -65,6 +65,7 @@ __all__ = [
     "run_strategy",
     "sampler_settings",
     "save_curves",
+    "uncovered_d",
     "verify",
 ]
 
@@ -140,19 +141,16 @@ def verify(run: PreparedRun, plan):
                        constraints=run.constraints, mount=run.mount)
 
 
-def _dark_time_left_d(run: PreparedRun) -> float:
-    """Dark time of the run outside the lost (and past) time [d]."""
-    left = 0.0
-    for night in run.aligned:
-        a, b = night.dark_start_jd, night.dark_end_jd
-        cuts = sorted((max(lo, a), min(hi, b)) for lo, hi in run.lost_jd if lo < b and hi > a)
-        covered, reach = 0.0, a
-        for lo, hi in cuts:
-            if hi > reach:
-                covered += hi - max(lo, reach)
-                reach = hi
-        left += max(0.0, (b - a) - covered)
-    return left
+def uncovered_d(start_jd: float, end_jd: float, spans) -> float:
+    """Length of ``[start_jd, end_jd]`` not covered by any of the ``(lo, hi)`` spans [d]."""
+    cuts = sorted((max(lo, start_jd), min(hi, end_jd)) for lo, hi in spans
+                  if lo < end_jd and hi > start_jd)
+    covered, reach = 0.0, start_jd
+    for lo, hi in cuts:
+        if hi > reach:
+            covered += hi - max(lo, reach)
+            reach = hi
+    return max(0.0, (end_jd - start_jd) - covered)
 
 
 def require_room(run: PreparedRun) -> None:
@@ -170,7 +168,8 @@ def require_room(run: PreparedRun) -> None:
                         "nothing to plan; give at least one target max_visits: 1 or more.")
     if run.problem.n_candidates > 0:
         return
-    if _dark_time_left_d(run) <= 0.0:
+    left = sum(uncovered_d(n.dark_start_jd, n.dark_end_jd, run.lost_jd) for n in run.aligned)
+    if left <= 0.0:
         raise PlanError("nothing left to plan: every night of the run is lost or already past "
                         "(--lost, --now), so no new plan was made and the old plan stands.")
     raise PlanError(f"{scenario.path.name}: no target can be observed in the dark time that is "

@@ -270,7 +270,14 @@ def read_new_velocities(path: str | Path, scenario) -> dict:
 
 def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=(),
                   now=None) -> ReplanRequest:
-    """Turn the command's options into a :class:`ReplanRequest` (checked against the old plan)."""
+    """Turn the command's options into a :class:`ReplanRequest` (checked against the old plan).
+
+    Raises
+    ------
+    PlanError
+        If an option is malformed or does not fit the plan, if nothing is asked, or if the
+        lost and past time leave no dark time to plan.
+    """
     spans, labels = _lost_items(old, lost)
     now_jd = None if now is None else parse_utc(now, "--now")
     done = [v for v in old.visits if v.status != "planned"]
@@ -292,6 +299,12 @@ def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=
     if not (spans or kept or new_data):
         raise PlanError("nothing to re-plan: give lost time (--lost), executed visits (--done "
                         "or --now) or new velocities (--rvs).")
+    from planner.workflow.pipeline import uncovered_d
+
+    if not any(uncovered_d(parse_utc(n.dark_start_utc), parse_utc(n.dark_end_utc), spans) > 0
+               for n in old.nights):
+        raise PlanError("nothing left to plan: every night of the run is lost or already past "
+                        "(--lost, --now), so no new plan was made and the old plan stands.")
     return ReplanRequest(lost_jd=tuple(spans), lost_labels=tuple(labels), done=kept,
                          now_jd=now_jd, new_data=new_data)
 
