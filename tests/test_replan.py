@@ -13,7 +13,7 @@ from inference.keplerian import radial_velocity
 from planner.cli.main import main
 from planner.errors import PlanError
 from planner.workflow import pipeline, replan
-from planner.workflow.outputs import parse_utc, read_plan
+from planner.workflow.outputs import format_utc, parse_utc, read_plan
 
 TINY = Path(__file__).resolve().parent / "data" / "tiny" / "tiny.yaml"
 TRUTH = Path(__file__).resolve().parents[1] / "scenarios" / "demo" / "truth" / "gamur-7.json"
@@ -188,3 +188,156 @@ def test_saved_curves_are_reused_only_where_they_still_hold(base, tmp_path):
     assert 0 not in reusable_curves(saved, scenario, first.sky, first.exposures,
                                     first.observable, moved)
     assert pipeline.load_curves(tmp_path / "missing.npz") is None
+
+
+# Which scenario a re-plan uses, and the runs that leave nothing to plan.
+
+
+def _replan_cli(capsys, argv, out):
+    """Run ``nightbits replan``; return (exit code, stderr lines) after checking nothing was
+    written when it fails."""
+    code = main(["replan", *argv, "--out", str(out)])
+    err = capsys.readouterr().err.strip().splitlines()
+    if code != 0:
+        assert not out.exists()  # nothing written
+        assert len(err) == 1 and "Traceback" not in err[0] and "internal error" not in err[0]
+    return code, err
+
+
+def _tiny_copy(tmp_path, change) -> Path:
+    """A copy of the tiny scenario folder with ``change`` applied to its YAML."""
+    import shutil
+
+    import yaml
+
+    folder = tmp_path / "run"
+    shutil.copytree(TINY.parent, folder)
+    doc = yaml.safe_load(TINY.read_text())
+    change(doc)
+    path = folder / "edited.yaml"
+    path.write_text(yaml.safe_dump(doc, sort_keys=False))
+    return path
+
+
+def _plan_recording(tmp_path, old, scenario_text) -> Path:
+    """A copy of the plan file recording ``scenario_text`` as its scenario."""
+    path = tmp_path / "old" / "plan.json"
+    path.parent.mkdir()
+    data = json.loads(old.to_json())
+    data["scenario"] = scenario_text
+    path.write_text(json.dumps(data))
+    return path
+
+
+def test_replan_without_scenario_uses_the_one_in_the_plan(base, tmp_path, cache_dir, capsys):
+    scenario, _, old, json_path = base
+    out = tmp_path / "again"
+    code, _ = _replan_cli(capsys, ["--plan", str(json_path), "--lost", old.nights[1].date,
+                                   "--cache", str(cache_dir)], out)
+    assert code == 0
+    new = read_plan(out / "plan.json")
+    assert new.scenario == str(TINY) and new.site == old.site
+    assert set(new.target_bits) == {t.id for t in scenario.targets}  # not the 40-star demo
+    night = old.nights[1]
+    a, b = parse_utc(night.sunset_utc), parse_utc(night.sunrise_utc)
+    assert new.visits and not any(_overlaps(v, a, b) for v in new.visits)
+
+
+@pytest.mark.parametrize("recorded", ["", "gone/run.yaml", "/nonexistent/run.yaml"])
+def test_replan_asks_for_the_scenario_when_the_plan_has_none(base, tmp_path, capsys, recorded):
+    plan_json = _plan_recording(tmp_path, base[2], recorded)
+    code, err = _replan_cli(capsys, ["--plan", str(plan_json), "--lost", base[2].nights[1].date],
+                            tmp_path / "o")
+    assert code == 2
+    assert "SCENARIO" in err[0] and str(plan_json) in err[0]
+    # Given on the command line, the same plan file is accepted (and checked).
+    replan.check_scenario_matches(read_plan(plan_json), base[0], plan_json)
+
+
+def test_a_scenario_with_other_targets_is_refused(base, tmp_path, capsys):
+    old, json_path = base[2], base[3]
+    demo = pipeline.demo_scenario_path()
+    code, err = _replan_cli(capsys, [str(demo), "--plan", str(json_path), "--lost",
+                                     old.nights[1].date], tmp_path / "o")
+    assert code == 2
+    assert f"{demo.name} does not match" in err[0] and "targets" in err[0]
+    assert str(TINY) in err[0]  # how to fix: the scenario the plan was made from
+
+    def rename(doc):
+        doc["targets"][0]["id"] = "Gamur-8"
+
+    code, err = _replan_cli(capsys, [str(_tiny_copy(tmp_path, rename)), "--plan",
+                                     str(json_path), "--lost", old.nights[1].date],
+                            tmp_path / "o")
+    assert code == 2 and "Gamur-7" in err[0] and "Gamur-8" in err[0]
+
+
+@pytest.mark.parametrize("key, value", [("latitude_deg", -30.0), ("timezone", "UTC"),
+                                        ("name", "Another Ridge (invented)")])
+def test_a_scenario_at_another_site_is_refused(base, tmp_path, capsys, key, value):
+    old, json_path = base[2], base[3]
+
+    def move(doc):
+        doc["site"][key] = value
+
+    edited = _tiny_copy(tmp_path, move)
+    code, err = _replan_cli(capsys, [str(edited), "--plan", str(json_path), "--lost",
+                                     old.nights[1].date], tmp_path / "o")
+    assert code == 2 and "site differs" in err[0] and key in err[0]
+    with pytest.raises(PlanError, match="site differs"):
+        replan.check_scenario_matches(old, pipeline.load(edited), json_path)
+
+
+def test_the_same_scenario_elsewhere_is_accepted(base, tmp_path):
+    copy = _tiny_copy(tmp_path, lambda doc: None)
+    replan.check_scenario_matches(base[2], pipeline.load(copy), base[3])  # no error
+
+
+def test_every_night_lost_or_past_leaves_nothing_to_plan(base, tmp_path, cache_dir, capsys):
+    old, json_path = base[2], base[3]
+    every_night = [arg for n in old.nights for arg in ("--lost", n.date)]
+    after_run = parse_utc(old.nights[-1].sunrise_utc) + 1.0
+    for extra in (every_night, ["--now", format_utc(after_run)]):
+        code, err = _replan_cli(capsys, ["--plan", str(json_path), "--cache", str(cache_dir),
+                                         *extra], tmp_path / "o")
+        assert code == 2 and "nothing left to plan" in err[0]
+
+
+def test_every_target_at_max_visits_zero(base, tmp_path, cache_dir, capsys):
+    old, json_path = base[2], base[3]
+
+    def none_allowed(doc):
+        for target in doc["targets"]:
+            target["max_visits"] = 0
+            target.pop("min_visits", None)
+
+    edited = _tiny_copy(tmp_path, none_allowed)
+    for argv in (["replan", str(edited), "--plan", str(json_path), "--lost", old.nights[1].date],
+                 ["plan", str(edited)]):
+        out = tmp_path / argv[0]
+        code = main([*argv, "--cache", str(cache_dir), "--out", str(out)])
+        err = capsys.readouterr().err.strip().splitlines()
+        assert code == 2 and not out.exists()
+        assert len(err) == 1 and "max_visits: 0" in err[0] and "nothing to plan" in err[0]
+
+
+def test_nothing_left_to_plan_is_found_before_any_fitting_or_solving(base):
+    scenario, posteriors, old, _ = base
+    with pytest.raises(PlanError, match="nothing left to plan"):
+        replan.parse_request(old, scenario, lost=[n.date for n in old.nights])
+    later = parse_utc(old.nights[-1].dark_end_utc) + 0.01
+    with pytest.raises(PlanError, match="nothing left to plan"):
+        replan.parse_request(old, scenario, now=format_utc(later))
+    # One dark minute left is still something to plan.
+    last = old.nights[-1]
+    cut = format_utc(parse_utc(last.dark_end_utc) - 60.0 / 86400.0)
+    request = replan.parse_request(
+        old, scenario, lost=[old.nights[0].date, f"{last.sunset_utc}/{cut}"])
+    assert len(request.lost_jd) == 2  # accepted: no error
+    # The library refuses the same run when it is prepared directly.
+    lost = tuple((parse_utc(n.sunset_utc), parse_utc(n.sunrise_utc)) for n in old.nights)
+    run = pipeline.prepare(scenario, posteriors, lost_jd=lost, strict=False, jobs=1)
+    with pytest.raises(PlanError, match="nothing left to plan"):
+        pipeline.make_plan(run)
+    spans = [(0.2, 0.5), (0.4, 0.6), (2.0, 3.0)]  # overlapping and outside
+    assert pipeline.uncovered_d(0.0, 1.0, spans) == pytest.approx(0.6)

@@ -1,6 +1,7 @@
 """The ``nightbits`` command: fit, curves, plan, compare and replan an observing run.
 
-Every command takes an optional SCENARIO (the bundled demo run when omitted). Exit codes: 0 on
+Every command takes an optional SCENARIO (the bundled demo run when omitted; for ``replan``, the
+scenario recorded in the plan file, which a given SCENARIO must match). Exit codes: 0 on
 success, 2 on a user error (one sentence on stderr; ``--debug`` adds the traceback), 1 on an
 internal error. This module only parses arguments, wires logging and the progress bar, and calls
 :mod:`planner.workflow.pipeline`; heavy imports happen inside the command functions so ``--help`` is
@@ -31,12 +32,14 @@ __all__ = ["COMMANDS", "build_parser", "main"]
 
 log = logging.getLogger(__name__)
 
+_SCENARIO_HELP = "scenario YAML file (default: the bundled invented demo run)"
 
 
-def _command(sub, name: str, summary: str, description: str, func):
+def _command(sub, name: str, summary: str, description: str, func,
+             scenario_help: str = _SCENARIO_HELP):
     """Register one subcommand with the options every command shares."""
     p = sub.add_parser(name, help=summary, description=description)
-    add_common_options(p)
+    add_common_options(p, scenario_help)
     p.set_defaults(func=func)
     return p
 
@@ -92,7 +95,11 @@ def _add_compare(sub) -> None:
 def _add_replan(sub) -> None:
     p = _command(sub, "replan", "re-plan after lost time, executed visits or new velocities",
                  "Drop lost nights or hours, keep what was executed, fold in new velocities and "
-                 "plan the rest of the run.", _run_replan)
+                 "plan the rest of the run. SCENARIO defaults to the scenario file recorded in "
+                 "the plan; a scenario whose targets or site differ from the plan's is "
+                 "refused.", _run_replan,
+                 scenario_help="scenario YAML file (default: the one recorded in the plan "
+                               "file; it must have the plan's targets and site)")
     p.add_argument("--plan", required=True, metavar="FILE", help="the plan.json to start from")
     p.add_argument("--lost", action="append", default=[], metavar="NIGHT|START/END",
                    help="a lost night (its local evening date YYYY-MM-DD) or a lost UTC "
@@ -210,13 +217,16 @@ def _run_compare(args) -> int:
 
 
 def _run_replan(args) -> int:
-    from planner.workflow import replan
+    from planner.workflow import pipeline, replan
     from planner.workflow.outputs import read_plan, write_plan
     from planner.workflow.report import render_schedule
 
-    pipeline, scenario, cache = open_session(args)
     pipeline.check_out_folder(args.out, args.force)
     old = read_plan(args.plan)
+    path = args.scenario if args.scenario is not None else replan.recorded_scenario(old, args.plan)
+    scenario = pipeline.load(path)
+    replan.check_scenario_matches(old, scenario, args.plan)
+    cache = pipeline.cache_folder(scenario, args.cache, args.no_cache)
     request = replan.parse_request(old, scenario, lost=args.lost, done_file=args.done,
                                    rv_files=args.rvs, now=args.now)
     posteriors = fit_with_progress(args, pipeline, scenario, cache)

@@ -50,10 +50,12 @@ class ProgressBar:
         self.stream.flush()
 
 
-def add_common_options(parser: argparse.ArgumentParser) -> None:
+def add_common_options(parser: argparse.ArgumentParser,
+                       scenario_help: str = "scenario YAML file (default: the bundled "
+                                            "invented demo run)") -> None:
     """Add the options every command shares: SCENARIO, --cache, --no-cache, --jobs."""
     parser.add_argument("scenario", nargs="?", default=None, metavar="SCENARIO",
-                        help="scenario YAML file (default: the bundled invented demo run)")
+                        help=scenario_help)
     parser.add_argument("--cache", metavar="DIR", default=None,
                         help="posterior cache folder (default: the scenario's 'cache:', else "
                              "$NIGHTBITS_CACHE or ~/.cache/nightbits)")

@@ -60,10 +60,12 @@ __all__ = [
     "make_plan",
     "physical_setup",
     "prepare",
+    "require_room",
     "run_grid",
     "run_strategy",
     "sampler_settings",
     "save_curves",
+    "uncovered_d",
     "verify",
 ]
 
@@ -130,6 +132,41 @@ def verify(run: PreparedRun, plan):
                        constraints=run.constraints, mount=run.mount)
 
 
+def uncovered_d(start_jd: float, end_jd: float, spans) -> float:
+    """Length of ``[start_jd, end_jd]`` not covered by any of the ``(lo, hi)`` spans [d]."""
+    cuts = sorted((max(lo, start_jd), min(hi, end_jd)) for lo, hi in spans
+                  if lo < end_jd and hi > start_jd)
+    covered, reach = 0.0, start_jd
+    for lo, hi in cuts:
+        if hi > reach:
+            covered += hi - max(lo, reach)
+            reach = hi
+    return max(0.0, (end_jd - start_jd) - covered)
+
+
+def require_room(run: PreparedRun) -> None:
+    """Fail with one sentence when the run leaves nothing that could be planned.
+
+    Raises
+    ------
+    PlanError
+        If every target has ``max_visits: 0``, every night is lost or past, or no target can
+        be observed in the dark time that is left.
+    """
+    scenario = run.scenario
+    if all(t.max_visits == 0 for t in scenario.targets):
+        raise PlanError(f"{scenario.path.name}: every target has max_visits: 0, so there is "
+                        "nothing to plan; give at least one target max_visits: 1 or more.")
+    if run.problem.n_candidates > 0:
+        return
+    left = sum(uncovered_d(n.dark_start_jd, n.dark_end_jd, run.lost_jd) for n in run.aligned)
+    if left <= 0.0:
+        raise PlanError("nothing left to plan: every night of the run is lost or already past "
+                        "(--lost, --now), so no new plan was made and the old plan stands.")
+    raise PlanError(f"{scenario.path.name}: no target can be observed in the dark time that is "
+                    "left; check the lost time, the targets' windows and the constraints.")
+
+
 def make_plan(run: PreparedRun, strategy: str | None = None,
               time_limit_s: float | None = None, notes=()) -> PlanResult:
     """Plan the run with one strategy, verify it, score it exactly and build its plan file.
@@ -137,10 +174,12 @@ def make_plan(run: PreparedRun, strategy: str | None = None,
     Raises
     ------
     PlanError
-        If the plan fails the independent feasibility check.
+        If nothing can be planned (:func:`require_room`) or the plan fails the independent
+        feasibility check.
     """
     from planner.allocation.verify import require_valid
 
+    require_room(run)
     strategy = strategy or run.scenario.solver.strategy
     plan = run_strategy(run, strategy, time_limit_s)
     verification = verify(run, plan)
@@ -179,6 +218,7 @@ def compare(run: PreparedRun, time_limit_s: float | None = None) -> ComparisonRe
     """
     from planner.allocation.compare import compare_strategies
 
+    require_room(run)
     solver = run.scenario.solver
     limit = solver.time_limit_s if time_limit_s is None else float(time_limit_s)
     comparison = compare_strategies(

@@ -33,7 +33,8 @@ import numpy as np
 from planner.errors import PlanError
 from planner.workflow.outputs import PlanFile, ScheduledVisit, format_utc, parse_utc
 
-__all__ = ["ReplanRequest", "ReplanResult", "parse_request", "read_new_velocities", "replan"]
+__all__ = ["ReplanRequest", "ReplanResult", "check_scenario_matches", "parse_request",
+           "read_new_velocities", "recorded_scenario", "replan"]
 
 log = logging.getLogger(__name__)
 
@@ -86,6 +87,92 @@ class ReplanResult:
     plan: object
     run: object
     updates: dict
+
+
+def recorded_scenario(old: PlanFile, plan_path: str | Path) -> Path:
+    """Return the scenario file a plan file records, checked to exist.
+
+    Parameters
+    ----------
+    old : PlanFile
+        The plan read from ``plan_path``.
+    plan_path : str or pathlib.Path
+        Where the plan file is; a relative recorded path is taken relative to its folder.
+
+    Returns
+    -------
+    pathlib.Path
+
+    Raises
+    ------
+    PlanError
+        If the plan records no scenario path or the file is no longer there.
+    """
+    plan_path = Path(plan_path)
+    how = f"give it as SCENARIO: nightbits replan SCENARIO --plan {plan_path} ..."
+    recorded = (old.scenario or "").strip()
+    if not recorded:
+        raise PlanError(f"{plan_path} does not record the scenario file it was made from; {how}")
+    path = Path(recorded).expanduser()
+    if not path.is_absolute():
+        path = plan_path.parent / path
+    if not path.is_file():
+        raise PlanError(f"{plan_path} was made from the scenario file {path}, which no longer "
+                        f"exists; {how}")
+    return path
+
+
+def _site_differences(old: PlanFile, site) -> list[str]:
+    recorded = old.site or {}
+    wrong = []
+    for key in ("latitude_deg", "longitude_deg", "elevation_m"):
+        try:
+            same = abs(float(recorded[key]) - float(getattr(site, key))) <= 1e-6
+        except (KeyError, TypeError, ValueError):
+            same = False
+        if not same:
+            wrong.append(f"{key} {recorded.get(key)} in the plan, {getattr(site, key)} here")
+    for key in ("name", "timezone"):
+        if recorded.get(key) != getattr(site, key):
+            wrong.append(f"{key} {recorded.get(key)!r} in the plan, {getattr(site, key)!r} here")
+    return wrong
+
+
+def _names(ids, most: int = 4) -> str:
+    ids = sorted(ids)
+    shown = ", ".join(ids[:most])
+    return shown if len(ids) <= most else f"{shown} and {len(ids) - most} more"
+
+
+def check_scenario_matches(old: PlanFile, scenario, plan_path: str | Path) -> None:
+    """Refuse a scenario whose targets or site are not those of the plan.
+
+    Parameters
+    ----------
+    old : PlanFile
+    scenario : planner.workflow.scenario.Scenario
+    plan_path : str or pathlib.Path
+        Where the plan file is, for the message.
+
+    Raises
+    ------
+    PlanError
+        If the target ids (as a set) or the site (name, position, time zone) differ.
+    """
+    where = f"{scenario.path.name} does not match {plan_path}"
+    fix = f"give the scenario the plan was made from ({old.scenario or 'not recorded'})."
+    plan_ids = set(old.target_bits) | {v.target for v in old.visits}
+    ids = {t.id for t in scenario.targets}
+    if plan_ids != ids:
+        parts = []
+        if plan_ids - ids:
+            parts.append(f"the plan's targets {_names(plan_ids - ids)} are not in the scenario")
+        if ids - plan_ids:
+            parts.append(f"the scenario's targets {_names(ids - plan_ids)} are not in the plan")
+        raise PlanError(f"{where}: {' and '.join(parts)}; {fix}")
+    wrong = _site_differences(old, scenario.site)
+    if wrong:
+        raise PlanError(f"{where}: the site differs ({'; '.join(wrong)}); {fix}")
 
 
 def _lost_items(old: PlanFile, lost) -> tuple[list, list]:
@@ -183,7 +270,14 @@ def read_new_velocities(path: str | Path, scenario) -> dict:
 
 def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=(),
                   now=None) -> ReplanRequest:
-    """Turn the command's options into a :class:`ReplanRequest` (checked against the old plan)."""
+    """Turn the command's options into a :class:`ReplanRequest` (checked against the old plan).
+
+    Raises
+    ------
+    PlanError
+        If an option is malformed or does not fit the plan, if nothing is asked, or if the
+        lost and past time leave no dark time to plan.
+    """
     spans, labels = _lost_items(old, lost)
     now_jd = None if now is None else parse_utc(now, "--now")
     done = [v for v in old.visits if v.status != "planned"]
@@ -205,6 +299,12 @@ def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=
     if not (spans or kept or new_data):
         raise PlanError("nothing to re-plan: give lost time (--lost), executed visits (--done "
                         "or --now) or new velocities (--rvs).")
+    from planner.workflow.pipeline import uncovered_d
+
+    if not any(uncovered_d(parse_utc(n.dark_start_utc), parse_utc(n.dark_end_utc), spans) > 0
+               for n in old.nights):
+        raise PlanError("nothing left to plan: every night of the run is lost or already past "
+                        "(--lost, --now), so no new plan was made and the old plan stands.")
     return ReplanRequest(lost_jd=tuple(spans), lost_labels=tuple(labels), done=kept,
                          now_jd=now_jd, new_data=new_data)
 
