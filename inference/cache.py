@@ -17,16 +17,16 @@ import json
 import logging
 from pathlib import Path
 
+from . import sample
 from .errors import InferenceError
 from .posterior import FORMAT_VERSION, Posterior
-from .sample import SAMPLER_VERSION
 
 __all__ = ["FitCache", "cache_key"]
 
 logger = logging.getLogger(__name__)
 
 
-def cache_key(data_digest, model, settings, seed, target="", sampler_version=SAMPLER_VERSION):
+def cache_key(data_digest, model, settings, seed, target="", sampler_version=None):
     """Hex sha256 key of one fit.
 
     Parameters
@@ -39,13 +39,16 @@ def cache_key(data_digest, model, settings, seed, target="", sampler_version=SAM
     target : str, optional
         Name of the star (two stars never share an entry, even with equal data).
     sampler_version : str, optional
-        Version of the sampling algorithm; default :data:`inference.sample.SAMPLER_VERSION`.
+        Version of the sampling algorithm; None (default) reads
+        :data:`inference.sample.SAMPLER_VERSION` at call time.
 
     Returns
     -------
     str
         64 hexadecimal digits.
     """
+    if sampler_version is None:
+        sampler_version = sample.SAMPLER_VERSION
     doc = {
         "data": data_digest,
         "model": model.to_dict(),

@@ -222,7 +222,8 @@ class Posterior:
 
         path = Path(path)
         try:
-            with np.load(path, allow_pickle=False) as npz:
+            # Open the file here: np.load leaks its own handle when the zip is damaged.
+            with open(path, "rb") as fh, np.load(fh, allow_pickle=False) as npz:
                 samples = np.array(npz["samples"], dtype=float)
                 log_l = np.array(npz["log_likelihood"], dtype=float)
                 meta = json.loads(str(npz["metadata"]))
