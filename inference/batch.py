@@ -126,7 +126,9 @@ def fit_many(jobs, executor=None, cache=None, progress=None):
         Where fits run; default a ProcessPoolExecutor with 2 workers (shut down afterwards).
         A passed executor is left running.
     cache : FitCache, optional
-        Cached posteriors are returned without refitting; new ones are stored.
+        Cached posteriors are returned without refitting; new ones are stored. A damaged or
+        foreign entry is refitted and overwritten; when the folder cannot be written the new
+        fits are still returned, with one logged warning naming the folder.
     progress : callable, optional
         ``progress(done, total, label)`` after each target (label is the target name).
 
@@ -152,8 +154,10 @@ def fit_many(jobs, executor=None, cache=None, progress=None):
     done = 0
     for job in jobs:
         if cache is not None:
-            keys[job.target] = cache_key(job.data.digest, job.model, job.settings, job.seed)
-            hit = cache.get(keys[job.target])
+            keys[job.target] = cache_key(
+                job.data.digest, job.model, job.settings, job.seed, target=job.target
+            )
+            hit = cache.get(keys[job.target], target=job.target)
             if hit is not None:
                 results[job.target] = hit
                 done += 1
@@ -161,6 +165,7 @@ def fit_many(jobs, executor=None, cache=None, progress=None):
                     progress(done, total, job.target)
                 continue
         todo.append(job)
+    unsaved = []  # (target, OSError) of new fits the cache folder refused
     own = executor is None and todo
     if own:
         executor = ProcessPoolExecutor(max_workers=2)
@@ -180,11 +185,20 @@ def fit_many(jobs, executor=None, cache=None, progress=None):
             else:
                 results[job.target] = posterior
                 if cache is not None:
-                    cache.put(keys[job.target], posterior)
+                    try:
+                        cache.put(keys[job.target], posterior)
+                    except OSError as exc:  # e.g. a read-only folder: keep the fit, warn once
+                        unsaved.append((job.target, exc))
             done += 1
             if progress:
                 progress(done, total, job.target)
     finally:
         if own:
             executor.shutdown(wait=True, cancel_futures=True)
+    if unsaved:
+        logger.warning(
+            "could not cache %d new fit(s) (%s) in %s: %s; they are used for this run only and "
+            "will be fitted again next time",
+            len(unsaved), ", ".join(t for t, _ in unsaved), cache.directory, unsaved[0][1],
+        )
     return {name: results[name] for name in names}

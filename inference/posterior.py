@@ -9,6 +9,8 @@ import io
 import json
 import os
 import tempfile
+import zipfile
+import zlib
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -24,7 +26,13 @@ from .model import ModelSpec
 __all__ = ["FORMAT_VERSION", "Posterior", "predict_matrix"]
 
 #: Version of the on-disk format; readers refuse files with another major version.
-FORMAT_VERSION = "1.0"
+#: 1.1 adds the optional ``cache_key`` entry of the metadata.
+FORMAT_VERSION = "1.1"
+
+#: What reading a damaged (truncated, bit-flipped) ``.npz`` can raise besides OSError.
+_DAMAGED = (
+    OSError, KeyError, ValueError, IndexError, EOFError, TypeError, zipfile.BadZipFile, zlib.error
+)
 
 
 def predict_matrix(samples, model, t, instrument):
@@ -95,6 +103,9 @@ class Posterior:
         How the sampling went.
     settings : SamplerSettings or None
         Settings of the fit.
+    cache_key : str or None
+        Key of the cache entry this record is stored under (:func:`inference.cache.cache_key`),
+        or None outside a cache.
     """
 
     target: str
@@ -106,6 +117,7 @@ class Posterior:
     seed: int
     diagnostics: object
     settings: object = None
+    cache_key: str | None = None
 
     def __post_init__(self):
         for arr in (self.samples, self.log_likelihood):
@@ -160,6 +172,7 @@ class Posterior:
             "seed": self.seed,
             "settings": self.settings.to_dict() if self.settings is not None else None,
             "diagnostics": self.diagnostics.to_dict(),
+            "cache_key": self.cache_key,
         }
 
     def save(self, path):
@@ -171,6 +184,7 @@ class Posterior:
             Destination; its folder must exist.
         """
         path = Path(path)
+        folder = path.parent
         buf = io.BytesIO()
         np.savez(
             buf,
@@ -188,6 +202,7 @@ class Posterior:
         except BaseException:
             Path(tmp).unlink(missing_ok=True)
             raise
+        _fsync_folder(folder)
 
     @classmethod
     def load(cls, path):
@@ -208,7 +223,8 @@ class Posterior:
         """
         path = Path(path)
         try:
-            with np.load(path, allow_pickle=False) as npz:
+            # Open the file here: np.load leaks its own handle when the zip is damaged.
+            with open(path, "rb") as fh, np.load(fh, allow_pickle=False) as npz:
                 samples = np.array(npz["samples"], dtype=float)
                 log_l = np.array(npz["log_likelihood"], dtype=float)
                 meta = json.loads(str(npz["metadata"]))
@@ -216,25 +232,63 @@ class Posterior:
             raise InferenceError(
                 f"posterior file {path} does not exist: fit the target first."
             ) from None
-        except (OSError, KeyError, ValueError) as exc:
+        except _DAMAGED as exc:
             raise InferenceError(
-                f"{path} is not a readable posterior file ({exc}): delete it and refit."
+                f"{path} is not a readable posterior file ({type(exc).__name__}: {exc}): delete "
+                "it and refit."
             ) from None
+        if not isinstance(meta, dict):
+            raise InferenceError(
+                f"{path} is not a readable posterior file (its metadata is not a JSON object): "
+                "delete it and refit."
+            )
         version = str(meta.get("format_version", ""))
         if meta.get("format") != "nightbits-posterior" or version.split(".")[0] != "1":
             raise InferenceError(
                 f"{path} has format {meta.get('format')!r} version {version!r}, not "
                 f"nightbits-posterior {FORMAT_VERSION}: refit the target to rewrite it."
             )
-        settings = meta.get("settings")
-        return cls(
-            target=meta["target"],
-            model=ModelSpec.from_dict(meta["model"]),
-            names=tuple(meta["names"]),
-            samples=samples,
-            log_likelihood=log_l,
-            data_digest=meta["data_digest"],
-            seed=int(meta["seed"]),
-            diagnostics=Diagnostics.from_dict(meta["diagnostics"]),
-            settings=SamplerSettings(**settings) if settings else None,
-        )
+        try:
+            settings = meta.get("settings")
+            names = tuple(meta["names"])
+            if samples.ndim != 2 or samples.shape[1] != len(names) or log_l.shape != (
+                samples.shape[0],
+            ):
+                raise ValueError(
+                    f"samples of shape {samples.shape} and log_likelihood of shape "
+                    f"{log_l.shape} do not fit {len(names)} parameter names"
+                )
+            key = meta.get("cache_key")
+            return cls(
+                target=str(meta["target"]),
+                model=ModelSpec.from_dict(meta["model"]),
+                names=names,
+                samples=samples,
+                log_likelihood=log_l,
+                data_digest=str(meta["data_digest"]),
+                seed=int(meta["seed"]),
+                diagnostics=Diagnostics.from_dict(meta["diagnostics"]),
+                settings=SamplerSettings(**settings) if settings else None,
+                cache_key=None if key is None else str(key),
+            )
+        except InferenceError:
+            raise
+        except (KeyError, ValueError, TypeError, AttributeError) as exc:
+            raise InferenceError(
+                f"{path} is not a readable posterior file ({type(exc).__name__}: {exc}): delete "
+                "it and refit."
+            ) from None
+
+
+def _fsync_folder(folder):
+    """Flush a folder's entry list to disk after a rename (best effort: not every OS can)."""
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)

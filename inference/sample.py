@@ -21,9 +21,15 @@ from .likelihood import linear_conditional, log_marginal, log_prior, prepare
 from .model import check_enough_points
 from .start import multimodal_start
 
-__all__ = ["fit", "integrated_time"]
+__all__ = ["SAMPLER_VERSION", "fit", "integrated_time"]
 
 logger = logging.getLogger(__name__)
+
+#: Version of the sampling algorithm (start, moves, convergence rule, thinning, completion).
+#: It is part of every cache key (:func:`inference.cache.cache_key`): raise it whenever a change
+#: to this module or the ones it calls gives different samples for the same data, model,
+#: settings and seed, so that older fits are refitted instead of silently reused.
+SAMPLER_VERSION = "1"
 
 
 def integrated_time(chain, c=5.0):

@@ -57,8 +57,8 @@ def test_failure_does_not_lose_others_and_cache_is_reused(tmp_path):
     again = fit_many(jobs[::2], executor=RefusingExecutor(), cache=cache)
     np.testing.assert_array_equal(again["alpha"].samples, out["alpha"].samples)
     # A change of seed is a new key.
-    key = cache_key(jobs[0].data.digest, jobs[0].model, SETTINGS, 0)
-    assert key != cache_key(jobs[0].data.digest, jobs[0].model, SETTINGS, 1)
+    key = cache_key(jobs[0].data.digest, jobs[0].model, SETTINGS, 0, target="alpha")
+    assert key != cache_key(jobs[0].data.digest, jobs[0].model, SETTINGS, 1, target="alpha")
     assert cache.path(key).exists()
 
 

@@ -79,7 +79,7 @@ def test_save_load_round_trip(posterior, tmp_path):
     assert back.diagnostics == post.diagnostics and back.settings == post.settings
     with np.load(path, allow_pickle=False) as npz:
         meta = json.loads(str(npz["metadata"]))
-    assert meta["format"] == "nightbits-posterior" and meta["format_version"] == "1.0"
+    assert meta["format"] == "nightbits-posterior" and meta["format_version"] == "1.1"
 
 
 def test_bad_files_give_a_sentence(posterior, tmp_path):
