@@ -76,7 +76,7 @@ def demo_scenario_path() -> Path:
     try:
         return Path(str(resources.files("planner.demo").joinpath("demo.yaml")))
     except ModuleNotFoundError:  # running from a source checkout without installing
-        return Path(__file__).resolve().parents[1] / "scenarios" / "demo" / "demo.yaml"
+        return Path(__file__).resolve().parents[2] / "scenarios" / "demo" / "demo.yaml"
 
 
 def load(path: str | Path | None) -> Scenario:
