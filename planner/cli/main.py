@@ -23,6 +23,7 @@ from planner.cli.support import (
     EXIT_INTERNAL,
     EXIT_OK,
     EXIT_USER,
+    SCENARIO_HELP,
     add_common_options,
     fit_with_progress,
     open_session,
@@ -32,11 +33,8 @@ __all__ = ["COMMANDS", "build_parser", "main"]
 
 log = logging.getLogger(__name__)
 
-_SCENARIO_HELP = "scenario YAML file (default: the bundled invented demo run)"
-
-
 def _command(sub, name: str, summary: str, description: str, func,
-             scenario_help: str = _SCENARIO_HELP):
+             scenario_help: str = SCENARIO_HELP):
     """Register one subcommand with the options every command shares."""
     p = sub.add_parser(name, help=summary, description=description)
     add_common_options(p, scenario_help)

@@ -16,6 +16,7 @@ __all__ = [
     "EXIT_OK",
     "EXIT_USER",
     "ProgressBar",
+    "SCENARIO_HELP",
     "add_common_options",
     "fit_with_progress",
     "open_session",
@@ -50,9 +51,12 @@ class ProgressBar:
         self.stream.flush()
 
 
+#: Help text of the SCENARIO argument for commands whose default is the bundled demo.
+SCENARIO_HELP = "scenario YAML file (default: the bundled invented demo run)"
+
+
 def add_common_options(parser: argparse.ArgumentParser,
-                       scenario_help: str = "scenario YAML file (default: the bundled "
-                                            "invented demo run)") -> None:
+                       scenario_help: str = SCENARIO_HELP) -> None:
     """Add the options every command shares: SCENARIO, --cache, --no-cache, --jobs."""
     parser.add_argument("scenario", nargs="?", default=None, metavar="SCENARIO",
                         help=scenario_help)
