@@ -178,7 +178,8 @@ def population_monte_carlo(prep, settings, rng, seeds, span, frequencies=None):
     prep : Prepared
         The data and model arrays (:func:`inference.likelihood.prepare`).
     settings : SamplerSettings
-        Uses ``draws``, ``rounds``, ``max_draws``, ``min_ess``, ``defensive`` and ``dof``.
+        Uses ``draws``, ``rounds``, ``max_draws``, ``min_ess``, ``max_log_z_se``,
+        ``defensive`` and ``dof``.
     rng : numpy.random.Generator
     seeds : sequence of (float, ndarray, ndarray)
         Starting components: relative weight, mean and scale matrix of each.
@@ -203,6 +204,7 @@ def population_monte_carlo(prep, settings, rng, seeds, span, frequencies=None):
     n = settings.draws
     rounds = 0
     good = None
+    pool = []  # rounds since the mixture last changed its set of components
     while True:
         rounds += 1
         theta, _ = mixture_draw(mix, prep, rng, n)
@@ -211,10 +213,22 @@ def population_monte_carlo(prep, settings, rng, seeds, span, frequencies=None):
         w = _normalise(log_w)
         if not np.any(w > 0):
             break
-        ess, k_hat = effective_sample_size(log_w), pareto_k_hat(log_w)
+        k_round = pareto_k_hat(log_w)
+        if k_round <= K_HAT_LIMIT:
+            pool.append((theta, log_w))
+        else:
+            pool = []
+        # Trusted rounds of one mixture family are pooled: each round's weights p / q_r are
+        # unbiased for the same posterior, so together they are one larger importance sample.
+        if pool:
+            pooled = np.concatenate([lw for _, lw in pool])
+            ess, k_hat = effective_sample_size(pooled), pareto_k_hat(pooled)
+        else:
+            pooled, ess, k_hat = log_w, effective_sample_size(log_w), k_round
         if k_hat <= K_HAT_LIMIT and ess >= settings.min_ess:
-            good = (theta, log_w)
-            break
+            if _log_mean(pooled)[1] <= settings.max_log_z_se:
+                good = (np.concatenate([t for t, _ in pool]), pooled)
+                break
         left = settings.max_draws - n_eval
         if left < settings.draws or rounds >= settings.rounds:
             break
@@ -223,6 +237,8 @@ def population_monte_carlo(prep, settings, rng, seeds, span, frequencies=None):
         if rounds <= settings.rounds // 2:  # then only refits, so the rounds can grow
             n_born = _births(mix, prep, theta, w, parts, log_q, weights, means, covs, span)
             anchored += [False] * n_born
+        if n_born:
+            pool = []
         # The defensive share and its frequency histogram adapt too (its share never below
         # the setting): mass that only it explains is a continuum of small modes.
         own = w * np.exp(parts[:, 0] - log_q)
@@ -237,6 +253,8 @@ def population_monte_carlo(prep, settings, rng, seeds, span, frequencies=None):
             n = int(min(max(settings.draws, 1.3 * settings.min_ess * n / ess), left))
         else:
             n = settings.draws
+    if good is None and pool:
+        good = (np.concatenate([t for t, _ in pool]), np.concatenate([lw for _, lw in pool]))
     if good is None:
         good = (theta, log_w)
     theta, log_w = good

@@ -47,7 +47,7 @@ def _derivatives(prep, x, h, steps, pairs):
     return f0, grad, hess
 
 
-def refine_seeds(prep, means, covs, iterations=6, inflate=1.5):
+def refine_seeds(prep, means, covs, iterations=10, inflate=1.5):
     """Move seeds to nearby posterior maxima and give them Laplace scales.
 
     Parameters
@@ -74,23 +74,21 @@ def refine_seeds(prep, means, covs, iterations=6, inflate=1.5):
     h = 0.05 * np.sqrt(np.diagonal(covs, axis1=1, axis2=2))
     x = means.copy()
     best = log_joint(x, prep)
-    hess = np.zeros((s, d, d))
     for _ in range(iterations):
         f0, grad, hess = _derivatives(prep, x, h, steps, pairs)
         ok = np.isfinite(f0) & np.all(np.isfinite(grad), axis=1)
         ok &= np.all(np.isfinite(hess.reshape(s, -1)), axis=1)
         step = np.zeros((s, d))
         for i in np.flatnonzero(ok):
-            try:
-                np.linalg.cholesky(-hess[i])
-                step[i] = np.linalg.solve(-hess[i], grad[i])
-            except np.linalg.LinAlgError:
-                # Not concave here: a gradient step of about one starting scale.
-                sd = np.sqrt(np.diag(covs[i]))
-                g = grad[i] * sd
-                step[i] = sd * g / max(np.linalg.norm(g), 1e-300)
-        # Damped: keep the best of a full, half and quarter step, if it improves.
-        for frac in (1.0, 0.5, 0.25):
+            # Saddle-free Newton (Dauphin et al. 2014, NeurIPS): |eigenvalues| of -H, so a
+            # step always climbs, and the curvature sets the next difference steps.
+            lam, vec = np.linalg.eigh(-hess[i])
+            lam = np.maximum(np.abs(lam), 1e-12 * max(np.abs(lam).max(), 1e-300))
+            step[i] = vec @ ((vec.T @ grad[i]) / lam)
+            sd = np.sqrt(np.diag((vec / lam) @ vec.T))
+            h[i] = np.clip(0.1 * sd, 1e-9, h[i])
+        # Damped: keep the best of a full, half, quarter and tenth step, if it improves.
+        for frac in (1.0, 0.5, 0.25, 0.1):
             trial = x + frac * step
             f = log_joint(trial, prep)
             better = np.isfinite(f) & (f > best)

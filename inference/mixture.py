@@ -76,7 +76,7 @@ class FrequencyProposal:
         inside = (cells >= 0) & (cells < self.log_mass.size)
         hist = np.zeros(self.log_mass.size)
         np.add.at(hist, cells[inside], np.broadcast_to(v[:, None], cells.shape)[inside])
-        hist = np.convolve(hist, np.array([1.0, 2.0, 3.0, 2.0, 1.0]) / 9.0, mode="same")
+        hist = np.convolve(hist, np.array([1.0, 2.0, 3.0, 2.0, 1.0]) / 9.0)[2:-2]
         if hist.sum() <= 0:
             return self
         prior = self._prior_mass()

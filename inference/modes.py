@@ -1,11 +1,11 @@
 """The period modes of a weighted posterior sample: where each planet's period mass lies.
 
-Per planet, the mixture components whose periods differ by less than one frequency resolution
-element, 1 / span, form one mode (periods that close cannot be told apart by these data), and
-each draw belongs to the mode whose nearest component is within two resolution elements of its
-frequency; draws near no component belong to no mode (their mass is what the listed shares
-leave over). A mode's share is the sum of its draws'
-normalised importance weights, with the standard error of a self-normalised importance
+Per planet, the weighted draws' frequencies 1 / P are binned at a quarter of the frequency
+resolution 1 / span and smoothed over one resolution element. Each local maximum of that
+density is a mode, and every bin belongs to the maximum it climbs to (a watershed). Two
+neighbouring modes are one when the density between them never falls below half of the lower
+peak: periods that close cannot be told apart by these data. A mode's share is the sum of its
+draws' normalised importance weights, with the standard error of a self-normalised importance
 estimate, sqrt(sum w_i^2 (1_i - share)^2) (e.g. Owen 2013, *Monte Carlo theory, methods and
 examples*, eq. 9.8).
 """
@@ -53,19 +53,36 @@ def _weighted_percentiles(x, w, q):
     return [float(x[order][min(np.searchsorted(cw, p / 100.0), x.size - 1)]) for p in q]
 
 
-def _groups(freqs, span):
-    """Indices of components grouped by frequency: neighbours closer than 1 / span merge."""
-    order = np.argsort(freqs)
-    groups = [[order[0]]]
-    for a, b in zip(order[:-1], order[1:], strict=True):
-        if freqs[b] - freqs[a] < 1.0 / span:
-            groups[-1].append(b)
-        else:
-            groups.append([b])
-    return groups
+def _watershed(freq, weights, span):
+    """Mode label of each draw from the smoothed weighted histogram of its frequency."""
+    width = 0.25 / span
+    lo = freq.min()
+    bins = np.floor((freq - lo) / width).astype(np.int64)
+    hist = np.bincount(bins, weights=weights)
+    kernel = np.array([1.0, 2.0, 3.0, 2.0, 1.0])
+    dens = np.convolve(hist, kernel / kernel.sum())[2:-2]
+    n = dens.size
+    # Climb: each bin points to its higher neighbour until a local maximum.
+    left = np.concatenate([[-1.0], dens[:-1]])
+    right = np.concatenate([dens[1:], [-1.0]])
+    up = np.where(right > np.maximum(left, dens), 1, np.where(left > dens, -1, 0))
+    top = np.arange(n)
+    for _ in range(n):
+        nxt = top + up[top]
+        if np.array_equal(nxt, top):
+            break
+        top = nxt
+    peaks = np.unique(top)
+    # Merge neighbouring peaks whose valley stays above half the lower peak.
+    label = {int(p): i for i, p in enumerate(peaks)}
+    for a, b in zip(peaks[:-1], peaks[1:], strict=True):
+        valley = dens[a : b + 1].min()
+        if valley >= 0.5 * min(dens[a], dens[b]):
+            label[int(b)] = label[int(a)]
+    return np.array([label[int(t)] for t in top])[bins]
 
 
-def period_modes(theta, weights, mixture, prep, span, min_share=0.01):
+def period_modes(theta, weights, prep, span, min_share=0.01):
     """Period modes of every planet, largest first, each holding at least `min_share`.
 
     Parameters
@@ -74,8 +91,6 @@ def period_modes(theta, weights, mixture, prep, span, min_share=0.01):
         Weighted draws in the sampled coordinates.
     weights : ndarray, shape (n,)
         Their normalised importance weights.
-    mixture : Mixture
-        The proposal the draws came from.
     prep : Prepared
         Used for the number of planets.
     span : float
@@ -92,24 +107,12 @@ def period_modes(theta, weights, mixture, prep, span, min_share=0.01):
     theta, weights = theta[keep], weights[keep]
     if npl == 0 or theta.shape[0] == 0:
         return ()
-    means = mixture.means if mixture.n_components else theta[np.argmax(weights)][None, :]
     out = []
     for k in range(npl):
-        comp_freq = np.exp(-means[:, 3 * k])
-        groups = _groups(comp_freq, span)
         freq = np.exp(-theta[:, 3 * k])
-        order = np.argsort(comp_freq)
-        label = np.empty(comp_freq.size, dtype=int)
-        for g, members in enumerate(groups):
-            label[members] = g
-        # Nearest component in frequency, then its group, if within 2 / span.
-        pos = np.clip(np.searchsorted(comp_freq[order], freq), 1, max(order.size - 1, 1))
-        left, right = order[pos - 1], order[np.minimum(pos, order.size - 1)]
-        near = np.where(np.abs(freq - comp_freq[left]) <= np.abs(freq - comp_freq[right]),
-                        left, right)
-        mode_of = np.where(np.abs(freq - comp_freq[near]) <= 2.0 / span, label[near], -1)
+        mode_of = _watershed(freq, weights, span)
         period = 1.0 / freq
-        for g in range(len(groups)):
+        for g in np.unique(mode_of):
             inside = mode_of == g
             share = float(weights[inside].sum())
             if share < min_share:

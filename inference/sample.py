@@ -170,7 +170,7 @@ def fit(data, model, settings=None, rng=None, target=""):
             f"target {target!r}: no importance draw has a finite posterior density; check the "
             "velocities and the period range."
         )
-    modes = period_modes(imp.theta, imp.normalised_weights(), imp.mixture, prep, span)
+    modes = period_modes(imp.theta, imp.normalised_weights(), prep, span)
     flat, acceptance, n_move = _resample_move(imp, prep, settings, gen)
     message = ""
     if imp.k_hat > K_HAT_LIMIT or imp.ess < settings.min_ess:
@@ -179,6 +179,12 @@ def fit(data, model, settings=None, rng=None, target=""):
             f"{K_HAT_LIMIT}; effective samples {imp.ess:.0f} of {settings.min_ess} wanted "
             f"from {imp.theta.shape[0]} draws)"
         )
+    elif imp.log_z_se > settings.max_log_z_se:
+        message = (
+            f"the evidence is imprecise (ln Z standard error {imp.log_z_se:.3f}, wanted "
+            f"{settings.max_log_z_se:g}, from {imp.theta.shape[0]} draws)"
+        )
+    if message:
         logger.warning(
             "target %r: %s; raise max_draws (now %d; the scenario key sampler.max_draws) or "
             "check the model.", target, message, settings.max_draws,

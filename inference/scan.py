@@ -35,7 +35,11 @@ def _shape_table(e):
     return np.stack([(cos_e - e) * inv + e, -np.sqrt(1.0 - e * e) * sin_e * inv])
 
 
-def keplerian_scores(t, w, resid, fixed, fixed_prec, amp_prec, freqs, top=3):
+#: The finer grid of the zoom on each candidate period (:func:`inference.start.find_modes`).
+ZOOM_GRID = tuple((e, 48) for e in (0.05, 0.15, 0.25, 0.35, 0.45, 0.55, 0.65, 0.75, 0.85, 0.93))
+
+
+def keplerian_scores(t, w, resid, fixed, fixed_prec, amp_prec, freqs, top=3, grid=ECC_GRID):
     """Keplerian marginal likelihood of each frequency, and the best grid point of each.
 
     Parameters
@@ -55,6 +59,8 @@ def keplerian_scores(t, w, resid, fixed, fixed_prec, amp_prec, freqs, top=3):
         Trial frequencies [1/d].
     top : int, optional
         Grid points returned per frequency, best first.
+    grid : tuple of (float, int), optional
+        Eccentricities and the number of phases at each.
 
     Returns
     -------
@@ -62,6 +68,8 @@ def keplerian_scores(t, w, resid, fixed, fixed_prec, amp_prec, freqs, top=3):
         ln of the mean, over the (e, M0) grid, of the marginal likelihood.
     best : ndarray, shape (n_freq, top, 2)
         Eccentricity and mean anomaly at ``t = 0`` of the best `top` grid points.
+    best_ll : ndarray, shape (n_freq, top)
+        Their marginal likelihoods [ln units].
     """
     n = t.size
     cov = np.diag(1.0 / w) + (fixed / fixed_prec) @ fixed.T
@@ -71,10 +79,11 @@ def keplerian_scores(t, w, resid, fixed, fixed_prec, amp_prec, freqs, top=3):
     yy = float(y @ y)
     log_det = 2.0 * float(np.sum(np.log(np.diag(chol))))
     const = -0.5 * (yy + log_det - 2.0 * np.log(amp_prec) + n * np.log(2.0 * np.pi))
-    tables = [(e, n_phase, _shape_table(e)) for e, n_phase in ECC_GRID]
-    n_grid = sum(n_phase for _, n_phase in ECC_GRID)
+    tables = [(e, n_phase, _shape_table(e)) for e, n_phase in grid]
+    n_grid = sum(n_phase for _, n_phase in grid)
     score = np.empty(freqs.size)
     best = np.empty((freqs.size, top, 2))
+    best_ll = np.empty((freqs.size, top))
     for lo in range(0, freqs.size, _CHUNK):
         f = freqs[lo : lo + _CHUNK]
         arg = f[:, None] * t  # turns
@@ -99,4 +108,5 @@ def keplerian_scores(t, w, resid, fixed, fixed_prec, amp_prec, freqs, top=3):
         score[lo : lo + f.size] = peak + np.log(np.exp(ll - peak[:, None]).sum(axis=1) / n_grid)
         order = np.argsort(ll, axis=1)[:, ::-1][:, :top]
         best[lo : lo + f.size] = np.concatenate(where)[order]
-    return score, best
+        best_ll[lo : lo + f.size] = np.take_along_axis(ll, order, axis=1)
+    return score, best, best_ll

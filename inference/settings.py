@@ -19,6 +19,8 @@ class SamplerSettings:
         Number of equal-weight output samples.
     min_ess : int
         Effective sample size the final importance draws must reach.
+    max_log_z_se : float
+        Largest standard error of ln Z accepted.
     draws : int
         Importance draws per adaptation round (a round that only lacks effective samples
         draws more, enough to reach ``min_ess``).
@@ -26,7 +28,8 @@ class SamplerSettings:
         Largest number of rounds.
     max_draws : int
         Largest number of importance draws in all (rounds stop at the first whose weights
-        meet the targets: Pareto k-hat at most 0.7 and ``min_ess`` effective samples).
+        meet the targets: Pareto k-hat at most 0.7, ``min_ess`` effective samples and a
+        standard error of ln Z of at most ``max_log_z_se``).
     defensive : float
         Share of the prior in the importance mixture, in (0, 1).
     dof : float
@@ -50,6 +53,7 @@ class SamplerSettings:
 
     n_samples: int = 2000
     min_ess: int = 500
+    max_log_z_se: float = 0.02
     draws: int = 4000
     rounds: int = 20
     max_draws: int = 100000
@@ -81,7 +85,7 @@ class SamplerSettings:
             )
         if not 0.0 < self.defensive < 1.0:
             raise ModelError(f"sampler setting defensive = {self.defensive!r} must be in (0, 1).")
-        for name in ("dof", "grid_oversample", "mode_window"):
+        for name in ("dof", "grid_oversample", "mode_window", "max_log_z_se"):
             if not getattr(self, name) > 0:
                 raise ModelError(f"sampler setting {name} must be positive.")
 

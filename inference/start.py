@@ -16,12 +16,14 @@
 
 from dataclasses import dataclass
 
+import itertools
+
 import numpy as np
 
 from .laplace import refine_seeds
 from .likelihood import log_marginal_design
 from .mixture import FrequencyProposal
-from .scan import keplerian_scores
+from .scan import ZOOM_GRID, keplerian_scores
 
 __all__ = ["StartResult", "find_modes"]
 
@@ -31,6 +33,8 @@ _CHUNK = 2048
 # the plain prior.
 _TEMPER = 0.5
 _FLOOR = 0.2
+_MAX_SEED_MODES = 24  # candidate modes seeded (best first); the defensive share covers the rest
+_ZOOM_POINTS = 2  # eccentric seeds per candidate, from the zoom's best points
 
 
 @dataclass(frozen=True)
@@ -154,10 +158,14 @@ def _periodogram_peaks(prep, settings, base, k, freqs):
             n_eval += freqs.size
     cols, prec = _others(prep, base, k)
     w = 1.0 / (prep.var + np.exp(2.0 * levels[1])[prep.inst])
-    ll, best = keplerian_scores(prep.t, w, prep.resid, cols, prec, prep.prior_prec[0], freqs)
+    # Every other grid frequency (a peak spans several), interpolated back to the grid.
+    half = freqs[::2]
+    ll, best, _ = keplerian_scores(prep.t, w, prep.resid, cols, prec, prep.prior_prec[0], half)
+    nearest = np.minimum(np.rint(np.arange(freqs.size) / 2).astype(int), half.size - 1)
+    ll, best = np.interp(freqs, half, ll), best[nearest]
     score = np.maximum(score, ll - ll.max())
     order.insert(0, _top_peaks(ll, settings))
-    n_eval += freqs.size * 52
+    n_eval += half.size * 52
     # Interleave by rank so the best of every periodogram comes first.
     merged = []
     for rank in range(settings.max_modes):
@@ -167,11 +175,36 @@ def _periodogram_peaks(prep, settings, base, k, freqs):
     return np.array(merged[: settings.max_candidates]), score, best, n_eval
 
 
+def _zoom(prep, base, k, freq, step, level, top=4):
+    """The best (frequency, e, M0) points near one candidate of planet k, on a finer grid.
+
+    Five frequencies across the candidate's grid cell and its neighbours, ten eccentricities
+    and 48 phases each: eccentric modes are narrow in (e, M0), and the coarse scan only says
+    roughly where. Returns up to `top` points, best first, no two at one grid point.
+    """
+    cols, prec = _others(prep, base, k)
+    w = 1.0 / (prep.var + np.exp(2.0 * level)[prep.inst])
+    freqs = freq + step * np.array([-1.0, -0.5, 0.0, 0.5, 1.0])
+    freqs = freqs[(freqs >= np.exp(-prep.log_p[1])) & (freqs <= np.exp(-prep.log_p[0]))]
+    _, best, best_ll = keplerian_scores(prep.t, w, prep.resid, cols, prec, prep.prior_prec[0],
+                                        freqs, top=top, grid=ZOOM_GRID)
+    flat = [(float(best_ll[i, j]), float(freqs[i]), float(best[i, j, 0]), float(best[i, j, 1]))
+            for i in range(freqs.size) for j in range(best.shape[1])]
+    out = []
+    for _, f, e, m0 in sorted(flat, reverse=True):
+        if all(abs(e - e2) > 0.06 or abs(np.angle(np.exp(1j * (m0 - m2)))) > 0.2
+               for _, e2, m2 in out):
+            out.append((f, e, m0))
+        if len(out) >= top:
+            break
+    return out
+
+
 def _seed_components(prep, mode, level, span):
     """Starting components of a candidate mode: circular, and the scan's best eccentric ones.
 
-    `mode` holds, per planet, (frequency [1/d], grid points) of the candidate, the grid
-    points being the Keplerian scan's best (e, M0) there, best first.
+    `mode` holds, per planet, (frequency [1/d], points) of the candidate, the points being
+    the zoom's best (frequency, e, M0) there, best first.
     """
     npl = prep.n_planets
     out = []
@@ -183,7 +216,8 @@ def _seed_components(prep, mode, level, span):
             mean[3 * k] = -np.log(freq)
             sd[3 * k] = min(0.3 / (freq * span), 0.3)  # a third of a peak width, in ln P
             if g >= 0:
-                e, m0 = points[g]
+                f, e, m0 = points[g]
+                mean[3 * k] = -np.log(f)
                 mean[3 * k + 1 : 3 * k + 3] = np.sqrt(e) * np.cos(m0), np.sqrt(e) * np.sin(m0)
             sd[3 * k + 1] = sd[3 * k + 2] = 0.12 if g >= 0 else 0.25
         out.append((mean, np.diag(sd * sd)))
@@ -215,30 +249,46 @@ def find_modes(prep, settings, rng=None):
     freqs = _frequency_grid(prep, settings)
     n_eval = 0
     score = np.full(freqs.size, -np.inf)
-    candidates, best_modes = [], []
-    for k in range(npl):
-        peaks, score_k, ecc_k, n = _periodogram_peaks(prep, settings, base, k, freqs)
-        score = np.maximum(score, score_k)
-        n_eval += n
-        base[3 * k] = -np.log(freqs[peaks[0]])
-        cands = [(float(freqs[p]), tuple(map(tuple, ecc_k[p])), float(score_k[p])) for p in peaks]
-        best_modes.append(cands[0])
-        candidates.append(cands)
+    level = _jitter_levels(prep)[1]
+    step = float(freqs[1] - freqs[0]) if freqs.size > 1 else float(freqs[0])
+    candidates = [{} for _ in range(npl)]
+    best_modes = [None] * npl
+    # With several planets a second pass rescans each one given the others' best periods
+    # (backfitting), so a planet first scanned beside an unmodelled signal is found again.
+    for _ in range(1 if npl == 1 else 2):
+        for k in range(npl):
+            peaks, score_k, ecc_k, n = _periodogram_peaks(prep, settings, base, k, freqs)
+            score = np.maximum(score, score_k)
+            n_eval += n
+            base[3 * k] = -np.log(freqs[peaks[0]])
+            for p in peaks:
+                if int(p) not in candidates[k]:
+                    points = _zoom(prep, base, k, float(freqs[p]), step, level, _ZOOM_POINTS)
+                    candidates[k][int(p)] = (float(freqs[p]), tuple(points), float(score_k[p]))
+            best_modes[k] = candidates[k][int(peaks[0])]
+    candidates = [list(c.values()) for c in candidates]
     modes = [tuple(best_modes)]
     for k, cands in enumerate(candidates):
-        for cand in cands[1:]:
+        for cand in cands:
             mode = list(best_modes)
             mode[k] = cand
             modes.append(tuple(mode))
+    if npl > 1:
+        # Every combination of each planet's three best candidates, too.
+        tops = [sorted(c, key=lambda x: -x[2])[:3] for c in candidates]
+        modes += [tuple(m) for m in itertools.product(*tops)]
     # Order the planets of each mode by period (the prior requires P_1 < P_2 < ...).
     modes = list(dict.fromkeys(tuple(sorted(m, key=lambda c: -c[0])) for m in modes))
-    level = _jitter_levels(prep)[1]
     seeds, periods = [], []
+    ranked = []
     for mode in modes:
         if len({round(c[0], 12) for c in mode}) < len(mode):
             continue  # two planets at one frequency: not a mode of the ordered prior
-        # Weight: the best planet's relative score times its period (wider cells in ln P).
+        # Weight: the worst planet's relative score times the periods (wider cells in ln P).
         weight = float(np.exp(min(c[2] for c in mode)) * np.prod([1.0 / c[0] for c in mode]))
+        ranked.append((weight, mode))
+    ranked.sort(key=lambda x: -x[0])
+    for weight, mode in ranked[:_MAX_SEED_MODES]:
         for mean, cov in _seed_components(prep, [c[:2] for c in mode], level, span):
             seeds.append((weight, mean, cov))
         periods.append(tuple(1.0 / c[0] for c in mode))

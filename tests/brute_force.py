@@ -16,10 +16,14 @@ import numpy as np
 
 def _eccentric_anomaly(m, e):
     """Newton's method on E - e sin E = M from E = M + e sin M (converges for e < 1)."""
-    big_e = m + e * np.sin(m)
-    for _ in range(60):
+    m = np.remainder(m, 2.0 * np.pi)
+    big_e = m + e * np.sin(m) + 0.5 * e * e * np.sin(2.0 * m)
+    big_e = np.where(e > 0.8, np.pi, big_e)  # a safe start for very eccentric orbits
+    for _ in range(50):
         f = big_e - e * np.sin(big_e) - m
         big_e = big_e - f / (1.0 - e * np.cos(big_e))
+        if np.max(np.abs(f)) < 1e-12:
+            break
     return big_e
 
 

@@ -23,7 +23,7 @@ def posterior():
     rv = rv + 0.05 * (t - 2460145.0) + rng.normal(0.0, 1.0, 24)
     data = RVData.from_arrays(t, rv, np.full(24, 1.0), inst, source="invented two-instrument")
     model = ModelSpec.for_data(data, trend=True, period_range=(2.0, 50.0))
-    settings = SamplerSettings(n_walkers=32, n_samples=300, start_draws=256)
+    settings = SamplerSettings(n_samples=300, draws=2000, min_ess=300)
     return fit(data, model, settings, rng=8, target="invented-star"), data
 
 
