@@ -17,7 +17,7 @@ __all__ = ["refine_seeds"]
 
 
 def _offsets(d):
-    """Unit steps for a central-difference gradient and Hessian in d dimensions."""
+    """Return the unit steps of a central-difference gradient and Hessian in d dimensions."""
     eye = np.eye(d)
     steps = [np.zeros(d)]
     steps += [s * eye[i] for i in range(d) for s in (1.0, -1.0)]

@@ -111,7 +111,7 @@ class FrequencyProposal:
         return -np.log(f)
 
     def log_density(self, log_p):
-        """ln density in ln P at each entry of `log_p` (``-inf`` outside the range)."""
+        """Ln density in ln P at each entry of `log_p` (``-inf`` outside the range)."""
         f = np.exp(-log_p)
         cell = np.searchsorted(self.edges, f, side="right") - 1
         inside = (cell >= 0) & (cell < self.log_mass.size)
@@ -268,7 +268,7 @@ def mixture_log_density(mix, prep, theta, chunk=8192):
 
 
 def mixture_draw(mix, prep, rng, n):
-    """Draw n vectors from the mixture; returns them and the index of their component (0 = prior)."""
+    """Draw n vectors from the mixture; return them and their component (0 = defensive)."""
     shares = np.concatenate([[mix.defensive], mix.weights])
     which = rng.choice(shares.size, size=n, p=shares / shares.sum())
     d = mix.means.shape[1] if mix.n_components else prep.jit_knee.size + 3 * prep.n_planets

@@ -14,7 +14,6 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-
 __all__ = ["PeriodMode", "period_modes"]
 
 

@@ -45,7 +45,7 @@ SAMPLER_VERSION = "2"
 
 
 def _systematic(weights, n, rng):
-    """Indices of n systematic-resampling picks (Kitagawa 1996) from normalised weights."""
+    """Return n systematic-resampling picks (Kitagawa 1996) from normalised weights."""
     edges = np.cumsum(weights)
     edges[-1] = 1.0
     return np.searchsorted(edges, (rng.uniform() + np.arange(n)) / n)

@@ -14,9 +14,8 @@
    of the mixture's defensive share, so that its draws reach every period the data allow.
 """
 
-from dataclasses import dataclass
-
 import itertools
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -176,7 +175,7 @@ def _periodogram_peaks(prep, settings, base, k, freqs):
 
 
 def _zoom(prep, base, k, freq, step, level, top=4):
-    """The best (frequency, e, M0) points near one candidate of planet k, on a finer grid.
+    """Return the best (frequency, e, M0) points near a candidate of planet k, finer gridded.
 
     Five frequencies across the candidate's grid cell and its neighbours, ten eccentricities
     and 48 phases each: eccentric modes are narrow in (e, M0), and the coarse scan only says
@@ -201,7 +200,7 @@ def _zoom(prep, base, k, freq, step, level, top=4):
 
 
 def _seed_components(prep, mode, level, span):
-    """Starting components of a candidate mode: circular, and the scan's best eccentric ones.
+    """Return the starting components of a candidate mode: circular and the zoom's best.
 
     `mode` holds, per planet, (frequency [1/d], points) of the candidate, the points being
     the zoom's best (frequency, e, M0) there, best first.
