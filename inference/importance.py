@@ -26,6 +26,8 @@ _BIRTHS_PER_ROUND = 5
 _BIRTH_MASS = 5e-4  # a prior-share draw carrying this much of the weight starts a component
 _DEATH_MASS = 1e-5  # components with less mass are dropped (unless anchored)
 _ANCHOR_SHARE = 0.05  # least share of the draws kept on the scan's candidate components
+_IDLE_MASS = 1e-4  # an anchor carrying less than this ...
+_IDLE_ROUNDS = 3  # ... in this many rounds running is released
 
 
 @dataclass(frozen=True, eq=False)
@@ -85,43 +87,45 @@ def _weigh(mix, prep, theta):
     return log_w, log_q, parts, maha
 
 
-def _refit(mix, anchored, theta, w, log_q, parts, maha):
+def _refit(mix, anchored, idle, theta, w, log_q, parts, maha):
     """One Rao-Blackwellised PMC update of the Student-t components (Cappe et al. 2008).
 
-    Anchored components (the scan's candidates) are never dropped and keep at least the
-    share ``_ANCHOR_SHARE / n_anchored``, so no candidate mode can vanish between rounds
-    unseen: if it holds mass, its draws come out heavy and the next update raises it.
-    Returns the new weights, means, scales and anchor flags.
+    Anchored components (the scan's candidates) are not dropped and keep at least the share
+    ``_ANCHOR_SHARE / n_anchored``, so no candidate mode can vanish between rounds unseen: if
+    it holds mass, its draws come out heavy and the next update raises it. An anchor whose
+    draws carried under ``_IDLE_MASS`` in ``_IDLE_ROUNDS`` rounds running is released.
+    Returns the new weights, means, scales, anchor flags and idle counts.
     """
     d = theta.shape[1]
     resp = np.exp(parts[:, 1:] - log_q[:, None])  # a_c t_c / q, rows with q > 0
     resp[~np.isfinite(resp)] = 0.0
-    weights, means, covs, flags = [], [], [], []
+    v_all = w[:, None] * resp
+    masses = v_all.sum(axis=0)
+    weights, means, covs, flags, idles = [], [], [], [], []
     floor = _ANCHOR_SHARE / max(sum(anchored), 1)
     for c in range(mix.n_components):
-        v = w * resp[:, c]
-        mass = v.sum()
-        if anchored[c]:
-            mass = max(mass, floor)
-        elif mass < _DEATH_MASS:
+        mass = float(masses[c])
+        count = idle[c] + 1 if mass < _IDLE_MASS else 0
+        anchor = anchored[c] and count < _IDLE_ROUNDS
+        if not anchor and mass < _DEATH_MASS:
             continue
-        flags.append(anchored[c])
-        n_eff = mass**2 / max(np.sum(v * v), 1e-300)
-        old_cov = mix.chols[c] @ mix.chols[c].T
+        flags.append(anchor)
+        idles.append(count)
+        weights.append(max(mass, floor) if anchor else mass)
+        rows = np.flatnonzero(v_all[:, c] > 1e-12 * max(mass, 1e-300))
+        v = v_all[rows, c]
+        n_eff = mass**2 / max(float(np.sum(v * v)), 1e-300)
         if n_eff < 2 * d + 2:
-            weights.append(mass)  # too few effective draws to refit the shape: keep it
-            means.append(mix.means[c])
-            covs.append(old_cov)
+            means.append(mix.means[c])  # too few effective draws to refit the shape: keep it
+            covs.append(mix.chols[c] @ mix.chols[c].T)
             continue
-        u = (mix.dof + d) / (mix.dof + maha[:, c])  # E-step of the Student-t scale mixture
+        u = (mix.dof + d) / (mix.dof + maha[rows, c])  # E-step of the Student-t scale mixture
         vu = v * u
-        mean = vu @ theta / vu.sum()
-        diff = theta - mean
-        cov = (diff * vu[:, None]).T @ diff / mass
-        weights.append(mass)
+        mean = vu @ theta[rows] / vu.sum()
+        diff = theta[rows] - mean
         means.append(mean)
-        covs.append(cov)
-    return weights, means, covs, flags
+        covs.append((diff * vu[:, None]).T @ diff / mass)
+    return weights, means, covs, flags, idles
 
 
 def _births(mix, prep, theta, w, parts, log_q, weights, means, covs, span):
@@ -200,6 +204,7 @@ def population_monte_carlo(prep, settings, rng, seeds, span, frequencies=None):
         anchored = []
         d = 3 * prep.n_planets + prep.jit_knee.size
         mix = Mixture(1.0 - 1e-12, np.zeros(0), np.zeros((0, d)), np.zeros((0, d, d)), 4.0)
+    idle = [0] * len(anchored)
     n_eval = 0
     n = settings.draws
     rounds = 0
@@ -232,11 +237,13 @@ def population_monte_carlo(prep, settings, rng, seeds, span, frequencies=None):
         left = settings.max_draws - n_eval
         if left < settings.draws or rounds >= settings.rounds:
             break
-        weights, means, covs, anchored = _refit(mix, anchored, theta, w, log_q, parts, maha)
+        weights, means, covs, anchored, idle = _refit(mix, anchored, idle, theta, w, log_q,
+                                                      parts, maha)
         n_born = 0
         if rounds <= settings.rounds // 2:  # then only refits, so the rounds can grow
             n_born = _births(mix, prep, theta, w, parts, log_q, weights, means, covs, span)
             anchored += [False] * n_born
+            idle += [0] * n_born
         if n_born:
             pool = []
         # The defensive share and its frequency histogram adapt too (its share never below

@@ -53,7 +53,7 @@ class SamplerSettings:
 
     n_samples: int = 2000
     min_ess: int = 500
-    max_log_z_se: float = 0.02
+    max_log_z_se: float = 0.05
     draws: int = 4000
     rounds: int = 20
     max_draws: int = 100000

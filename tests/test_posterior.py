@@ -79,7 +79,7 @@ def test_save_load_round_trip(posterior, tmp_path):
     assert back.diagnostics == post.diagnostics and back.settings == post.settings
     with np.load(path, allow_pickle=False) as npz:
         meta = json.loads(str(npz["metadata"]))
-    assert meta["format"] == "nightbits-posterior" and meta["format_version"] == "1.1"
+    assert meta["format"] == "nightbits-posterior" and meta["format_version"] == "2.0"
 
 
 def test_bad_files_give_a_sentence(posterior, tmp_path):
@@ -91,12 +91,14 @@ def test_bad_files_give_a_sentence(posterior, tmp_path):
     with pytest.raises(InferenceError, match="not a readable posterior file"):
         Posterior.load(junk)
     other = tmp_path / "other.npz"
-    meta = post.metadata() | {"format_version": "2.0"}
-    np.savez(
-        other,
-        samples=post.samples,
-        log_likelihood=post.log_likelihood,
-        metadata=np.array(json.dumps(meta)),
-    )
-    with pytest.raises(InferenceError, match="version '2.0'"):
-        Posterior.load(other)
+    # 1.1: the earlier sampler's diagnostics; 3.0: a future format.
+    for version, match in (("1.1", "version '1.1'.*refit"), ("3.0", "version '3.0'")):
+        meta = post.metadata() | {"format_version": version}
+        np.savez(
+            other,
+            samples=post.samples,
+            log_likelihood=post.log_likelihood,
+            metadata=np.array(json.dumps(meta)),
+        )
+        with pytest.raises(InferenceError, match=match):
+            Posterior.load(other)
