@@ -11,54 +11,65 @@ class Diagnostics:
 
     Attributes
     ----------
-    converged : bool
-        True when the chain passed the autocorrelation checks within ``max_steps``.
-    n_steps : int
-        Ensemble steps run.
-    burn_in : int
-        Steps discarded.
-    thin : int
-        Thinning interval of the kept chain.
-    tau : tuple of float
-        Integrated autocorrelation time of each sampled parameter [steps].
+    ok : bool
+        True when the importance weights met their targets: Pareto k-hat at most 0.7 and an
+        effective sample size of at least ``min_ess``.
     ess : float
-        Effective sample size of the kept chain (walkers x kept steps / max tau).
-    acceptance : float
-        Mean acceptance fraction.
+        Kish effective sample size of the final importance draws.
+    n_draws : int
+        Final importance draws.
+    k_hat : float
+        Pareto k-hat of their weights (:func:`inference.psis.pareto_k_hat`).
+    log_evidence : float
+        ln Z, the evidence of the model (prior-weighted mean likelihood) [ln units].
+    log_evidence_se : float
+        Monte Carlo standard error of `log_evidence`.
+    modes : tuple of dict
+        Period modes holding at least 1% (:class:`inference.modes.PeriodMode` as dicts).
+    rounds : int
+        Adaptation rounds of the importance mixture.
+    n_components : int
+        Student-t components of the final mixture.
+    move_acceptance : float
+        Mean acceptance of the resample-move sweeps.
+    unique_fraction : float
+        Share of distinct output samples after the moves.
     n_evaluations : int
-        Likelihood evaluations, start included.
+        Likelihood evaluations, period scan included.
     start_modes : tuple of tuple of float
-        Periods [d] of the modes the start found.
-    start_weights : tuple of float
-        Their estimated probabilities.
+        Periods [d] of the candidate modes the period scan found.
     seconds : float
         Wall time of the fit [s].
     message : str
-        Empty when converged, else why not.
+        Empty when `ok`, else what fell short and which setting to change.
     """
 
-    converged: bool
-    n_steps: int
-    burn_in: int
-    thin: int
-    tau: tuple
+    ok: bool
     ess: float
-    acceptance: float
+    n_draws: int
+    k_hat: float
+    log_evidence: float
+    log_evidence_se: float
+    modes: tuple
+    rounds: int
+    n_components: int
+    move_acceptance: float
+    unique_fraction: float
     n_evaluations: int
     start_modes: tuple
-    start_weights: tuple
     seconds: float
     message: str = ""
 
     def to_dict(self):
         """Return the diagnostics as a JSON-ready dict."""
-        return asdict(self)
+        d = asdict(self)
+        d["modes"] = [dict(m) for m in self.modes]
+        return d
 
     @classmethod
     def from_dict(cls, d):
         """Rebuild diagnostics written by :meth:`to_dict`."""
         d = dict(d)
-        d["tau"] = tuple(d["tau"])
+        d["modes"] = tuple(dict(m) for m in d["modes"])
         d["start_modes"] = tuple(tuple(m) for m in d["start_modes"])
-        d["start_weights"] = tuple(d["start_weights"])
         return cls(**d)

@@ -18,6 +18,7 @@ __all__ = [
     "LinearConditional",
     "Prepared",
     "linear_conditional",
+    "log_joint",
     "log_marginal",
     "log_marginal_design",
     "log_prior",
@@ -278,6 +279,32 @@ def log_marginal(theta, prep):
     theta = np.atleast_2d(theta)
     w, chol, z = _solve(theta, prep)
     return _assemble(w, chol, z, prep.resid, prep.prior_prec)
+
+
+def log_joint(theta, prep, chunk=2048):
+    """Log prior plus log marginal likelihood, ``-inf`` outside the prior support.
+
+    Parameters
+    ----------
+    theta : ndarray, shape (n_batch, n_sampled)
+        Sampled vectors, inside the support or not.
+    prep : Prepared
+    chunk : int, optional
+        Rows evaluated at once (bounds the memory of the design matrices).
+
+    Returns
+    -------
+    ndarray, shape (n_batch,)
+        ln p(theta) + ln p(y | theta): the unnormalised log posterior, whose integral over
+        theta is the evidence Z.
+    """
+    theta = np.atleast_2d(theta)
+    out = log_prior(theta, prep)
+    ok = np.flatnonzero(np.isfinite(out))
+    for lo in range(0, ok.size, chunk):
+        rows = ok[lo : lo + chunk]
+        out[rows] += log_marginal(theta[rows], prep)
+    return out
 
 
 @dataclass(frozen=True)

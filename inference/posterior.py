@@ -26,8 +26,9 @@ from .model import ModelSpec
 __all__ = ["FORMAT_VERSION", "Posterior", "predict_matrix"]
 
 #: Version of the on-disk format; readers refuse files with another major version.
-#: 1.1 adds the optional ``cache_key`` entry of the metadata.
-FORMAT_VERSION = "1.1"
+#: 1.1 added the optional ``cache_key`` entry of the metadata; 2.0 has the diagnostics of the
+#: importance sampler (sampler version 2).
+FORMAT_VERSION = "2.0"
 
 #: What reading a damaged (truncated, bit-flipped) ``.npz`` can raise besides OSError.
 _DAMAGED = (
@@ -243,7 +244,8 @@ class Posterior:
                 "delete it and refit."
             )
         version = str(meta.get("format_version", ""))
-        if meta.get("format") != "nightbits-posterior" or version.split(".")[0] != "1":
+        major = FORMAT_VERSION.split(".")[0]
+        if meta.get("format") != "nightbits-posterior" or version.split(".")[0] != major:
             raise InferenceError(
                 f"{path} has format {meta.get('format')!r} version {version!r}, not "
                 f"nightbits-posterior {FORMAT_VERSION}: refit the target to rewrite it."

@@ -1,10 +1,17 @@
-"""Posterior sampling of one star's orbit: multimodal start, emcee, complete samples.
+"""Posterior sampling of one star's orbit: period scan, adaptive importance sampling, moves.
 
-The ensemble sampler (Foreman-Mackey et al. 2013) moves the nonlinear parameters with a mix of
-differential-evolution moves (ter Braak 2006; ter Braak & Vrugt 2008) and the affine-invariant
-stretch move (Goodman & Weare 2010). After convergence the chain is thinned to about
-``n_samples`` effectively independent samples and the linear parameters are drawn from their
-conditional Gaussian, so every output sample holds every parameter.
+1. A dense frequency scan of the marginal likelihood finds the candidate period modes
+   (:mod:`inference.start`).
+2. Population Monte Carlo adapts a defensive Student-t mixture to the posterior and draws a
+   weighted sample, with the evidence, the effective sample size and the Pareto k-hat
+   (:mod:`inference.importance`). Mode shares come from these independent weighted draws.
+3. The weighted draws are resampled to ``n_samples`` equal-weight samples (systematic
+   resampling) and moved by Metropolis-Hastings kernels that leave the posterior invariant
+   (resample-move, Gilks & Berzuini 2001, JRSS B 63, 127): an independence sampler with the
+   mixture as proposal, which can jump between modes, and an ensemble step of emcee
+   (Foreman-Mackey et al. 2013; differential-evolution moves, ter Braak 2006) inside modes.
+4. The linear parameters are drawn from their conditional Gaussian, so every output sample
+   holds every parameter.
 """
 
 import logging
@@ -17,79 +24,74 @@ from inference.posterior import Posterior, predict_matrix
 from inference.settings import SamplerSettings
 
 from .errors import ModelError
-from .likelihood import linear_conditional, log_marginal, log_prior, prepare
+from .importance import population_monte_carlo
+from .likelihood import linear_conditional, log_joint, prepare
+from .mixture import mixture_draw, mixture_log_density
 from .model import check_enough_points
-from .start import multimodal_start
+from .modes import period_modes
+from .psis import K_HAT_LIMIT
+from .start import find_modes
 
-__all__ = ["SAMPLER_VERSION", "fit", "integrated_time"]
+__all__ = ["SAMPLER_VERSION", "fit"]
 
 logger = logging.getLogger(__name__)
 
-#: Version of the sampling algorithm (start, moves, convergence rule, thinning, completion).
+#: Version of the sampling algorithm (scan, importance mixture, moves, completion).
 #: It is part of every cache key (:func:`inference.cache.cache_key`): raise it whenever a change
 #: to this module or the ones it calls gives different samples for the same data, model,
 #: settings and seed, so that older fits are refitted instead of silently reused.
-SAMPLER_VERSION = "1"
+#: 2: population Monte Carlo over a defensive Student-t mixture, then resample-move.
+SAMPLER_VERSION = "2"
 
 
-def integrated_time(chain, c=5.0):
-    """Integrated autocorrelation time of each parameter of an ensemble chain.
+def _systematic(weights, n, rng):
+    """Return n systematic-resampling picks (Kitagawa 1996) from normalised weights."""
+    edges = np.cumsum(weights)
+    edges[-1] = 1.0
+    return np.searchsorted(edges, (rng.uniform() + np.arange(n)) / n)
 
-    Parameters
-    ----------
-    chain : ndarray, shape (n_steps, n_walkers, n_dim)
-        The kept chain.
-    c : float, optional
-        Window constant of the automatic windowing (Sokal 1989).
 
-    Returns
-    -------
-    tau : ndarray, shape (n_dim,)
-        tau [steps]; ``inf`` for a parameter that no walker moved.
+def _resample_move(imp, prep, settings, rng):
+    """Equal-weight samples from the weighted draws: resample, then posterior-invariant moves.
 
-    Notes
-    -----
-    The autocovariance of each walker (about its own mean) is computed by FFT and averaged
-    over walkers before normalising, then summed up to the smallest window M >= c tau(M)
-    (Sokal 1989; the walker-averaged form of Goodman & Weare 2010). Averaging covariances
-    rather than normalised correlations keeps a walker that never moved from dividing by zero.
+    Returns the samples, the mean acceptance of the moves and the evaluations spent.
     """
-    n = chain.shape[0]
-    x = chain - chain.mean(axis=0)
-    size = 1 << int(np.ceil(np.log2(max(2 * n, 2))))
-    f = np.fft.rfft(x, n=size, axis=0)
-    acov = np.fft.irfft(f * np.conjugate(f), n=size, axis=0)[:n].real.mean(axis=1)
-    tau = np.full(chain.shape[2], np.inf)
-    for d in range(chain.shape[2]):
-        if acov[0, d] <= 0.0:
-            continue
-        taus = 2.0 * np.cumsum(acov[:, d] / acov[0, d]) - 1.0
-        window = np.flatnonzero(np.arange(n) >= c * taus)
-        tau[d] = taus[window[0]] if window.size else taus[-1]
-    return tau
+    import emcee
 
-
-def _log_probability(prep):
-    def fn(theta):
-        lp = log_prior(theta, prep)
-        ok = np.isfinite(lp)
-        if np.any(ok):
-            lp[ok] += log_marginal(theta[ok], prep)
-        return lp
-
-    return fn
-
-
-def _moves(settings):
-    from emcee import moves
-
-    pairs = [
-        (moves.DEMove(), settings.de_weight),
-        (moves.DESnookerMove(), settings.snooker_weight),
-        (moves.DEMove(gamma0=1.0), settings.jump_weight),
-        (moves.StretchMove(), settings.stretch_weight),
-    ]
-    return [(m, w) for m, w in pairs if w > 0]
+    n = settings.n_samples
+    mix = imp.mixture
+    theta = imp.theta[_systematic(imp.normalised_weights(), n, rng)]
+    log_t = log_joint(theta, prep)
+    log_w = log_t - mixture_log_density(mix, prep, theta)[0]
+    d = theta.shape[1]
+    ensemble = None
+    if n >= 2 * d:
+        moves = [(emcee.moves.DEMove(), 0.7), (emcee.moves.DEMove(gamma0=1.0), 0.1),
+                 (emcee.moves.StretchMove(), 0.2)]
+        ensemble = emcee.EnsembleSampler(n, d, lambda x: log_joint(x, prep), moves=moves,
+                                         vectorize=True)
+        ensemble.random_state = np.random.RandomState(int(rng.integers(0, 2**32))).get_state()
+    accepted, tried, n_eval = 0.0, 0, n
+    for _ in range(settings.move_steps):
+        # Independence Metropolis-Hastings: accept a mixture draw with min(1, w' / w).
+        prop = mixture_draw(mix, prep, rng, n)[0]
+        prop_t = log_joint(prop, prep)
+        prop_w = prop_t - mixture_log_density(mix, prep, prop)[0]
+        take = np.log(rng.uniform(size=n)) < np.where(np.isfinite(prop_t), prop_w - log_w, -np.inf)
+        theta[take], log_t[take], log_w[take] = prop[take], prop_t[take], prop_w[take]
+        accepted += take.mean()
+        tried += 1
+        n_eval += n
+        if ensemble is not None:
+            state = ensemble.run_mcmc(emcee.State(theta, log_prob=log_t), 1, progress=False,
+                                      skip_initial_state_check=True)
+            moved = np.any(state.coords != theta, axis=1)
+            theta, log_t = np.array(state.coords), np.array(state.log_prob)
+            log_w = log_t - mixture_log_density(mix, prep, theta)[0]
+            accepted += moved.mean()
+            tried += 1
+            n_eval += n
+    return theta, (accepted / tried if tried else 0.0), n_eval
 
 
 def _complete_samples(theta, prep, model, rng):
@@ -124,16 +126,6 @@ def _full_log_likelihood(samples, data, model):
     return -0.5 * np.sum(r * r / var + np.log(2.0 * np.pi * var), axis=1)
 
 
-def _check_model_dimension(model, settings):
-    n_dim = len(model.sampled_names())
-    if settings.n_walkers < 2 * n_dim:
-        raise ModelError(
-            f"n_walkers = {settings.n_walkers} is fewer than twice the {n_dim} sampled "
-            f"parameters: use at least {2 * n_dim + (2 * n_dim) % 2} walkers."
-        )
-    return n_dim
-
-
 def fit(data, model, settings=None, rng=None, target=""):
     """Sample the orbit posterior of one star.
 
@@ -161,67 +153,57 @@ def fit(data, model, settings=None, rng=None, target=""):
     RVDataError, ModelError
         If the data cannot be fitted with this model or the settings are unusable.
     """
-    import emcee
-
     started = time.perf_counter()
     settings = settings or SamplerSettings()
     check_enough_points(data, model)
-    n_dim = _check_model_dimension(model, settings)
     if isinstance(rng, int | np.integer):
         seed = int(rng)
     else:
         seed = int((rng or np.random.default_rng()).integers(0, 2**62))
     gen = np.random.default_rng(seed)
     prep = prepare(data, model)
-    start = multimodal_start(prep, settings, gen)
-    sampler = emcee.EnsembleSampler(
-        settings.n_walkers, n_dim, _log_probability(prep), moves=_moves(settings), vectorize=True
-    )
-    sampler.random_state = np.random.RandomState(int(gen.integers(0, 2**32))).get_state()
-    state = start.positions
-    converged, tau, burn, message = False, np.full(n_dim, np.inf), 0, ""
-    while sampler.iteration < settings.max_steps:
-        # Checks every check_every steps at first, then every 20% of the chain so far, so the
-        # cost of the autocorrelation estimates stays a small share of a long run.
-        stride = max(settings.check_every, int(0.2 * sampler.iteration))
-        stride = min(stride, settings.max_steps - sampler.iteration)
-        state = sampler.run_mcmc(state, stride, progress=False)
-        steps = sampler.iteration
-        chain = sampler.get_chain()
-        tau = integrated_time(chain[steps // 3 :])
-        tau_max = float(np.max(tau))
-        burn = int(min(settings.burn_factor * tau_max, steps // 2))
-        kept = steps - burn
-        ess = settings.n_walkers * kept / tau_max
-        if kept >= settings.tau_factor * tau_max and ess >= settings.n_samples:
-            converged = True
-            break
-    tau_max = float(np.max(tau))
-    kept = sampler.iteration - burn
-    ess = settings.n_walkers * kept / tau_max
-    if not converged:
-        message = (
-            f"not converged after {sampler.iteration} steps: kept chain {kept} steps, "
-            f"max autocorrelation time {tau_max:.1f} steps, effective samples {ess:.0f} "
-            f"(need {settings.tau_factor:g} tau and {settings.n_samples})"
+    span = max(float(np.ptp(data.time)), 1.0)
+    start = find_modes(prep, settings, gen)
+    imp = population_monte_carlo(prep, settings, gen, start.seeds, span, start.frequencies)
+    if not np.isfinite(imp.log_z):
+        raise ModelError(
+            f"target {target!r}: no importance draw has a finite posterior density; check the "
+            "velocities and the period range."
         )
-        logger.warning("target %r: %s; raise max_steps or check the model.", target, message)
-    thin = max(1, int(np.floor(tau_max))) if np.isfinite(tau_max) else 1
-    flat = sampler.get_chain(discard=burn, thin=thin, flat=True)
-    if flat.shape[0] > settings.n_samples:
-        flat = flat[np.sort(gen.choice(flat.shape[0], settings.n_samples, replace=False))]
+    modes = period_modes(imp.theta, imp.normalised_weights(), prep, span)
+    flat, acceptance, n_move = _resample_move(imp, prep, settings, gen)
+    message = ""
+    if imp.k_hat > K_HAT_LIMIT or imp.ess < settings.min_ess:
+        message = (
+            f"the importance weights fell short (Pareto k-hat {imp.k_hat:.2f}, limit "
+            f"{K_HAT_LIMIT}; effective samples {imp.ess:.0f} of {settings.min_ess} wanted "
+            f"from {imp.theta.shape[0]} draws)"
+        )
+    elif imp.log_z_se > settings.max_log_z_se:
+        message = (
+            f"the evidence is imprecise (ln Z standard error {imp.log_z_se:.3f}, wanted "
+            f"{settings.max_log_z_se:g}, from {imp.theta.shape[0]} draws)"
+        )
+    if message:
+        logger.warning(
+            "target %r: %s; raise max_draws (now %d; the scenario key sampler.max_draws) or "
+            "check the model.", target, message, settings.max_draws,
+        )
     samples = _complete_samples(flat, prep, model, gen)
     diagnostics = Diagnostics(
-        converged=converged,
-        n_steps=int(sampler.iteration),
-        burn_in=int(burn),
-        thin=int(thin),
-        tau=tuple(float(x) for x in tau),
-        ess=float(ess),
-        acceptance=float(np.mean(sampler.acceptance_fraction)),
-        n_evaluations=int(start.n_evaluations + sampler.iteration * settings.n_walkers),
+        ok=not message,
+        ess=float(imp.ess),
+        n_draws=int(imp.theta.shape[0]),
+        k_hat=float(imp.k_hat),
+        log_evidence=float(imp.log_z),
+        log_evidence_se=float(imp.log_z_se),
+        modes=tuple(m.to_dict() for m in modes),
+        rounds=int(imp.rounds),
+        n_components=int(imp.mixture.n_components),
+        move_acceptance=float(acceptance),
+        unique_fraction=float(np.unique(flat, axis=0).shape[0] / flat.shape[0]),
+        n_evaluations=int(start.n_evaluations + imp.n_evaluations + n_move),
         start_modes=start.mode_periods,
-        start_weights=start.mode_weights,
         seconds=float(time.perf_counter() - started),
         message=message,
     )

@@ -15,76 +15,79 @@ class SamplerSettings:
 
     Attributes
     ----------
-    n_walkers : int
-        Ensemble size (even, at least twice the number of sampled parameters).
     n_samples : int
-        Target number of effectively independent output samples.
-    max_steps : int
-        Largest number of ensemble steps before giving up on convergence.
-    check_every : int
-        Steps between the first convergence checks (later ones come every 20% of the chain).
-    tau_factor : float
-        Convergence needs the kept chain to be at least this many autocorrelation times long.
-    burn_factor : float
-        Steps discarded as burn-in, in autocorrelation times.
+        Number of equal-weight output samples.
+    min_ess : int
+        Effective sample size the final importance draws must reach.
+    max_log_z_se : float
+        Largest standard error of ln Z accepted.
+    draws : int
+        Importance draws per adaptation round (a round that only lacks effective samples
+        draws more, enough to reach ``min_ess``).
+    rounds : int
+        Largest number of rounds.
+    max_draws : int
+        Largest number of importance draws in all (rounds stop at the first whose weights
+        meet the targets: Pareto k-hat at most 0.7, ``min_ess`` effective samples and a
+        standard error of ln Z of at most ``max_log_z_se``).
+    defensive : float
+        Share of the prior in the importance mixture, in (0, 1).
+    dof : float
+        Degrees of freedom of the mixture's Student-t components.
+    move_steps : int
+        Resample-move sweeps after resampling (each an independence Metropolis-Hastings step
+        with the mixture as proposal and an ensemble step of emcee).
     grid_oversample : float
-        Frequency-grid oversampling of the multimodal start (grid step 1 / (q x span)).
+        Frequency-grid oversampling of the period scan (grid step 1 / (q x span)).
     max_grid : int
         Largest number of grid frequencies.
     max_modes : int
-        Peaks kept from each of the start's periodograms.
+        Peaks kept from each of the scan's periodograms.
     max_candidates : int
         Largest number of candidate periods per planet sent to the importance step.
     harmonics : int
-        Harmonics of each trial frequency in the start's periodogram (1 = circular orbits).
+        Harmonics of each trial frequency in the scan's periodogram (1 = circular orbits).
     mode_window : float
         Grid peaks within this many ln-likelihood units of the best are candidates.
-    start_draws : int
-        Importance draws per candidate mode and round.
-    start_rounds : int
-        Importance rounds (the first from the prior, then adaptive).
-    de_weight, snooker_weight, jump_weight, stretch_weight : float
-        Relative weights of the DE move, the DE snooker move, the DE mode-jump move
-        (gamma = 1) and the stretch move.
     """
 
-    n_walkers: int = 128
     n_samples: int = 2000
-    max_steps: int = 10000
-    check_every: int = 25
-    tau_factor: float = 20.0
-    burn_factor: float = 3.0
+    min_ess: int = 500
+    max_log_z_se: float = 0.05
+    draws: int = 4000
+    rounds: int = 20
+    max_draws: int = 100000
+    defensive: float = 0.15
+    dof: float = 5.0
+    move_steps: int = 6
     grid_oversample: float = 5.0
     max_grid: int = 60000
     max_modes: int = 6
     max_candidates: int = 16
     harmonics: int = 3
     mode_window: float = 25.0
-    start_draws: int = 1024
-    start_rounds: int = 5
-    de_weight: float = 0.8
-    snooker_weight: float = 0.05
-    jump_weight: float = 0.0
-    stretch_weight: float = 0.15
 
     def __post_init__(self):
-        ints = ("n_walkers", "n_samples", "max_steps", "check_every", "max_grid", "max_modes")
-        ints += ("harmonics", "max_candidates")
-        for name in ints + ("start_draws", "start_rounds"):
+        ints = ("n_samples", "min_ess", "draws", "rounds", "max_draws", "max_grid")
+        ints += ("max_modes", "harmonics", "max_candidates")
+        for name in ints:
             value = getattr(self, name)
             if not (isinstance(value, int | np.integer) and value >= 1):
                 raise ModelError(f"sampler setting {name} = {value!r} must be a whole number >= 1.")
-        if self.n_walkers % 2:
+        if not (isinstance(self.move_steps, int | np.integer) and self.move_steps >= 0):
             raise ModelError(
-                f"sampler setting n_walkers = {self.n_walkers} must be even: use "
-                f"{self.n_walkers + 1}."
+                f"sampler setting move_steps = {self.move_steps!r} must be a whole number >= 0."
             )
-        for name in ("tau_factor", "burn_factor", "grid_oversample", "mode_window"):
+        if self.max_draws < self.draws:
+            raise ModelError(
+                f"sampler setting max_draws = {self.max_draws} is below draws = "
+                f"{self.draws}: raise max_draws."
+            )
+        if not 0.0 < self.defensive < 1.0:
+            raise ModelError(f"sampler setting defensive = {self.defensive!r} must be in (0, 1).")
+        for name in ("dof", "grid_oversample", "mode_window", "max_log_z_se"):
             if not getattr(self, name) > 0:
                 raise ModelError(f"sampler setting {name} must be positive.")
-        weights = (self.de_weight, self.snooker_weight, self.jump_weight, self.stretch_weight)
-        if min(weights) < 0 or sum(weights) <= 0:
-            raise ModelError("move weights must be non-negative with a positive sum.")
 
     def to_dict(self):
         """Return the settings as a JSON-ready dict."""

@@ -1,67 +1,63 @@
-"""Multimodal start for the sampler: a period grid, then an importance step per mode.
+"""Where the period modes are: frequency scans of the marginal likelihood, and starting components.
 
 1. For each planet in turn, a dense frequency grid (uniform in 1/P, spacing 1/(oversample x
-   span)) is scored with the circular (e = 0) marginal likelihood, the other planets held at
-   their best grid period so far. Local maxima within `mode_window` (ln units) of the best are
-   candidate modes.
-2. Around each candidate, adaptive importance sampling (a defensive mixture of the prior
-   restricted to the peak's frequency cell and a Gaussian fitted to the previous round) gives
-   weighted draws of every sampled parameter and an estimate of the mode's evidence.
-3. Walkers are shared among the modes in proportion to their evidence and seeded from each
-   mode's weighted draws.
+   span)) is scored by several periodograms, the other planets held circular at their best
+   grid period so far: the exact marginal likelihood of a circular orbit and of a short
+   Fourier series, each at three trial jitters, and the Keplerian periodogram of
+   :mod:`inference.scan` (eccentric orbits on a coarse grid of e and phase). Local maxima
+   within `mode_window` (ln units) of each periodogram's best are candidate modes.
+2. Each candidate gives starting Student-t components for the population Monte Carlo of
+   :mod:`inference.importance`: one circular, one at the Keplerian scan's best eccentricity
+   and phase there, each moved to its nearest posterior maximum with a Laplace scale
+   (:mod:`inference.laplace`).
+3. The best score of every grid cell, over all periodograms, becomes the frequency proposal
+   of the mixture's defensive share, so that its draws reach every period the data allow.
 """
 
+import itertools
 from dataclasses import dataclass
 
 import numpy as np
 
-from .likelihood import log_marginal, log_marginal_design, log_prior
+from .laplace import refine_seeds
+from .likelihood import log_marginal_design
+from .mixture import FrequencyProposal
+from .scan import ZOOM_GRID, keplerian_scores
 
-__all__ = ["StartResult", "multimodal_start"]
+__all__ = ["StartResult", "find_modes"]
 
 _CHUNK = 2048
-_DEFENSIVE = 0.3  # share of the prior-in-cell component in the adaptive proposals
+# The frequency proposal: scan scores to the power 0.5 (a peak 6 ln units down still gets
+# e^-3 of the best cell's draws, so modes on a peak's flank are reached), mixed with 20% of
+# the plain prior.
+_TEMPER = 0.5
+_FLOOR = 0.2
+_MAX_SEED_MODES = 24  # candidate modes seeded (best first); the defensive share covers the rest
+_ZOOM_POINTS = 2  # eccentric seeds per candidate, from the zoom's best points
 
 
 @dataclass(frozen=True)
 class StartResult:
-    """Initial walker positions and what the start found.
+    """The candidate modes the period scan found, each with starting mixture components.
 
     Attributes
     ----------
-    positions : ndarray, shape (n_walkers, n_sampled)
-        Initial walker positions, all inside the prior support.
+    frequencies : FrequencyProposal or None
+        Where the importance mixture's defensive share draws periods: the scan's best score
+        per grid cell, tempered, times the prior, mixed with the prior (None without planets).
+    seeds : tuple of (float, ndarray, ndarray)
+        Starting Student-t components in the sampled coordinates: relative weight, mean and
+        scale matrix of each.
     mode_periods : tuple of tuple of float
         Grid periods [d] of each candidate mode (one per planet).
-    mode_weights : tuple of float
-        Estimated posterior probability of each candidate mode (sums to 1).
-    walkers_per_mode : tuple of int
-        Walkers seeded in each mode.
     n_evaluations : int
-        Likelihood evaluations spent by the start.
+        Marginal-likelihood evaluations spent by the scans (one per frequency and grid point).
     """
 
-    positions: np.ndarray
+    frequencies: FrequencyProposal | None
+    seeds: tuple
     mode_periods: tuple
-    mode_weights: tuple
-    walkers_per_mode: tuple
     n_evaluations: int
-
-
-def _batched(fn, theta, prep):
-    out = np.empty(theta.shape[0])
-    for lo in range(0, theta.shape[0], _CHUNK):
-        out[lo : lo + _CHUNK] = fn(theta[lo : lo + _CHUNK], prep)
-    return out
-
-
-def _log_target(theta, prep):
-    """Log prior plus log marginal likelihood, -inf outside the support."""
-    lp = log_prior(theta, prep)
-    ok = np.isfinite(lp)
-    if np.any(ok):
-        lp[ok] += _batched(log_marginal, theta[ok], prep)
-    return lp
 
 
 def _frequency_grid(prep, settings):
@@ -72,14 +68,6 @@ def _frequency_grid(prep, settings):
     if n > settings.max_grid:
         n = settings.max_grid
     return np.linspace(f_lo, f_hi, n)
-
-
-def _sample_log_jitter(prep, rng, n):
-    """Draw ln s from the modified-Jeffreys prior by its inverse CDF, ln(s + knee) uniform."""
-    lo = np.log(np.exp(prep.jit_log_range[:, 0]) + prep.jit_knee)
-    hi = np.log(np.exp(prep.jit_log_range[:, 1]) + prep.jit_knee)
-    u = rng.uniform(lo, hi, size=(n, lo.size))
-    return np.log(np.maximum(np.exp(u) - prep.jit_knee, np.exp(prep.jit_log_range[:, 0])))
 
 
 def _jitter_levels(prep):
@@ -130,193 +118,187 @@ def _top_peaks(ll, settings):
     return peaks[np.argsort(ll[peaks])[::-1]][: settings.max_modes]
 
 
+def _others(prep, base, k):
+    """Columns and prior precisions of everything but planet k: other planets circular, fixed."""
+    npl = prep.n_planets
+    cols, prec = [], []
+    for j in range(npl):
+        if j != k:
+            arg = (2.0 * np.pi) * np.exp(-base[3 * j]) * prep.t
+            cols += [np.cos(arg), np.sin(arg)]
+            prec += [prep.prior_prec[0]] * 2
+    cols = np.column_stack(cols + [prep.fixed]) if cols else prep.fixed
+    return cols, np.concatenate([prec, prep.prior_prec[2 * npl :]])
+
+
 def _periodogram_peaks(prep, settings, base, k, freqs):
-    """Candidate frequencies of planet k, from several periodograms; return indices, count.
+    """Candidate frequencies of planet k, from several periodograms.
 
     Each periodogram holds the other planets at `base` (circular) and scores planet k at
-    every grid frequency with the exact marginal likelihood of a linear model: a circular
-    orbit, and a Fourier series with ``settings.harmonics`` harmonics (so an eccentric orbit
-    scores at its own period rather than a harmonic), each at three trial jitters (a cheap
-    stand-in for profiling over the jitter; high jitters give smooth, low-contrast scores).
-    Sampling patterns make aliases compete with the true period in every one of them, so the
-    top peaks of all are kept and the importance step decides between them.
+    every grid frequency: a circular orbit and a Fourier series with ``settings.harmonics``
+    harmonics, each at three trial jitters (a cheap stand-in for profiling over the jitter;
+    high jitters give smooth, low-contrast scores), and the Keplerian periodogram at the
+    middle jitter. Sampling patterns make aliases compete with the true period in every one
+    of them, so the top peaks of all are kept and the importance sampling decides.
+
+    Returns the candidates' grid indices, the best relative score of every grid frequency
+    over the periodograms (each less its own maximum), the Keplerian scan's best
+    (e, M0) per frequency, and the evaluations spent.
     """
     order = []
     n_eval = 0
+    score = np.full(freqs.size, -np.inf)
+    levels = _jitter_levels(prep)
     for n_h in dict.fromkeys((1, settings.harmonics)):
-        for level in _jitter_levels(prep):
-            order.append(_top_peaks(_harmonic_scores(prep, base, k, freqs, n_h, level), settings))
+        for level in levels:
+            ll = _harmonic_scores(prep, base, k, freqs, n_h, level)
+            score = np.maximum(score, ll - ll.max())
+            order.append(_top_peaks(ll, settings))
             n_eval += freqs.size
+    cols, prec = _others(prep, base, k)
+    w = 1.0 / (prep.var + np.exp(2.0 * levels[1])[prep.inst])
+    # Every other grid frequency (a peak spans several), interpolated back to the grid.
+    half = freqs[::2]
+    ll, best, _ = keplerian_scores(prep.t, w, prep.resid, cols, prec, prep.prior_prec[0], half)
+    nearest = np.minimum(np.rint(np.arange(freqs.size) / 2).astype(int), half.size - 1)
+    ll, best = np.interp(freqs, half, ll), best[nearest]
+    score = np.maximum(score, ll - ll.max())
+    order.insert(0, _top_peaks(ll, settings))
+    n_eval += half.size * 52
     # Interleave by rank so the best of every periodogram comes first.
     merged = []
     for rank in range(settings.max_modes):
         for peaks in order:
             if rank < peaks.size and int(peaks[rank]) not in merged:
                 merged.append(int(peaks[rank]))
-    return np.array(merged[: settings.max_candidates]), n_eval
+    return np.array(merged[: settings.max_candidates]), score, best, n_eval
 
 
-def _prior_in_cell(prep, rng, n, cells):
-    """Draw from the prior with each planet's frequency uniform in its cell (lo, hi)."""
+def _zoom(prep, base, k, freq, step, level, top=4):
+    """Return the best (frequency, e, M0) points near a candidate of planet k, finer gridded.
+
+    Five frequencies across the candidate's grid cell and its neighbours, ten eccentricities
+    and 48 phases each: eccentric modes are narrow in (e, M0), and the coarse scan only says
+    roughly where. Returns up to `top` points, best first, no two at one grid point.
+    """
+    cols, prec = _others(prep, base, k)
+    w = 1.0 / (prep.var + np.exp(2.0 * level)[prep.inst])
+    freqs = freq + step * np.array([-1.0, -0.5, 0.0, 0.5, 1.0])
+    freqs = freqs[(freqs >= np.exp(-prep.log_p[1])) & (freqs <= np.exp(-prep.log_p[0]))]
+    _, best, best_ll = keplerian_scores(prep.t, w, prep.resid, cols, prec, prep.prior_prec[0],
+                                        freqs, top=top, grid=ZOOM_GRID)
+    flat = [(float(best_ll[i, j]), float(freqs[i]), float(best[i, j, 0]), float(best[i, j, 1]))
+            for i in range(freqs.size) for j in range(best.shape[1])]
+    out = []
+    for _, f, e, m0 in sorted(flat, reverse=True):
+        if all(abs(e - e2) > 0.06 or abs(np.angle(np.exp(1j * (m0 - m2)))) > 0.2
+               for _, e2, m2 in out):
+            out.append((f, e, m0))
+        if len(out) >= top:
+            break
+    return out
+
+
+def _seed_components(prep, mode, level, span):
+    """Return the starting components of a candidate mode: circular and the zoom's best.
+
+    `mode` holds, per planet, (frequency [1/d], points) of the candidate, the points being
+    the zoom's best (frequency, e, M0) there, best first.
+    """
     npl = prep.n_planets
-    theta = np.empty((n, 3 * npl + prep.jit_knee.size))
-    for k, (lo, hi) in enumerate(cells):
-        theta[:, 3 * k] = -np.log(rng.uniform(lo, hi, n))
-        r = np.sqrt(prep.e_max * rng.uniform(0.0, 1.0, n))  # e uniform -> sqrt(e) radius
-        phi = rng.uniform(-np.pi, np.pi, n)
-        theta[:, 3 * k + 1] = r * np.cos(phi)
-        theta[:, 3 * k + 2] = r * np.sin(phi)
-    theta[:, 3 * npl :] = _sample_log_jitter(prep, rng, n)
-    return theta
-
-
-def _log_q_cell(theta, prep, cells):
-    """Log density of the prior-in-cell proposal (frequencies uniform in their cells)."""
-    out = log_prior(theta, prep) - prep.log_period_density
-    for k, (lo, hi) in enumerate(cells):
-        log_f = -theta[:, 3 * k]
-        inside = (log_f >= np.log(lo)) & (log_f <= np.log(hi))
-        # q(ln P) = f / (hi - lo) inside the cell (f uniform there, |df / d ln P| = f).
-        out += np.where(inside, log_f - np.log(hi - lo), -np.inf)
+    out = []
+    n_grid = min(len(points) for _, points in mode)
+    for g in range(-1, n_grid):  # -1: circular
+        mean = np.concatenate([np.zeros(3 * npl), level])
+        sd = np.concatenate([np.zeros(3 * npl), np.full(level.size, 0.5)])
+        for k, (freq, points) in enumerate(mode):
+            mean[3 * k] = -np.log(freq)
+            sd[3 * k] = min(0.3 / (freq * span), 0.3)  # a third of a peak width, in ln P
+            if g >= 0:
+                f, e, m0 = points[g]
+                mean[3 * k] = -np.log(f)
+                mean[3 * k + 1 : 3 * k + 3] = np.sqrt(e) * np.cos(m0), np.sqrt(e) * np.sin(m0)
+            sd[3 * k + 1] = sd[3 * k + 2] = 0.12 if g >= 0 else 0.25
+        out.append((mean, np.diag(sd * sd)))
     return out
 
 
-def _weights(log_target, log_q):
-    """Log importance weights, -inf wherever the target vanishes."""
-    out = np.full(log_target.shape, -np.inf)
-    ok = np.isfinite(log_target)
-    out[ok] = log_target[ok] - log_q[ok]
-    return out
-
-
-def _importance(prep, settings, rng, cells):
-    """Adaptive importance sampling in one mode; returns draws, log weights, log evidence."""
-    n = settings.start_draws
-    theta = _prior_in_cell(prep, rng, n, cells)
-    log_w = _weights(_log_target(theta, prep), _log_q_cell(theta, prep, cells))
-    n_eval = n
-    for _ in range(settings.start_rounds - 1):
-        if not np.any(np.isfinite(log_w)):
-            break
-        # Cross-entropy step (Rubinstein 1999): fit a Gaussian to the elite draws.
-        elite = theta[np.argsort(log_w)[::-1][: max(2 * theta.shape[1], n // 10)]]
-        mean = elite.mean(axis=0)
-        cov = np.atleast_2d(np.cov(elite.T)) * 2.0 + np.diag(np.full(theta.shape[1], 1e-12))
-        n_def = int(round(_DEFENSIVE * n))
-        gauss = rng.multivariate_normal(mean, cov, size=n - n_def, method="cholesky")
-        theta = np.concatenate([_prior_in_cell(prep, rng, n_def, cells), gauss])
-        diff = theta - mean
-        sol = np.linalg.solve(cov, diff.T).T
-        log_g = -0.5 * np.sum(diff * sol, axis=1) - 0.5 * np.linalg.slogdet(2 * np.pi * cov)[1]
-        log_cell = _log_q_cell(theta, prep, cells)
-        log_q = np.logaddexp(np.log(_DEFENSIVE) + log_cell, np.log(1 - _DEFENSIVE) + log_g)
-        inside = np.isfinite(log_cell)
-        log_t = np.full(n, -np.inf)
-        log_t[inside] = _log_target(theta[inside], prep)
-        log_w = _weights(log_t, log_q)
-        n_eval += int(inside.sum())
-    finite = np.isfinite(log_w)
-    log_z = -np.inf
-    if np.any(finite):
-        top = np.max(log_w[finite])
-        log_z = top + np.log(np.sum(np.exp(log_w[finite] - top)) / n)
-    return theta, log_w, log_z, n_eval
-
-
-def _seed_walkers(theta, log_w, count, prep, rng):
-    """Pick `count` draws by weight; move repeated picks slightly, staying in the prior."""
-    w = np.exp(log_w - np.max(log_w))
-    w /= w.sum()
-    pick = rng.choice(theta.shape[0], size=count, replace=True, p=w)
-    chosen = theta[pick]
-    sd = np.sqrt(np.maximum(np.cov(theta.T, aweights=w + 1e-300).diagonal(), 1e-12))
-    out = chosen.copy()
-    repeated = np.ones(count, dtype=bool)
-    repeated[np.unique(pick, return_index=True)[1]] = False
-    for _ in range(50):
-        idx = np.flatnonzero(repeated)
-        if idx.size == 0:
-            break
-        trial = chosen[idx] + 0.1 * sd * rng.standard_normal((idx.size, theta.shape[1]))
-        ok = np.isfinite(log_prior(trial, prep))
-        out[idx[ok]] = trial[ok]
-        repeated[idx[ok]] = False
-    return out
-
-
-def _allocate(weights, n_walkers):
-    """Largest-remainder split of n_walkers in proportion to weights."""
-    raw = weights * n_walkers
-    counts = np.floor(raw).astype(int)
-    rest = n_walkers - counts.sum()
-    counts[np.argsort(raw - counts)[::-1][:rest]] += 1
-    return counts
-
-
-def multimodal_start(prep, settings, rng):
-    """Find the period modes and seed walkers across them in proportion to their evidence.
+def find_modes(prep, settings, rng=None):
+    """Find the candidate period modes and starting mixture components for them.
 
     Parameters
     ----------
     prep : Prepared
         The data and model arrays (:func:`inference.likelihood.prepare`).
     settings : SamplerSettings
-        Uses ``n_walkers``, ``grid_oversample``, ``max_grid``, ``mode_window``,
-        ``max_modes``, ``start_draws`` and ``start_rounds``.
-    rng : numpy.random.Generator
-        Source of randomness.
+        Uses ``grid_oversample``, ``max_grid``, ``mode_window``, ``max_modes``,
+        ``max_candidates`` and ``harmonics``.
+    rng : numpy.random.Generator, optional
+        Unused: the scan is deterministic (kept for a uniform stage signature).
 
     Returns
     -------
     StartResult
     """
     npl = prep.n_planets
+    if not npl:
+        return StartResult(frequencies=None, seeds=(), mode_periods=(), n_evaluations=0)
+    span = max(float(np.ptp(prep.t)), 1.0)
     base = np.concatenate([np.zeros(3 * npl), np.log(prep.jit_knee)])
+    freqs = _frequency_grid(prep, settings)
     n_eval = 0
-    candidates = []
-    if npl:
-        freqs = _frequency_grid(prep, settings)
-        half = 0.5 * (freqs[1] - freqs[0]) if freqs.size > 1 else 0.5 * freqs[0]
-        best_cells = []
+    score = np.full(freqs.size, -np.inf)
+    level = _jitter_levels(prep)[1]
+    step = float(freqs[1] - freqs[0]) if freqs.size > 1 else float(freqs[0])
+    candidates = [{} for _ in range(npl)]
+    best_modes = [None] * npl
+    # With several planets a second pass rescans each one given the others' best periods
+    # (backfitting), so a planet first scanned beside an unmodelled signal is found again.
+    for _ in range(1 if npl == 1 else 2):
         for k in range(npl):
-            peaks, n = _periodogram_peaks(prep, settings, base, k, freqs)
+            peaks, score_k, ecc_k, n = _periodogram_peaks(prep, settings, base, k, freqs)
+            score = np.maximum(score, score_k)
             n_eval += n
             base[3 * k] = -np.log(freqs[peaks[0]])
-            cells_k = [(max(freqs[p] - 3 * half, 1e-300), freqs[p] + 3 * half) for p in peaks]
-            best_cells.append(cells_k[0])
-            candidates.append(cells_k)
-        modes = [tuple(best_cells)]
-        for k, cells_k in enumerate(candidates):
-            for cell in cells_k[1:]:
-                mode = list(best_cells)
-                mode[k] = cell
-                modes.append(tuple(mode))
-        # Order the planets of each mode by period (the prior requires P_1 < P_2 < ...).
-        modes = list(dict.fromkeys(tuple(sorted(m, key=lambda c: -c[0])) for m in modes))
-    else:
-        modes = [()]
-    results = []
-    for cells in modes:
-        theta, log_w, log_z, n = _importance(prep, settings, rng, cells)
-        n_eval += n
-        if np.isfinite(log_z):
-            results.append((cells, theta, log_w, log_z))
-    log_z = np.array([r[3] for r in results])
-    weights = np.exp(log_z - log_z.max())
-    weights /= weights.sum()
-    counts = _allocate(weights, settings.n_walkers)
-    positions = [
-        _seed_walkers(theta, log_w, int(c), prep, rng)
-        for (_, theta, log_w, _), c in zip(results, counts, strict=True)
-        if c > 0
-    ]
-    positions = np.concatenate(positions, axis=0)
-    positions = positions[rng.permutation(positions.shape[0])]
-    periods = tuple(tuple(float(2.0 / (lo + hi)) for lo, hi in r[0]) for r in results)
-    return StartResult(
-        positions=positions,
-        mode_periods=periods,
-        mode_weights=tuple(float(w) for w in weights),
-        walkers_per_mode=tuple(int(c) for c in counts),
-        n_evaluations=int(n_eval),
-    )
+            for p in peaks:
+                if int(p) not in candidates[k]:
+                    points = _zoom(prep, base, k, float(freqs[p]), step, level, _ZOOM_POINTS)
+                    candidates[k][int(p)] = (float(freqs[p]), tuple(points), float(score_k[p]))
+            best_modes[k] = candidates[k][int(peaks[0])]
+    candidates = [list(c.values()) for c in candidates]
+    modes = [tuple(best_modes)]
+    for k, cands in enumerate(candidates):
+        for cand in cands:
+            mode = list(best_modes)
+            mode[k] = cand
+            modes.append(tuple(mode))
+    if npl > 1:
+        # Every combination of each planet's three best candidates, too.
+        tops = [sorted(c, key=lambda x: -x[2])[:3] for c in candidates]
+        modes += [tuple(m) for m in itertools.product(*tops)]
+    # Order the planets of each mode by period (the prior requires P_1 < P_2 < ...).
+    modes = list(dict.fromkeys(tuple(sorted(m, key=lambda c: -c[0])) for m in modes))
+    seeds, periods = [], []
+    ranked = []
+    for mode in modes:
+        if len({round(c[0], 12) for c in mode}) < len(mode):
+            continue  # two planets at one frequency: not a mode of the ordered prior
+        # Weight: the worst planet's relative score times the periods (wider cells in ln P).
+        weight = float(np.exp(min(c[2] for c in mode)) * np.prod([1.0 / c[0] for c in mode]))
+        ranked.append((weight, mode))
+    ranked.sort(key=lambda x: -x[0])
+    for weight, mode in ranked[:_MAX_SEED_MODES]:
+        for mean, cov in _seed_components(prep, [c[:2] for c in mode], level, span):
+            seeds.append((weight, mean, cov))
+        periods.append(tuple(1.0 / c[0] for c in mode))
+    if seeds:
+        means, covs = refine_seeds(prep, [m for _, m, _ in seeds], [c for _, _, c in seeds])
+        # Seeds that climbed to the same maximum are one component.
+        kept = {}
+        for (w, _, _), m, c in zip(seeds, means, covs, strict=True):
+            kept.setdefault(tuple(np.round(m, 2)), (w, m, c))
+        seeds = list(kept.values())
+    edges = np.concatenate([[freqs[0]], 0.5 * (freqs[1:] + freqs[:-1]), [freqs[-1]]])
+    proposal = FrequencyProposal.from_scores(edges, score, _TEMPER, _FLOOR)
+    return StartResult(frequencies=proposal, seeds=tuple(seeds), mode_periods=tuple(periods),
+                       n_evaluations=int(n_eval))

@@ -199,9 +199,7 @@ exposures:
 sky:
   step_s: 300
 sampler:
-  walkers: 32
   samples: 200
-  max_steps: 2500
   seed: 7
   min_period_d: 1.0
   max_period_d: 3000

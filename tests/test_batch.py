@@ -13,7 +13,7 @@ from inference.keplerian import radial_velocity
 from inference.model import ModelSpec
 from inference.settings import SamplerSettings
 
-SETTINGS = SamplerSettings(n_walkers=16, n_samples=100, start_draws=128, start_rounds=2)
+SETTINGS = SamplerSettings(n_samples=100, draws=2000, min_ess=200)
 
 
 def _star(seed, n=18):

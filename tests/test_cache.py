@@ -18,7 +18,7 @@ from inference.model import ModelSpec
 from inference.posterior import Posterior
 from inference.sample import Diagnostics, SamplerSettings
 
-SETTINGS = SamplerSettings(n_walkers=16, n_samples=40, start_draws=128, start_rounds=2)
+SETTINGS = SamplerSettings(n_samples=40, draws=2000, min_ess=200)
 
 
 def _data(seed):
@@ -38,7 +38,10 @@ def _posterior(job, shift=0.0):
     names = job.model.parameter_names()
     rng = np.random.default_rng(job.seed + 100)
     samples = rng.normal(size=(30, len(names))) + shift
-    diag = Diagnostics(True, 100, 20, 2, (3.0,) * 5, 400.0, 0.3, 1000, ((5.0,),), (1.0,), 0.1)
+    diag = Diagnostics(ok=True, ess=400.0, n_draws=4000, k_hat=0.3, log_evidence=-50.0,
+                       log_evidence_se=0.01, modes=(), rounds=2, n_components=3,
+                       move_acceptance=0.4, unique_fraction=1.0, n_evaluations=9000,
+                       start_modes=((5.0,),), seconds=0.1)
     return Posterior(job.target, job.model, names, samples, rng.normal(size=30),
                      job.data.digest, job.seed, diag, job.settings)
 

@@ -55,7 +55,7 @@ def test_interval_coverage_of_period_and_amplitude():
     # Rubin 2006). Over N datasets the count is binomial; accept counts inside the central
     # 99.8% binomial range (false-failure budget about 0.4% for the four checks together).
     rng = np.random.default_rng(20261201)
-    settings = SamplerSettings(n_walkers=64, n_samples=1000)
+    settings = SamplerSettings(n_samples=1000)
     hits = {(name, level): 0 for name in ("period_1", "semi_amplitude_1") for level in (68, 95)}
     for i in range(N_DATASETS):
         truth, data, model = _truth_and_data(rng)

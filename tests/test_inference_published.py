@@ -13,7 +13,7 @@ from inference.model import ModelSpec
 from inference.sample import fit
 from inference.settings import SamplerSettings
 
-SETTINGS = SamplerSettings(n_walkers=64, n_samples=600)
+SETTINGS = SamplerSettings(n_samples=600)
 
 
 def test_hd20868_eccentric_orbit():
@@ -22,7 +22,7 @@ def test_hd20868_eccentric_orbit():
     # omega = 356.2 deg. Period prior 1 to 10,000 d, so the multimodal start must find it.
     data = read_rv_csv(SHARED_RV / "hd20868_harps.csv")
     post = fit(data, ModelSpec.for_data(data, period_range=(1.0, 10000.0)), SETTINGS, rng=2)
-    assert post.diagnostics.converged
+    assert post.diagnostics.ok
     assert np.median(post.param("period_1")) == pytest.approx(380.85, abs=0.5)
     assert np.median(post.param("semi_amplitude_1")) == pytest.approx(100.34, abs=2.0)
     assert np.median(post.param("eccentricity_1")) == pytest.approx(0.755, abs=0.01)
@@ -36,7 +36,7 @@ def test_51peg_short_span():
     # README expects the period within about 0.005 d and K within a few m/s.
     data = read_rv_csv(SHARED_RV / "51peg_harps.csv")
     post = fit(data, ModelSpec.for_data(data, period_range=(1.0, 1000.0)), SETTINGS, rng=3)
-    assert post.diagnostics.converged
+    assert post.diagnostics.ok
     assert np.median(post.param("period_1")) == pytest.approx(4.230785, abs=0.005)
     assert np.median(post.param("semi_amplitude_1")) == pytest.approx(55.9, abs=4.0)
     assert np.median(post.param("eccentricity_1")) < 0.1

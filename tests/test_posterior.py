@@ -23,7 +23,7 @@ def posterior():
     rv = rv + 0.05 * (t - 2460145.0) + rng.normal(0.0, 1.0, 24)
     data = RVData.from_arrays(t, rv, np.full(24, 1.0), inst, source="invented two-instrument")
     model = ModelSpec.for_data(data, trend=True, period_range=(2.0, 50.0))
-    settings = SamplerSettings(n_walkers=32, n_samples=300, start_draws=256)
+    settings = SamplerSettings(n_samples=300, draws=2000, min_ess=300)
     return fit(data, model, settings, rng=8, target="invented-star"), data
 
 
@@ -79,7 +79,7 @@ def test_save_load_round_trip(posterior, tmp_path):
     assert back.diagnostics == post.diagnostics and back.settings == post.settings
     with np.load(path, allow_pickle=False) as npz:
         meta = json.loads(str(npz["metadata"]))
-    assert meta["format"] == "nightbits-posterior" and meta["format_version"] == "1.1"
+    assert meta["format"] == "nightbits-posterior" and meta["format_version"] == "2.0"
 
 
 def test_bad_files_give_a_sentence(posterior, tmp_path):
@@ -91,12 +91,14 @@ def test_bad_files_give_a_sentence(posterior, tmp_path):
     with pytest.raises(InferenceError, match="not a readable posterior file"):
         Posterior.load(junk)
     other = tmp_path / "other.npz"
-    meta = post.metadata() | {"format_version": "2.0"}
-    np.savez(
-        other,
-        samples=post.samples,
-        log_likelihood=post.log_likelihood,
-        metadata=np.array(json.dumps(meta)),
-    )
-    with pytest.raises(InferenceError, match="version '2.0'"):
-        Posterior.load(other)
+    # 1.1: the earlier sampler's diagnostics; 3.0: a future format.
+    for version, match in (("1.1", "version '1.1'.*refit"), ("3.0", "version '3.0'")):
+        meta = post.metadata() | {"format_version": version}
+        np.savez(
+            other,
+            samples=post.samples,
+            log_likelihood=post.log_likelihood,
+            metadata=np.array(json.dumps(meta)),
+        )
+        with pytest.raises(InferenceError, match=match):
+            Posterior.load(other)

@@ -69,9 +69,8 @@ def sampler_settings(scenario: Scenario):
     """Return the scenario's sampler section as :class:`inference.settings.SamplerSettings`."""
     from inference.settings import SamplerSettings
 
-    return SamplerSettings(n_walkers=scenario.sampler.walkers,
-                           n_samples=scenario.sampler.samples,
-                           max_steps=scenario.sampler.max_steps)
+    return SamplerSettings(n_samples=scenario.sampler.samples,
+                           max_draws=scenario.sampler.max_draws)
 
 
 def _target_seed(seed: int, target_id: str) -> int:

@@ -216,22 +216,45 @@ def _night_body(night, visits, running, zone):
     return lines, running
 
 
+def _percentiles(values, digits=3):
+    lo, mid, hi = np.percentile(values, [16, 50, 84])
+    return f"{lo:.{digits}g} {mid:.{digits}g} {hi:.{digits}g}"
+
+
+_FIT_NOTE = (
+    "period modes: where each planet's period lies, with its probability (modes under 5% not\n"
+    "shown). ESS: how many independent draws the weighted sample is worth. k-hat: at most 0.7\n"
+    "when the importance weights can be trusted. ln Z: the evidence (log marginal likelihood)\n"
+    "of the model. ! marks a fit that fell short of these targets (see its warning).\n"
+)
+
+
 def fit_summary(scenario, posteriors: dict) -> str:
-    """Tabulate the fitted posteriors: size, convergence, period and semi-amplitude."""
-    lines = [f"{'target':<16} {'RVs':>4} {'pl':>2} {'samples':>7} {'conv':>4}  "
-             f"{'period_1 [d] (16-50-84%)':<30} {'K_1 [m/s]':>14}"]
+    """Tabulate the fits: modes of every planet's period, K and e percentiles, ESS, k-hat, ln Z."""
+    head = (f"{'target':<16} {'RVs':>4} {'pl':>2} {'ESS':>6} {'k-hat':>5} {'ln Z':>9} "
+            f"{'+-':>4}  {'planet':>6}  {'period modes [d] (share)':<36} "
+            f"{'K [m/s] 16-50-84%':<18} {'e 16-50-84%':<15}")
+    lines = [head]
     for target in scenario.targets:
         post = posteriors[target.id]
-        n_rv = int(getattr(post.diagnostics, "n_data", 0)) or len(_read(target.rv_file))
-        conv = "yes" if getattr(post.diagnostics, "converged", False) else "no"
-        period = k_text = ""
-        if post.model.n_planets:
-            lo, mid, hi = np.percentile(post.param("period_1"), [16, 50, 84])
-            period = f"{lo:.4g} {mid:.4g} {hi:.4g}"
-            k_text = f"{np.median(post.param('semi_amplitude_1')):.3g}"
-        lines.append(f"{target.id[:16]:<16} {n_rv:>4} {post.model.n_planets:>2} "
-                     f"{post.samples.shape[0]:>7} {conv:>4}  {period:<30} {k_text:>14}")
-    return "\n".join(lines) + "\n"
+        d = post.diagnostics
+        n_rv = len(_read(target.rv_file))
+        flag = " " if getattr(d, "ok", True) else "!"
+        star = (f"{target.id[:15] + flag:<16} {n_rv:>4} {post.model.n_planets:>2} "
+                f"{d.ess:>6.0f} {d.k_hat:>5.2f} {d.log_evidence:>9.2f} "
+                f"{d.log_evidence_se:>4.2f}")
+        if not post.model.n_planets:
+            lines.append(star)
+        for k in range(1, post.model.n_planets + 1):
+            modes = [m for m in d.modes if m["planet"] == k and m["share"] >= 0.05]
+            text = " ".join(f"{m['period_mid']:.4g} ({m['share']:.0%})" for m in modes[:3])
+            if len(modes) > 3:
+                text += f" +{len(modes) - 3}"
+            k_text = _percentiles(post.param(f"semi_amplitude_{k}"))
+            e_text = _percentiles(post.param(f"eccentricity_{k}"), 2)
+            lead = star if k == 1 else " " * len(star)
+            lines.append(f"{lead}  {k:>6}  {text or 'no mode of 5%':<36} {k_text:<18} {e_text:<15}")
+    return "\n".join(lines) + "\n\n" + _FIT_NOTE
 
 
 def _read(path):

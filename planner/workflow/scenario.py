@@ -147,9 +147,9 @@ class SkyConfig:
 class SamplerConfig:
     """Settings of the orbit-posterior sampler (the same for every target)."""
 
-    walkers: int = _spec("int", 48, lo=8, hi=1024, what="ensemble walkers, even")
-    samples: int = _spec("int", 1000, lo=50, hi=10**6, what="independent samples wanted")
-    max_steps: int = _spec("int", 20000, lo=100, hi=10**7, what="ensemble steps at most")
+    samples: int = _spec("int", 1000, lo=50, hi=10**6, what="posterior samples kept")
+    max_draws: int = _spec("int", 100000, lo=8000, hi=10**8,
+                           what="importance draws at most, per star")
     seed: int = _spec("int", 1, lo=0, hi=2**63 - 1, what="seed of the sampler")
     min_period_d: float = _spec("float", 0.5, lo=0.01, hi=1e6, what="shortest period [d]")
     max_period_d: float = _spec("float", 5000.0, lo=0.02, hi=1e7, what="longest period [d]")
@@ -342,9 +342,6 @@ def _parse(text: str, path: Path) -> Scenario:
     if site.min_altitude_deg >= site.max_altitude_deg:
         raise ScenarioError(f"{where}: site.min_altitude_deg ({site.min_altitude_deg}) must be "
                             f"below site.max_altitude_deg ({site.max_altitude_deg}).")
-    if sampler.walkers % 2:
-        raise ScenarioError(f"{where}: sampler.walkers: expected an even number of walkers, "
-                            f"got {sampler.walkers}.")
     if sampler.min_period_d >= sampler.max_period_d:
         raise ScenarioError(f"{where}: sampler.min_period_d ({sampler.min_period_d}) must be "
                             f"below sampler.max_period_d ({sampler.max_period_d}).")
@@ -390,8 +387,21 @@ def _build(cls, raw: Any, where: str, key_path: str, base: Path, required: bool 
     return cls(**values)
 
 
+#: Keys of earlier versions, refused with what to do instead.
+_RETIRED = {
+    "sampler.walkers": "stars are now sampled by adaptive importance sampling, without walkers",
+    "sampler.max_steps": "stars are now sampled by adaptive importance sampling, without a "
+                         "chain length",
+}
+
+
 def _check_keys(raw: dict, allowed: tuple[str, ...], where: str, key_path: str) -> None:
     for key in raw:
+        retired = _RETIRED.get(f"{key_path}.{key}")
+        if retired:
+            raise ScenarioError(f"{where}: {key_path}.{key}: this key is no longer used "
+                                f"({retired}); remove it (sampler.max_draws sets how many "
+                                "draws a star may take).")
         if not isinstance(key, str) or key not in allowed:
             at = f"{key_path}." if key_path else ""
             hint = _did_you_mean(str(key), allowed)
