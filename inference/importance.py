@@ -17,7 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .likelihood import log_joint
-from .mixture import Mixture, mixture_draw, mixture_log_density
+from .mixture import JitterProposal, Mixture, mixture_draw, mixture_log_density
 from .psis import K_HAT_LIMIT, effective_sample_size, pareto_k_hat
 
 __all__ = ["ImportanceResult", "population_monte_carlo"]
@@ -205,6 +205,7 @@ def population_monte_carlo(prep, settings, rng, seeds, span, frequencies=None):
         d = 3 * prep.n_planets + prep.jit_knee.size
         mix = Mixture(1.0 - 1e-12, np.zeros(0), np.zeros((0, d)), np.zeros((0, d, d)), 4.0)
     idle = [0] * len(anchored)
+    jitters = None
     n_eval = 0
     n = settings.draws
     rounds = 0
@@ -221,8 +222,6 @@ def population_monte_carlo(prep, settings, rng, seeds, span, frequencies=None):
         k_round = pareto_k_hat(log_w)
         if k_round <= K_HAT_LIMIT:
             pool.append((theta, log_w))
-        else:
-            pool = []
         # Trusted rounds of one mixture family are pooled: each round's weights p / q_r are
         # unbiased for the same posterior, so together they are one larger importance sample.
         if pool:
@@ -240,7 +239,9 @@ def population_monte_carlo(prep, settings, rng, seeds, span, frequencies=None):
         weights, means, covs, anchored, idle = _refit(mix, anchored, idle, theta, w, log_q,
                                                       parts, maha)
         n_born = 0
-        if rounds <= settings.rounds // 2:  # then only refits, so the rounds can grow
+        # Births only in the first third of the rounds and half the budget; then only refits,
+        # so that the rounds can grow to the effective sample size wanted.
+        if rounds <= settings.rounds // 3 and n_eval < settings.max_draws // 2:
             n_born = _births(mix, prep, theta, w, parts, log_q, weights, means, covs, span)
             anchored += [False] * n_born
             idle += [0] * n_born
@@ -253,11 +254,14 @@ def population_monte_carlo(prep, settings, rng, seeds, span, frequencies=None):
         defensive = float(np.clip(own.sum(), settings.defensive, 0.9))
         if frequencies is not None:
             frequencies = frequencies.refit(theta[:, 0 : 3 * prep.n_planets : 3], own)
+        jitters = JitterProposal.fit(theta[:, 3 * prep.n_planets :], own, jitters)
         if weights:
-            mix = Mixture.build(defensive, weights, means, covs, settings.dof, frequencies)
+            mix = Mixture.build(defensive, weights, means, covs, settings.dof, frequencies,
+                                jitters)
         # Good weights but too few of them: draw enough next time (with a 30% margin).
         if k_hat <= K_HAT_LIMIT and n_born == 0 and ess > 0:
-            n = int(min(max(settings.draws, 1.3 * settings.min_ess * n / ess), left))
+            n = int(min(max(settings.draws, 1.3 * settings.min_ess * n / ess),
+                        4 * settings.draws, left))
         else:
             n = settings.draws
     if good is None and pool:

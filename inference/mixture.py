@@ -20,6 +20,7 @@ from .likelihood import log_prior
 
 __all__ = [
     "FrequencyProposal",
+    "JitterProposal",
     "Mixture",
     "draw_prior",
     "mixture_draw",
@@ -122,6 +123,64 @@ class FrequencyProposal:
 
 
 @dataclass(frozen=True, eq=False)
+class JitterProposal:
+    """Where the defensive share draws ln jitters: a Gaussian per instrument mixed with the prior.
+
+    Attributes
+    ----------
+    mean, sd : ndarray, shape (n_inst,)
+        Gaussian of each instrument's ln s [ln m/s].
+    share : float
+        Gaussian share; the rest is the modified-Jeffreys prior.
+    """
+
+    mean: np.ndarray
+    sd: np.ndarray
+    share: float = 0.5
+
+    def __post_init__(self):
+        for arr in (self.mean, self.sd):
+            arr.flags.writeable = False
+
+    @classmethod
+    def fit(cls, log_s, v, old=None):
+        """Fit to ln s of draws (n, n_inst) weighted by v; None when v has too little weight."""
+        if v.sum() <= 0 or v.sum() ** 2 / np.sum(v * v) < 20:
+            return old
+        v = v / v.sum()
+        mean = v @ log_s
+        sd = np.sqrt(np.maximum(v @ (log_s - mean) ** 2, 0.1**2))
+        return cls(mean, sd)
+
+    def draw(self, prep, rng, n):
+        """Draw ln s, shape (n, n_inst)."""
+        out = draw_log_jitter(prep, rng, n)
+        gauss = rng.uniform(size=out.shape) < self.share
+        z = self.mean + self.sd * rng.standard_normal(out.shape)
+        return np.where(gauss, z, out)
+
+    def log_density(self, prep, log_s):
+        """Return the log density of ln s, summed over instruments, shape (n,)."""
+        lo = np.log(np.exp(prep.jit_log_range[:, 0]) + prep.jit_knee)
+        hi = np.log(np.exp(prep.jit_log_range[:, 1]) + prep.jit_knee)
+        inside = (log_s >= prep.jit_log_range[:, 0]) & (log_s <= prep.jit_log_range[:, 1])
+        with np.errstate(divide="ignore"):
+            prior = np.where(inside, log_s - np.log(np.exp(log_s) + prep.jit_knee)
+                             - np.log(hi - lo), -np.inf)
+        gauss = (-0.5 * ((log_s - self.mean) / self.sd) ** 2 - np.log(self.sd)
+                 - 0.5 * np.log(2.0 * np.pi))
+        both = np.logaddexp(np.log(self.share) + gauss, np.log1p(-self.share) + prior)
+        return both.sum(axis=1)
+
+
+def _log_jitter_prior(prep, log_s):
+    """Return the log prior density of ln s, summed over instruments (inside the support)."""
+    lo = np.log(np.exp(prep.jit_log_range[:, 0]) + prep.jit_knee)
+    hi = np.log(np.exp(prep.jit_log_range[:, 1]) + prep.jit_knee)
+    return np.sum(log_s - np.log(np.exp(log_s) + prep.jit_knee) - np.log(hi - lo), axis=1)
+
+
+@dataclass(frozen=True, eq=False)
 class Mixture:
     """A defensive Student-t mixture over the sampled coordinates.
 
@@ -139,6 +198,8 @@ class Mixture:
         Degrees of freedom nu of every component.
     frequencies : FrequencyProposal or None
         Where the defensive share draws periods; None: from the prior.
+    jitters : JitterProposal or None
+        Where the defensive share draws ln jitters; None: from the prior.
     """
 
     defensive: float
@@ -147,6 +208,7 @@ class Mixture:
     chols: np.ndarray
     dof: float
     frequencies: FrequencyProposal | None = None
+    jitters: JitterProposal | None = None
 
     def __post_init__(self):
         for arr in (self.weights, self.means, self.chols):
@@ -158,13 +220,13 @@ class Mixture:
         return int(self.weights.size)
 
     @classmethod
-    def build(cls, defensive, weights, means, covs, dof, frequencies=None):
+    def build(cls, defensive, weights, means, covs, dof, frequencies=None, jitters=None):
         """Make a mixture from unnormalised weights and scale matrices (regularised if needed)."""
         weights = np.asarray(weights, dtype=float)
         weights = (1.0 - defensive) * weights / weights.sum()
         means = np.array(means, dtype=float)
         chols = np.array([_safe_cholesky(c) for c in covs])
-        return cls(float(defensive), weights, means, chols, float(dof), frequencies)
+        return cls(float(defensive), weights, means, chols, float(dof), frequencies, jitters)
 
 
 def _safe_cholesky(cov):
@@ -179,12 +241,13 @@ def _safe_cholesky(cov):
     return np.diag(np.sqrt(scale))
 
 
-def draw_prior(prep, rng, n, frequencies=None):
+def draw_prior(prep, rng, n, frequencies=None, jitters=None):
     """Draw n sampled vectors from the prior of ``docs/priors.md``.
 
     Periods are log-uniform and sorted (the ordered prior), (sqrt(e) cos M0, sqrt(e) sin M0)
     have e from its prior and M0 uniform, ln jitters follow the modified-Jeffreys prior. With
-    `frequencies`, each planet's period comes from that proposal instead (then sorted).
+    `frequencies`, each planet's period comes from that proposal instead (then sorted), and
+    with `jitters` the ln jitters from that one.
     """
     npl = prep.n_planets
     theta = np.empty((n, 3 * npl + prep.jit_knee.size))
@@ -199,7 +262,8 @@ def draw_prior(prep, rng, n, frequencies=None):
         phase = rng.uniform(-np.pi, np.pi, size=(n, npl))
         theta[:, 1 : 3 * npl : 3] = np.sqrt(e) * np.cos(phase)
         theta[:, 2 : 3 * npl : 3] = np.sqrt(e) * np.sin(phase)
-    theta[:, 3 * npl :] = draw_log_jitter(prep, rng, n)
+    theta[:, 3 * npl :] = (draw_log_jitter(prep, rng, n) if jitters is None
+                           else jitters.draw(prep, rng, n))
     return theta
 
 
@@ -222,16 +286,21 @@ def draw_log_jitter(prep, rng, n):
     return np.log(np.maximum(np.exp(u) - prep.jit_knee, np.exp(prep.jit_log_range[:, 0])))
 
 
-def defensive_log_density(frequencies, prep, theta):
-    """Log density of the defensive component: the prior, periods from `frequencies` if given.
+def defensive_log_density(frequencies, prep, theta, jitters=None):
+    """Log density of the defensive component: the prior, or proposals where given.
 
+    Periods come from `frequencies` and ln jitters from `jitters` when those are given.
     The sorted periods of n planets drawn independently from g have the density n! prod g;
     every other coordinate keeps its prior density.
     """
     lp = log_prior(theta, prep)
-    if frequencies is None or prep.n_planets == 0:
-        return lp
     npl = prep.n_planets
+    if jitters is not None:
+        log_s = theta[:, 3 * npl :]
+        ok = np.isfinite(lp)
+        lp[ok] += jitters.log_density(prep, log_s[ok]) - _log_jitter_prior(prep, log_s[ok])
+    if frequencies is None or npl == 0:
+        return lp
     g = frequencies.log_density(theta[:, 0 : 3 * npl : 3]).sum(axis=1)
     return lp - prep.log_period_density + float(gammaln(npl + 1)) + g
 
@@ -250,7 +319,8 @@ def mixture_log_density(mix, prep, theta, chunk=8192):
     """
     n, d = theta.shape
     parts = np.empty((n, 1 + mix.n_components))
-    parts[:, 0] = np.log(mix.defensive) + defensive_log_density(mix.frequencies, prep, theta)
+    parts[:, 0] = np.log(mix.defensive) + defensive_log_density(mix.frequencies, prep, theta,
+                                                                mix.jitters)
     inv_t = np.linalg.inv(mix.chols).transpose(0, 2, 1)  # (n_comp, d, d)
     maha = np.empty((n, mix.n_components))
     for lo in range(0, n, chunk):
@@ -274,7 +344,7 @@ def mixture_draw(mix, prep, rng, n):
     d = mix.means.shape[1] if mix.n_components else prep.jit_knee.size + 3 * prep.n_planets
     theta = np.empty((n, d))
     prior_rows = np.flatnonzero(which == 0)
-    theta[prior_rows] = draw_prior(prep, rng, prior_rows.size, mix.frequencies)
+    theta[prior_rows] = draw_prior(prep, rng, prior_rows.size, mix.frequencies, mix.jitters)
     for c in range(mix.n_components):
         rows = np.flatnonzero(which == c + 1)
         if rows.size == 0:

@@ -55,8 +55,8 @@ class SamplerSettings:
     min_ess: int = 500
     max_log_z_se: float = 0.05
     draws: int = 4000
-    rounds: int = 20
-    max_draws: int = 100000
+    rounds: int = 30
+    max_draws: int = 200000
     defensive: float = 0.15
     dof: float = 5.0
     move_steps: int = 6

@@ -20,7 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .laplace import refine_seeds
-from .likelihood import log_marginal_design
+from .likelihood import log_joint, log_marginal_design
 from .mixture import FrequencyProposal
 from .scan import ZOOM_GRID, keplerian_scores
 
@@ -293,10 +293,15 @@ def find_modes(prep, settings, rng=None):
         periods.append(tuple(1.0 / c[0] for c in mode))
     if seeds:
         means, covs = refine_seeds(prep, [m for _, m, _ in seeds], [c for _, _, c in seeds])
+        # Weights: the Laplace estimate of each seed's evidence, p(y, theta*) |2 pi S|^(1/2)
+        # (the scan scores only rank periods, not the eccentricities the seeds climbed to).
+        log_z = log_joint(means, prep) + 0.5 * np.linalg.slogdet(2.0 * np.pi * covs)[1]
+        top = np.max(log_z[np.isfinite(log_z)]) if np.any(np.isfinite(log_z)) else 0.0
+        weight = np.where(np.isfinite(log_z), np.exp(np.minimum(log_z - top, 0.0)), 0.0)
         # Seeds that climbed to the same maximum are one component.
         kept = {}
-        for (w, _, _), m, c in zip(seeds, means, covs, strict=True):
-            kept.setdefault(tuple(np.round(m, 2)), (w, m, c))
+        for w, m, c in zip(weight, means, covs, strict=True):
+            kept.setdefault(tuple(np.round(m, 2)), (max(float(w), 1e-6), m, c))
         seeds = list(kept.values())
     edges = np.concatenate([[freqs[0]], 0.5 * (freqs[1:] + freqs[:-1]), [freqs[-1]]])
     proposal = FrequencyProposal.from_scores(edges, score, _TEMPER, _FLOOR)

@@ -148,7 +148,7 @@ class SamplerConfig:
     """Settings of the orbit-posterior sampler (the same for every target)."""
 
     samples: int = _spec("int", 1000, lo=50, hi=10**6, what="posterior samples kept")
-    max_draws: int = _spec("int", 100000, lo=8000, hi=10**8,
+    max_draws: int = _spec("int", 200000, lo=8000, hi=10**8,
                            what="importance draws at most, per star")
     seed: int = _spec("int", 1, lo=0, hi=2**63 - 1, what="seed of the sampler")
     min_period_d: float = _spec("float", 0.5, lo=0.01, hi=1e6, what="shortest period [d]")

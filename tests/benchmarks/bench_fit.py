@@ -39,7 +39,7 @@ def main():
     n_batch = 8 if args.quick else 40
     rng = np.random.default_rng(7)
     settings = SamplerSettings()
-    times, cpu, ess, steps = [], [], [], []
+    times, cpu, ess, k_hat = [], [], [], []
     data = invented_target(rng)
     model = ModelSpec.for_data(data, period_range=(1.0, 1000.0))
     fit(data, model, settings, rng=0)  # warm-up: imports and first-call costs
@@ -49,14 +49,14 @@ def main():
         times.append(time.perf_counter() - start)
         cpu.append(time.process_time() - cpu_start)
         ess.append(post.diagnostics.ess)
-        steps.append(post.diagnostics.n_steps)
+        k_hat.append(post.diagnostics.k_hat)
     print(
-        f"one target, 30 velocities, n_samples={settings.n_samples}, "
-        f"{settings.n_walkers} walkers ({repeats} repeats, medians):"
+        f"one target, 30 velocities, n_samples={settings.n_samples} "
+        f"({repeats} repeats, medians):"
     )
     print(f"  wall time {np.median(times):.2f} s (min {min(times):.2f}, max {max(times):.2f})")
     print(f"  CPU time {np.median(cpu):.2f} s (wall above CPU means a loaded machine)")
-    print(f"  effective samples {np.median(ess):.0f}, steps {np.median(steps):.0f}")
+    print(f"  effective samples {np.median(ess):.0f}, Pareto k-hat {np.median(k_hat):.2f}")
     jobs = []
     for i in range(n_batch):
         d = invented_target(rng)
