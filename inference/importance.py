@@ -162,6 +162,17 @@ def _births(mix, prep, theta, w, parts, log_q, weights, means, covs, span):
     return len(born)
 
 
+def _first_good(pool, settings):
+    """Return the longest run of the latest pooled rounds that meets every target, or None."""
+    for start in range(len(pool)):
+        log_w = np.concatenate([lw for _, lw in pool[start:]])
+        if effective_sample_size(log_w) < settings.min_ess:
+            break  # earlier starts only add draws; fewer draws can only lose ESS
+        if pareto_k_hat(log_w) <= K_HAT_LIMIT and _log_mean(log_w)[1] <= settings.max_log_z_se:
+            return np.concatenate([t for t, _ in pool[start:]]), log_w
+    return None
+
+
 def _log_mean(log_w):
     finite = log_w[np.isfinite(log_w)]
     if finite.size == 0:
@@ -224,15 +235,11 @@ def population_monte_carlo(prep, settings, rng, seeds, span, frequencies=None):
             pool.append((theta, log_w))
         # Trusted rounds of one mixture family are pooled: each round's weights p / q_r are
         # unbiased for the same posterior, so together they are one larger importance sample.
-        if pool:
-            pooled = np.concatenate([lw for _, lw in pool])
-            ess, k_hat = effective_sample_size(pooled), pareto_k_hat(pooled)
-        else:
-            pooled, ess, k_hat = log_w, effective_sample_size(log_w), k_round
-        if k_hat <= K_HAT_LIMIT and ess >= settings.min_ess:
-            if _log_mean(pooled)[1] <= settings.max_log_z_se:
-                good = (np.concatenate([t for t, _ in pool]), pooled)
-                break
+        # All of them are tried first, then without the earliest, and so on.
+        good = _first_good(pool, settings)
+        if good is not None:
+            break
+        ess, k_hat = effective_sample_size(log_w), k_round
         left = settings.max_draws - n_eval
         if left < settings.draws or rounds >= settings.rounds:
             break

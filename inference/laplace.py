@@ -47,7 +47,7 @@ def _derivatives(prep, x, h, steps, pairs):
     return f0, grad, hess
 
 
-def refine_seeds(prep, means, covs, iterations=10, inflate=1.5):
+def refine_seeds(prep, means, covs, iterations=25, inflate=1.5):
     """Move seeds to nearby posterior maxima and give them Laplace scales.
 
     Parameters
@@ -74,26 +74,39 @@ def refine_seeds(prep, means, covs, iterations=10, inflate=1.5):
     h = 0.05 * np.sqrt(np.diagonal(covs, axis1=1, axis2=2))
     x = means.copy()
     best = log_joint(x, prep)
+    active = np.isfinite(best)
+    still = np.zeros(s, dtype=int)
     for _ in range(iterations):
-        f0, grad, hess = _derivatives(prep, x, h, steps, pairs)
+        idx = np.flatnonzero(active)
+        if idx.size == 0:
+            break
+        f0, grad, hess = _derivatives(prep, x[idx], h[idx], steps, pairs)
         ok = np.isfinite(f0) & np.all(np.isfinite(grad), axis=1)
-        ok &= np.all(np.isfinite(hess.reshape(s, -1)), axis=1)
-        step = np.zeros((s, d))
-        for i in np.flatnonzero(ok):
+        ok &= np.all(np.isfinite(hess.reshape(idx.size, -1)), axis=1)
+        step = np.zeros((idx.size, d))
+        for j in np.flatnonzero(ok):
             # Saddle-free Newton (Dauphin et al. 2014, NeurIPS): |eigenvalues| of -H, so a
             # step always climbs, and the curvature sets the next difference steps.
-            lam, vec = np.linalg.eigh(-hess[i])
+            lam, vec = np.linalg.eigh(-hess[j])
             lam = np.maximum(np.abs(lam), 1e-12 * max(np.abs(lam).max(), 1e-300))
-            step[i] = vec @ ((vec.T @ grad[i]) / lam)
+            step[j] = vec @ ((vec.T @ grad[j]) / lam)
             sd = np.sqrt(np.diag((vec / lam) @ vec.T))
-            h[i] = np.clip(0.1 * sd, 1e-9, h[i])
+            h[idx[j]] = np.clip(0.1 * sd, 1e-9, h[idx[j]])
         # Damped: keep the best of a full, half, quarter and tenth step, if it improves.
+        gain = np.zeros(idx.size)
         for frac in (1.0, 0.5, 0.25, 0.1):
-            trial = x + frac * step
+            trial = x[idx] + frac * step
             f = log_joint(trial, prep)
-            better = np.isfinite(f) & (f > best)
-            x[better], best[better] = trial[better], f[better]
+            better = np.isfinite(f) & (f > best[idx])
+            gain[better] += f[better] - best[idx][better]
+            x[idx[better]], best[idx[better]] = trial[better], f[better]
             step[better] = 0.0
+        # No gain: the difference steps may be too wide for a sharp peak, so shrink them; a
+        # seed without gain six times running has arrived.
+        stalled = gain < 1e-3
+        h[idx[stalled]] *= 0.3
+        still[idx] = np.where(stalled, still[idx] + 1, 0)
+        active[idx[(still[idx] >= 6) | ~np.isfinite(best[idx])]] = False
     _, _, hess = _derivatives(prep, x, h, steps, pairs)
     out = covs.copy()
     for i in range(s):

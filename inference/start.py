@@ -131,14 +131,15 @@ def _others(prep, base, k):
     return cols, np.concatenate([prec, prep.prior_prec[2 * npl :]])
 
 
-def _periodogram_peaks(prep, settings, base, k, freqs):
+def _periodogram_peaks(prep, settings, base, k, freqs, harmonics=True):
     """Candidate frequencies of planet k, from several periodograms.
 
     Each periodogram holds the other planets at `base` (circular) and scores planet k at
     every grid frequency: a circular orbit and a Fourier series with ``settings.harmonics``
     harmonics, each at three trial jitters (a cheap stand-in for profiling over the jitter;
     high jitters give smooth, low-contrast scores), and the Keplerian periodogram at the
-    middle jitter. Sampling patterns make aliases compete with the true period in every one
+    middle jitter (the Fourier series only when `harmonics`: the rescans of several planets
+    skip it). Sampling patterns make aliases compete with the true period in every one
     of them, so the top peaks of all are kept and the importance sampling decides.
 
     Returns the candidates' grid indices, the best relative score of every grid frequency
@@ -149,7 +150,7 @@ def _periodogram_peaks(prep, settings, base, k, freqs):
     n_eval = 0
     score = np.full(freqs.size, -np.inf)
     levels = _jitter_levels(prep)
-    for n_h in dict.fromkeys((1, settings.harmonics)):
+    for n_h in dict.fromkeys((1, settings.harmonics) if harmonics else (1,)):
         for level in levels:
             ll = _harmonic_scores(prep, base, k, freqs, n_h, level)
             score = np.maximum(score, ll - ll.max())
@@ -254,9 +255,10 @@ def find_modes(prep, settings, rng=None):
     best_modes = [None] * npl
     # With several planets a second pass rescans each one given the others' best periods
     # (backfitting), so a planet first scanned beside an unmodelled signal is found again.
-    for _ in range(1 if npl == 1 else 2):
+    for rescan in range(1 if npl == 1 else 2):
         for k in range(npl):
-            peaks, score_k, ecc_k, n = _periodogram_peaks(prep, settings, base, k, freqs)
+            peaks, score_k, ecc_k, n = _periodogram_peaks(prep, settings, base, k, freqs,
+                                                          harmonics=not rescan)
             score = np.maximum(score, score_k)
             n_eval += n
             base[3 * k] = -np.log(freqs[peaks[0]])

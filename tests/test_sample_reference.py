@@ -84,10 +84,11 @@ def _modes(ref, n_bins=300, level=1e-4):
     return runs
 
 
-def compare(name, data, period_range, seed=0, n_draws=N_DRAWS):
-    """Fit one dataset and its reference; return the rows of the comparison."""
+def compare(name, data, period_range, seed=0, n_draws=N_DRAWS, ref=None):
+    """Fit one dataset and its reference (or the one given); return the comparison."""
     model = ModelSpec.for_data(data, period_range=period_range)
-    ref = brute_force(data, model, n_draws, np.random.default_rng(seed))
+    if ref is None:
+        ref = brute_force(data, model, n_draws, np.random.default_rng(seed))
     post = fit(data, model, SETTINGS, rng=seed + 1)
     period = post.param("period_1")
     rows = []
@@ -117,11 +118,22 @@ def test_mode_masses_match_brute_force(index):
 
 
 if __name__ == "__main__":
-    import sys
+    import argparse
+    import pickle
+    from pathlib import Path
 
-    draws = int(float(sys.argv[1])) if len(sys.argv) > 1 else N_DRAWS
+    parser = argparse.ArgumentParser(description="Print the reference comparison table.")
+    parser.add_argument("--draws", type=float, default=N_DRAWS)
+    parser.add_argument("--keep", type=Path, help="folder to keep and reuse the references in")
+    args = parser.parse_args()
     for i, (name, data, period_range) in enumerate(_datasets()):
-        rows, tv, ref, post = compare(name, data, period_range, seed=i, n_draws=draws)
+        kept = args.keep / f"reference-{i}-{int(args.draws)}.pickle" if args.keep else None
+        ref = pickle.loads(kept.read_bytes()) if kept and kept.exists() else None
+        rows, tv, ref, post = compare(name, data, period_range, seed=i,
+                                      n_draws=int(args.draws), ref=ref)
+        if kept and not kept.exists():
+            kept.parent.mkdir(parents=True, exist_ok=True)
+            kept.write_bytes(pickle.dumps(ref))
         d = post.diagnostics
         print(f"{name} ({data.time.size} velocities, P prior {period_range[0]:g}-"
               f"{period_range[1]:g} d): reference ESS {ref.ess:.0f}, ln Z {ref.log_z:.2f} +- "
