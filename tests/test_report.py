@@ -95,7 +95,8 @@ def test_hour_separators_cover_the_dark_window():
 
 _TOTAL = re.compile(r"night total: (\d+) planned exposures?(?:, (\d+) executed)?; ([\d.]+) bits\n"
                     r" +dark (\S+) = exposing (\S+) \+ overheads (\S+) \+ idle (\S+)"
-                    r"(?: \+ lost (\S+))?(?:\s+\+ executed (\S+) exposing\s+and\s+(\S+)\s+overheads)?")
+                    r"(?: \+ lost (\S+))?"
+                    r"(?:\s+\+ executed (\S+) exposing\s+and\s+(\S+)\s+overheads)?")
 
 
 def _totals(text):

@@ -56,7 +56,7 @@ class IdleGap:
 
 
 def _held(problem: Problem, visit, ready: float, visits) -> bool:
-    """True when ``visit`` could not have started at ``ready`` (limits, window, rules)."""
+    """Return True when ``visit`` could not have started at ``ready`` (limits, window, rules)."""
     tl = problem.timeline
     s = problem.target_names.index(visit.target)
     rule = problem.rules[s]
@@ -74,13 +74,13 @@ def _held(problem: Problem, visit, ready: float, visits) -> bool:
         abs(t - o) * 1440.0 < rule.min_spacing_min - 1e-6 for o in others)
 
 
-def _anything_fits(problem: Problem, start: float, end: float, counts, tonight) -> bool:
-    """True when some target with visits left can take a whole exposure in ``[start, end]``."""
+def _anything_fits(problem: Problem, start: float, end: float, counts, tonight, cap) -> bool:
+    """Return True when a target with visits left can take a whole exposure in the gap."""
     tl = problem.timeline
     for s, rule in enumerate(problem.rules):
         if rule.max_visits is not None and counts[s] >= rule.max_visits:
             continue
-        if tonight[s] >= rule.max_per_night:
+        if tonight[s] >= min(rule.max_per_night, cap or rule.max_per_night):
             continue
         for o, exposure in enumerate(problem.exposure_s):
             first = start + problem.overhead_s * _SECOND
@@ -93,7 +93,8 @@ def _anything_fits(problem: Problem, start: float, end: float, counts, tonight) 
     return False
 
 
-def idle_gaps(problem: Problem, plan: Plan, min_s: float = 60.0) -> tuple[IdleGap, ...]:
+def idle_gaps(problem: Problem, plan: Plan, min_s: float = 60.0,
+              max_per_night: int | None = None) -> tuple[IdleGap, ...]:
     """Idle stretches longer than ``min_s`` of every night, with their reasons.
 
     Parameters
@@ -104,6 +105,9 @@ def idle_gaps(problem: Problem, plan: Plan, min_s: float = 60.0) -> tuple[IdleGa
     plan : Plan
     min_s : float
         Shortest stretch reported [s].
+    max_per_night : int, optional
+        Visits per target and night the strategy allows besides the rules (the cadence plan's
+        one), for ``"nothing observable"``.
 
     Returns
     -------
@@ -131,7 +135,8 @@ def idle_gaps(problem: Problem, plan: Plan, min_s: float = 60.0) -> tuple[IdleGa
                     reason = "nothing observable" if v is None else "window"
                 elif v is not None and _held(problem, v, cursor + v.slew_s * _SECOND, visits):
                     reason = "window"
-                elif v is not None or _anything_fits(problem, cursor, stop, counts, tonight):
+                elif v is not None or _anything_fits(problem, cursor, stop, counts, tonight,
+                                                         max_per_night):
                     reason = "waiting for a better moment"
                 else:
                     reason = "nothing observable"

@@ -48,9 +48,10 @@ _SECOND = 1.0 / 86400.0
 _J2000 = 2451545.0
 #: Smallest gain a refill visit must bring [weighted bit].
 MIN_GAIN_BITS = 1e-3
-import os
-JUSTIFY = os.environ.get("PK_JUSTIFY") == "1"
-PACK_MARGIN_S = float(os.environ.get("PK_MARGIN", "2"))
+#: Safety margin added to every slew while packing [s]: the slews are computed from positions
+#: interpolated on the run grid, within about 0.1 s of astropy's exact transforms on the demo;
+#: the independent check allows 1 s. (The solver's grid keeps its own, larger margin.)
+PACK_MARGIN_S = 2.0
 #: Rounds of compaction and refill at most.
 MAX_ROUNDS = 4
 
@@ -112,7 +113,7 @@ def extend_problem(problem: Problem, target, night, option, start_jd) -> Problem
 
 
 def extend_surrogate(surrogate: Surrogate, problem: Problem, n_old: int) -> Surrogate:
-    """The surrogate on ``problem`` whose candidates from ``n_old`` on were appended.
+    """Return the surrogate on ``problem`` whose candidates from ``n_old`` on were appended.
 
     A new candidate's value alone follows the surrogate's rule,
     ``w (rho b_c + (1 - rho) b_{r_n0})`` (:mod:`planner.allocation.surrogate`).
@@ -150,7 +151,7 @@ def exact_refill_gain(problem: Problem, predictors, *, rng: np.random.Generator,
 
 
 def surrogate_refill_gain(problem: Problem, surrogate: Surrogate) -> RefillGain:
-    """The surrogate's marginal gain of new visits given a target's planned ones [weighted bit].
+    """Return the surrogate's marginal gain of new visits given planned ones [weighted bit].
 
     A visit the surrogate cannot represent (past its patterns) is worth nothing.
     """
@@ -199,12 +200,12 @@ class _Visit:
 
 
 def _whole_second(jd: float) -> float:
-    """The first whole UTC second at or after ``jd``."""
+    """Return the first whole UTC second at or after ``jd``."""
     return _J2000 + math.ceil((jd - _J2000) * 86400.0 - 1e-4) / 86400.0
 
 
 def _whole_second_before(jd: float) -> float:
-    """The last whole UTC second at or before ``jd``."""
+    """Return the last whole UTC second at or before ``jd``."""
     return _J2000 + math.floor((jd - _J2000) * 86400.0 + 1e-4) / 86400.0
 
 
@@ -458,7 +459,7 @@ def _refill(pk: _Packer, nights: list[list[_Visit]], surrogate_ok) -> int:
 
 
 def _columns(visits) -> dict:
-    """The gain model's view of some visits: arrays of bits, bjd_mid, sigma and night."""
+    """Return the gain model's view of visits: arrays of bits, bjd_mid, sigma, night."""
     return {"bits": np.array([v.bits for v in visits], dtype=float),
             "bjd_mid": np.array([v.bjd_mid for v in visits], dtype=float),
             "sigma": np.array([v.sigma for v in visits], dtype=float),
@@ -466,7 +467,7 @@ def _columns(visits) -> dict:
 
 
 def _fit(pk: _Packer, s, o, n, start, prev, nxt, everyone):
-    """The earliest visit of (s, o) in one gap and the telescope seconds it takes, or None."""
+    """Return the earliest visit of (s, o) in a gap and the telescope seconds it takes."""
     rule = pk.p.rules[s]
     t = pk.earliest(s, o, n, start, prev)
     if not math.isfinite(t):
@@ -542,9 +543,8 @@ def pack_plan(
     for _ in range(MAX_ROUNDS):
         _compact(pk, nights, [v for seq in nights for v in seq])
         new = _refill(pk, nights, surrogate_ok) if fill else 0
-        if JUSTIFY:
-            _justify_right(pk, nights, [v for seq in nights for v in seq])
-            new += _refill(pk, nights, surrogate_ok) if fill else 0
+        _justify_right(pk, nights, [v for seq in nights for v in seq])
+        new += _refill(pk, nights, surrogate_ok) if fill else 0
         added += new
         if new == 0:
             break

@@ -439,7 +439,8 @@ def build_problem(
         az_end=az_end[:, 0],
         bjd_mid=(1 - w) * bj[tgt, mid_lo] + w * bj[tgt, mid_hi],
         timeline=Timeline(times_jd=times, night_index=night_index, grid_min=grid_min,
-                          allowed=allowed, bits=np.nan_to_num(bits), sigma=np.asarray(sigma, float), airmass=am,
+                          allowed=allowed, bits=np.nan_to_num(bits),
+                          sigma=np.asarray(sigma, float), airmass=am,
                           altitude_deg=alt, azimuth_deg=az, bjd_tdb=bj, exposure_s=exposure),
     )
 

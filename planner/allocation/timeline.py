@@ -85,7 +85,7 @@ class Timeline:
         return k, w
 
     def allowed_at(self, option, target, t_jd) -> np.ndarray:
-        """True where an exposure of ``option`` of ``target`` may start at ``t_jd`` (broadcast)."""
+        """Return True where an exposure of (option, target) may start at ``t_jd`` (broadcast)."""
         o, s, t = np.broadcast_arrays(np.asarray(option), np.asarray(target),
                                       np.asarray(t_jd, dtype=float))
         k, w = self.bracket(t)

@@ -127,23 +127,18 @@ def run_strategy(run: PreparedRun, strategy: str, time_limit_s: float | None = N
 def pack(run: PreparedRun, plan):
     """Pack a strategy's plan back to back and refill the freed time (same for every strategy).
 
-    The refill values visits by their exact conditional gain
-    (:func:`planner.allocation.packing.exact_refill_gain`) on its own random stream; the cadence
-    plan refills with its own exposure option and at most one visit per target and night.
+    The refill values visits by the surrogate's marginal gain
+    (:func:`planner.allocation.packing.surrogate_refill_gain`; the exact conditional gain was
+    measured too, docs/decisions.md); the cadence plan refills with its own exposure option and
+    at most one visit per target and night.
 
     Returns
     -------
     planner.allocation.packing.Packing
     """
-    import os
+    from planner.allocation.packing import pack_plan, surrogate_refill_gain
 
-    from planner.allocation.packing import exact_refill_gain, pack_plan, surrogate_refill_gain
-
-    stream = np.random.SeedSequence(run.scenario.solver.seed).spawn(3)[2]
-    if os.environ.get("PK_GAIN") == "surrogate":
-        gain = surrogate_refill_gain(run.problem, run.surrogate)
-    else:
-        gain = exact_refill_gain(run.problem, run.predictors, rng=np.random.default_rng(stream), n_outcomes=int(os.environ.get("PK_OUT", "64")))
+    gain = surrogate_refill_gain(run.problem, run.surrogate)
     cadence = plan.strategy == "cadence"
     return pack_plan(run.problem, run.surrogate, plan, gain=gain,
                      options=[run.problem.default_option] if cadence else None,

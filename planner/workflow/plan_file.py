@@ -128,7 +128,8 @@ def build_plan_file(run: PreparedRun, plan, marginals, target_bits, total_bits, 
     closed = [(parse_utc(v.start_utc) - v.slew_s / 86400.0, parse_utc(v.end_utc)) for v in kept]
     closed += list(run.lost_jd)
     idle = {}
-    for gap in idle_gaps(run.problem, plan):
+    cap = 1 if plan.strategy == "cadence" else None
+    for gap in idle_gaps(run.problem, plan, max_per_night=cap):
         if not any(a < gap.end_jd and b > gap.start_jd for a, b in closed):
             idle.setdefault(gap.night, []).append(
                 (format_utc(gap.start_jd), format_utc(gap.end_jd), gap.reason))

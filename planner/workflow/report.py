@@ -202,7 +202,7 @@ def _hm_min(minutes: int) -> str:
 
 
 def _night_total(night, visits, bits: float) -> list[str]:
-    """The night's total lines: count and bits, then the dark window split into its parts."""
+    """Return the night's total lines: count and bits, then the dark window's parts."""
     parts = _account(night, visits)
     minutes = _split_minutes(parts)
     planned = [v for v in visits if v.status == "planned"]
