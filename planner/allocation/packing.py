@@ -52,6 +52,9 @@ MIN_GAIN_BITS = 1e-3
 #: interpolated on the run grid, within about 0.1 s of astropy's exact transforms on the demo;
 #: the independent check allows 1 s. (The solver's grid keeps its own, larger margin.)
 PACK_MARGIN_S = 2.0
+#: Largest share of its one-visit bits a visit may lose by moving (a better airmass or phase
+#: later is worth waiting for).
+MOVE_LOSS = 0.02
 #: Rounds of compaction and refill at most.
 MAX_ROUNDS = 4
 
@@ -316,6 +319,11 @@ class _Packer:
         return need <= nxt.start + 1e-9
 
 
+def _worth(old: _Visit, new: _Visit) -> bool:
+    """Whether moving a visit keeps its one-visit value (within :data:`MOVE_LOSS`)."""
+    return new.bits >= (1.0 - MOVE_LOSS) * old.bits - 1e-12
+
+
 def _lower_bound(pk: _Packer, v: _Visit, night_visits: list, placed: dict) -> float:
     """Earliest start the rules leave ``v``: dark start, spacing, a must-do window it serves."""
     rule = pk.p.rules[v.target]
@@ -344,7 +352,8 @@ def _compact(pk: _Packer, nights: list[list[_Visit]], everyone: list[_Visit]) ->
             if t < v.start - 0.5 * _SECOND:
                 w = pk.visit_at(v.target, v.option, v.night, t)
                 w.added = v.added
-                if pk.exact_ok(v.target, v.option, v.night, t, pk.lead_s(prev, w)) and (
+                if _worth(v, w) and pk.exact_ok(v.target, v.option, v.night, t,
+                                                pk.lead_s(prev, w)) and (
                         k + 1 == len(seq) or pk.fits_before(w, seq[k + 1])):
                     seq[k] = w
                     everyone[everyone.index(v)] = w
@@ -385,7 +394,7 @@ def _justify_right(pk: _Packer, nights: list[list[_Visit]], everyone: list[_Visi
                 w = pk.visit_at(v.target, v.option, v.night, t)
                 w.added = v.added
                 prev = seq[k - 1] if k > 0 else None
-                if pk.exact_ok(v.target, v.option, v.night, t, pk.lead_s(prev, w)) and (
+                if _worth(v, w) and pk.exact_ok(v.target, v.option, v.night, t, pk.lead_s(prev, w)) and (
                         prev is None or pk.fits_before(prev, w)) and pk.fits_before(w, nxt):
                     seq[k] = w
                     everyone[everyone.index(v)] = w
@@ -567,6 +576,8 @@ def pack_plan(
     order = np.argsort(ext.start_jd_grid[chosen], kind="stable")
     marginal = _marginals(ext, ext_surrogate, chosen[order])
     objective = ext_surrogate.bits(ext, chosen)
+    if objective < plan.objective - 1e-9:  # waiting was worth more: keep the strategy's plan
+        return Packing(problem, surrogate, plan, 0, 0)
     bound = plan.bound if plan.bound is not None and plan.bound >= objective else None
     moved_now = sum(1 for v in final if v.source < 0 and not v.added)
     packed = assemble_plan(
