@@ -235,7 +235,7 @@ class _Packer:
         return self.p.overhead_s + moved + self.margin_s
 
     def visit_at(self, s: int, o: int, n: int, t: float, source: int = -1) -> _Visit:
-        f = self.tl.sample(o, s, t)
+        f = self.tl.sample1(o, s, t)
         return _Visit(s, n, o, t, t + self.p.exposure_s[o] * _SECOND, float(f["alt_start"]),
                       float(f["az_start"]), float(f["alt_end"]), float(f["az_end"]),
                       float(f["bjd_mid"]), float(f["sigma"]), float(f["bits"]), source)
@@ -267,11 +267,10 @@ class _Packer:
                 return math.inf
             t = _whole_second(t)
             need = self._need(s, o, t, prev)
-            if need <= t + 1e-9 and bool(self.tl.allowed_at(o, s, t)):
+            if need <= t + 1e-9 and self.tl.allowed1(o, s, t):
                 while True:  # tighten: an earlier second may satisfy its own need
                     earlier = max(_whole_second(need), _whole_second(lo))
-                    if earlier >= t - 0.5 * _SECOND or not bool(
-                            self.tl.allowed_at(o, s, earlier)):
+                    if earlier >= t - 0.5 * _SECOND or not self.tl.allowed1(o, s, earlier):
                         return t
                     need_earlier = self._need(s, o, earlier, prev)
                     if need_earlier > earlier + 1e-9:
@@ -284,9 +283,8 @@ class _Packer:
         """When the slew and overheads from ``prev`` to (s, o) starting at ``t`` are done."""
         if prev is None:
             return t
-        at = self.tl.sample(o, s, t)
-        return prev.end + self.gap_s(prev.alt_end, prev.az_end, at["alt_start"],
-                                     at["az_start"]) * _SECOND
+        alt, az = self.tl.position1(s, t)
+        return prev.end + self.gap_s(prev.alt_end, prev.az_end, alt, az) * _SECOND
 
     def latest(self, s: int, o: int, n: int, hi: float, nxt: _Visit | None) -> float:
         """Latest whole second <= ``hi`` at which (s, o) may start before ``nxt`` (-inf: none)."""
@@ -302,7 +300,7 @@ class _Packer:
                 v = self.visit_at(s, o, n, t)
                 limit = nxt.start - self.gap_s(v.alt_end, v.az_end, nxt.alt_start,
                                                nxt.az_start) * _SECOND - exp_d
-            if t <= limit + 1e-9 and bool(self.tl.allowed_at(o, s, t)):
+            if t <= limit + 1e-9 and self.tl.allowed1(o, s, t):
                 return t
             t = min(t, _whole_second_before(limit))
         return -math.inf
@@ -394,7 +392,8 @@ def _justify_right(pk: _Packer, nights: list[list[_Visit]], everyone: list[_Visi
                 w = pk.visit_at(v.target, v.option, v.night, t)
                 w.added = v.added
                 prev = seq[k - 1] if k > 0 else None
-                if _worth(v, w) and pk.exact_ok(v.target, v.option, v.night, t, pk.lead_s(prev, w)) and (
+                if _worth(v, w) and pk.exact_ok(v.target, v.option, v.night, t,
+                                                pk.lead_s(prev, w)) and (
                         prev is None or pk.fits_before(prev, w)) and pk.fits_before(w, nxt):
                     seq[k] = w
                     everyone[everyone.index(v)] = w

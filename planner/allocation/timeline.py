@@ -16,7 +16,10 @@ the packer.
 
 from __future__ import annotations
 
+import bisect
+import math
 from dataclasses import dataclass, fields
+from functools import cached_property
 
 import numpy as np
 
@@ -66,6 +69,58 @@ class Timeline:
             value.flags.writeable = False
             object.__setattr__(self, field_.name, value)
 
+    @cached_property
+    def _times(self) -> list:
+        """Grid times as a plain list, for the scalar lookups the packer makes by the thousand."""
+        return self.times_jd.tolist()
+
+    @cached_property
+    def _nights(self) -> list:
+        return self.night_index.tolist()
+
+    def _bracket1(self, t: float) -> tuple[int, float]:
+        """:meth:`bracket` of one time, without numpy's per-call overhead."""
+        times = self._times
+        k = min(max(bisect.bisect_right(times, t + 1e-11) - 1, 0), len(times) - 2)
+        step = times[k + 1] - times[k]
+        w = min(max((t - times[k]) / step, 0.0), 1.0)
+        return k, (0.0 if w * step * 86400.0 < 1e-6 else w)
+
+    def allowed1(self, option: int, target: int, t_jd: float) -> bool:
+        """:meth:`allowed_at` of one start."""
+        k, w = self._bracket1(t_jd)
+        row = self.allowed[option, target]
+        if not row[k]:
+            return False
+        return w == 0.0 or (self._nights[k + 1] == self._nights[k] and bool(row[k + 1]))
+
+    def position1(self, target: int, t_jd: float) -> tuple[float, float]:
+        """Altitude and azimuth [deg] of one target at one time."""
+        k, w = self._bracket1(t_jd)
+        alt = (1 - w) * self.altitude_deg[target, k] + w * self.altitude_deg[target, k + 1]
+        z0 = math.radians(self.azimuth_deg[target, k])
+        z1 = math.radians(self.azimuth_deg[target, k + 1])
+        sin = (1 - w) * math.sin(z0) + w * math.sin(z1)
+        cos = (1 - w) * math.cos(z0) + w * math.cos(z1)
+        return float(alt), math.degrees(math.atan2(sin, cos)) % 360.0
+
+    def sample1(self, option: int, target: int, t_jd: float) -> dict:
+        """:meth:`sample` of one start, as floats."""
+        exp_d = float(self.exposure_s[option]) / 86400.0
+        k, w = self._bracket1(t_jd)
+        out = {"bits": float((1 - w) * self.bits[option, target, k]
+                             + w * self.bits[option, target, k + 1]),
+               "sigma": float((1 - w) * self.sigma[option, target, k]
+                              + w * self.sigma[option, target, k + 1])}
+        out["alt_start"], out["az_start"] = self.position1(target, t_jd)
+        out["alt_end"], out["az_end"] = self.position1(target, t_jd + exp_d)
+        km, wm = self._bracket1(t_jd + 0.5 * exp_d)
+        out["airmass"] = float((1 - wm) * self.airmass[target, km]
+                               + wm * self.airmass[target, km + 1])
+        out["bjd_mid"] = float((1 - wm) * self.bjd_tdb[target, km]
+                               + wm * self.bjd_tdb[target, km + 1])
+        return out
+
     def bracket(self, t_jd) -> tuple[np.ndarray, np.ndarray]:
         """Grid index at or before each time and the fraction of a step past it.
 
@@ -96,9 +151,9 @@ class Timeline:
 
     def next_allowed(self, option: int, target: int, t_jd: float) -> float:
         """Earliest instant at or after ``t_jd`` at which a start is allowed (inf: none)."""
-        if bool(self.allowed_at(option, target, t_jd)):
+        if self.allowed1(option, target, t_jd):
             return float(t_jd)
-        k, _ = self.bracket(t_jd)
+        k, _ = self._bracket1(t_jd)
         later = np.flatnonzero(self.allowed[option, target, int(k) + 1:])
         if later.size == 0:
             return float("inf")
@@ -106,9 +161,9 @@ class Timeline:
 
     def last_allowed(self, option: int, target: int, t_jd: float) -> float:
         """Latest instant at or before ``t_jd`` at which a start is allowed (-inf: none)."""
-        if bool(self.allowed_at(option, target, t_jd)):
+        if self.allowed1(option, target, t_jd):
             return float(t_jd)
-        k, _ = self.bracket(t_jd)
+        k, _ = self._bracket1(t_jd)
         row = self.allowed[option, target, :int(k) + 1]
         earlier = np.flatnonzero(row)
         if earlier.size == 0:

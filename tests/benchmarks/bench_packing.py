@@ -71,7 +71,7 @@ def _row(label, plan, problem, predictors, seed):
     gaps = small_gaps_min(plan, problem)
     for n, date in enumerate(problem.night_dates):
         e, o, i = parts[n]
-        print(f"    {date}  exposing {e:5.2f} h  overheads {o:5.2f} h  idle {i:5.2f} h  "
+        print(f"    {date}  exposing {e:5.2f} h  overheads {o:5.2f} h  idle {i:5.2f} h "
               f"gaps < 3 min {gaps[n]:5.1f} min")
     return score.total_bits
 
@@ -87,7 +87,8 @@ def main(argv=None) -> None:
     parser.add_argument("--alternatives", action="store_true")
     args = parser.parse_args(argv)
     scenario = pipeline.load(args.scenario)
-    posteriors = pipeline.fit_posteriors(scenario, pipeline.cache_folder(scenario, args.cache, False))
+    cache = pipeline.cache_folder(scenario, args.cache, False)
+    posteriors = pipeline.fit_posteriors(scenario, cache)
     run = pipeline.prepare(scenario, posteriors)
     seed = scenario.solver.seed
     for strategy in ("cadence", "greedy", "joint"):
