@@ -93,6 +93,18 @@ def _anything_fits(problem: Problem, start: float, end: float, counts, tonight, 
     return False
 
 
+def _open_pieces(start: float, stop: float, blocks) -> list[tuple[float, float]]:
+    """Parts of ``[start, stop]`` outside every reserved block (lost, past, executed)."""
+    pieces, cursor = [], start
+    for a, b in sorted((float(a), float(b)) for a, b in blocks if a < stop and b > start):
+        if a > cursor:
+            pieces.append((cursor, a))
+        cursor = max(cursor, b)
+    if cursor < stop:
+        pieces.append((cursor, stop))
+    return pieces
+
+
 def idle_gaps(problem: Problem, plan: Plan, min_s: float = 60.0,
               max_per_night: int | None = None) -> tuple[IdleGap, ...]:
     """Idle stretches longer than ``min_s`` of every night, with their reasons.
@@ -113,7 +125,8 @@ def idle_gaps(problem: Problem, plan: Plan, min_s: float = 60.0,
     -------
     tuple of IdleGap
         In time order. A stretch is the dark time between one exposure's end and the start of
-        the next one's slew (or the dark window's edges).
+        the next one's slew (or the dark window's edges), less the problem's reserved blocks
+        (blackouts, lost time, the past and executed visits of a re-plan).
     """
     by_night = defaultdict(list)
     for v in sorted(plan.visits, key=lambda v: v.start_jd):
@@ -130,17 +143,21 @@ def idle_gaps(problem: Problem, plan: Plan, min_s: float = 60.0,
         cursor = problem.dark_jd[n, 0]
         for v in [*visits, None]:
             stop = problem.dark_jd[n, 1] if v is None else v.start_jd - v.slew_s * _SECOND
-            if (stop - cursor) * 86400.0 > min_s:
+            pieces = _open_pieces(cursor, stop, problem.reserved_jd)
+            for k, (a, b) in enumerate(pieces):
+                if (b - a) * 86400.0 <= min_s:
+                    continue
+                nxt = v if (k == len(pieces) - 1 and b == stop) else None
                 if problem.timeline is None:
-                    reason = "nothing observable" if v is None else "window"
-                elif v is not None and _held(problem, v, cursor + v.slew_s * _SECOND, visits):
+                    reason = "nothing observable" if nxt is None else "window"
+                elif nxt is not None and _held(problem, nxt, a + nxt.slew_s * _SECOND, visits):
                     reason = "window"
-                elif v is not None or _anything_fits(problem, cursor, stop, counts, tonight,
-                                                         max_per_night):
+                elif nxt is not None or _anything_fits(problem, a, b, counts, tonight,
+                                                       max_per_night):
                     reason = "waiting for a better moment"
                 else:
                     reason = "nothing observable"
-                out.append(IdleGap(date, float(cursor), float(stop), reason))
+                out.append(IdleGap(date, float(a), float(b), reason))
             if v is not None:
                 cursor = max(cursor, v.end_jd)
     return tuple(out)

@@ -103,7 +103,6 @@ def build_plan_file(run: PreparedRun, plan, marginals, target_bits, total_bits, 
         PlanFile,
         ScheduledVisit,
         format_utc,
-        parse_utc,
     )
 
     scenario = run.scenario
@@ -125,14 +124,11 @@ def build_plan_file(run: PreparedRun, plan, marginals, target_bits, total_bits, 
                 dec_deg=float(dec[k])))
     kept = [v for v in run.done]
     all_visits = sorted(kept + visits, key=lambda v: v.start_utc)
-    closed = [(parse_utc(v.start_utc) - v.slew_s / 86400.0, parse_utc(v.end_utc)) for v in kept]
-    closed += list(run.lost_jd)
     idle = {}
     cap = 1 if plan.strategy == "cadence" else None
     for gap in idle_gaps(run.problem, plan, max_per_night=cap):
-        if not any(a < gap.end_jd and b > gap.start_jd for a, b in closed):
-            idle.setdefault(gap.night, []).append(
-                (format_utc(gap.start_jd), format_utc(gap.end_jd), gap.reason))
+        idle.setdefault(gap.night, []).append(
+            (format_utc(gap.start_jd), format_utc(gap.end_jd), gap.reason))
     nights = []
     for n in run.nights:
         lost, past = _night_spans(run, n, now_jd)
