@@ -6,7 +6,6 @@ import math
 import numpy as np
 import pytest
 
-from planner.allocation.cadence import cadence_plan
 from planner.allocation.greedy import greedy_plan
 from planner.allocation.idle import idle_gaps
 from planner.allocation.joint import joint_plan
@@ -19,7 +18,7 @@ from planner.allocation.problem import build_problem
 from planner.allocation.rules import TargetRules
 from planner.allocation.surrogate import additive_surrogate, build_surrogate
 from planner.allocation.verify import verify_plan
-from tests.benchmarks.instances import shared_sky_instance
+from tests.test_verify import case  # noqa: F401  (the shared instance and its three plans)
 
 DAY_S = 86400.0
 T0 = 2461000.5
@@ -112,21 +111,10 @@ def test_grid_starts_lose_a_visit_that_packing_recovers():
     assert gaps[-1].reason == "waiting for a better moment"  # a visit would still fit there
 
 
-@pytest.fixture(scope="module")
-def case():
-    inst = shared_sky_instance(8, 2, 3)
-    s = build_surrogate(inst.problem, inst.predictors)
-    plans = {
-        "greedy": greedy_plan(inst.problem, s),
-        "cadence": cadence_plan(inst.problem, s),
-        "joint": joint_plan(inst.problem, s, time_limit_s=10, workers=2, seed=0),
-    }
-    return inst, s, plans
-
-
-def test_every_packed_plan_passes_the_independent_check(case):
+def test_every_packed_plan_passes_the_independent_check(case):  # noqa: F811
     # The verifier recomputes every position with astropy at the exact (off-grid) times.
-    inst, surrogate, plans = case
+    inst, plans = case
+    surrogate = build_surrogate(inst.problem, inst.predictors)  # as the plans were made
     for name, plan in plans.items():
         cadence = name == "cadence"
         packing = pack_plan(inst.problem, surrogate, plan,
