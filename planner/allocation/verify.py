@@ -252,9 +252,12 @@ def _rule_problems(visits, problem: Problem, timezone: str | None = None) -> lis
                 out.append(f"target {name!r}: {count} visits on {night}, above its nightly "
                            f"maximum {rule.max_per_night}.")
         starts = sorted(v.start_jd for v in mine)
-        if rule.min_spacing_min > 0 and np.any(np.diff(starts) * 1440.0 < rule.min_spacing_min
-                                               - 1e-6):
-            out.append(f"target {name!r}: two visits closer than {rule.min_spacing_min} min.")
+        close = np.flatnonzero(np.diff(starts) * 1440.0 < rule.min_spacing_min - 1e-6)
+        if rule.min_spacing_min > 0 and close.size:
+            k = int(close[0])
+            out.append(f"target {name!r}: the visits at {when(starts[k], timezone)} and "
+                       f"{when(starts[k + 1], timezone)} are closer than its min_gap_h "
+                       f"({rule.min_spacing_min} min).")
         for v in mine:
             if rule.windows_jd and not any(a <= v.start_jd and v.end_jd <= b
                                            for a, b in rule.windows_jd):
