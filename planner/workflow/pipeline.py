@@ -130,19 +130,34 @@ def pack(run: PreparedRun, plan):
     The refill values visits by the surrogate's marginal gain
     (:func:`planner.allocation.packing.surrogate_refill_gain`; the exact conditional gain was
     measured too, docs/decisions.md); the cadence plan refills with its own exposure option and
-    at most one visit per target and night.
+    at most one visit per target and night. The joint plan stays at least its greedy hint after
+    packing: the greedy plan is packed too and the better of the two on the surrogate is kept
+    (greedy's plan leaves more room to refill).
 
     Returns
     -------
     planner.allocation.packing.Packing
     """
-    from planner.allocation.packing import pack_plan, surrogate_refill_gain
+    from planner.allocation.greedy import greedy_plan
+    from planner.allocation.packing import Packing, pack_plan, surrogate_refill_gain
 
     gain = surrogate_refill_gain(run.problem, run.surrogate)
     cadence = plan.strategy == "cadence"
-    return pack_plan(run.problem, run.surrogate, plan, gain=gain,
-                     options=[run.problem.default_option] if cadence else None,
-                     max_per_night=1 if cadence else None)
+    packing = pack_plan(run.problem, run.surrogate, plan, gain=gain,
+                        options=[run.problem.default_option] if cadence else None,
+                        max_per_night=1 if cadence else None)
+    if plan.strategy != "joint":
+        return packing
+    hint = dataclasses.replace(greedy_plan(run.problem, run.surrogate), strategy="joint",
+                               bound=plan.bound, gap=plan.gap, status=plan.status,
+                               runtime_s=plan.runtime_s, seed=plan.seed, stats=plan.stats)
+    other = pack_plan(run.problem, run.surrogate, hint, gain=gain)
+    if other.plan.objective <= packing.plan.objective:
+        return packing
+    stats = other.plan.stats + (("packed_from_greedy", 1.0),)
+    return Packing(other.problem, other.surrogate,
+                   dataclasses.replace(other.plan, stats=stats),
+                   other.moved, other.added)
 
 
 def verify(run: PreparedRun, plan):
