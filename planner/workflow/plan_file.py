@@ -88,6 +88,35 @@ def _night_spans(run: PreparedRun, night, now_jd):
     return text(lost), text(past)
 
 
+def _idle_by_night(run: PreparedRun, plan, idle_gaps) -> dict:
+    """Idle stretches with their reasons per night, stretched to the true dark window.
+
+    The plan uses each night's dark window shrunk to the whole-minute run grid; the minute or
+    two at either edge is a window the planner cannot use, and joins the stretch next to it.
+    """
+    from planner.workflow.outputs import format_utc
+
+    cap = 1 if plan.strategy == "cadence" else None
+    gaps: dict = {}
+    for gap in idle_gaps(run.problem, plan, max_per_night=cap):
+        gaps.setdefault(gap.night, []).append([gap.start_jd, gap.end_jd, gap.reason])
+    out = {}
+    for true, grid in zip(run.nights, run.aligned, strict=True):
+        mine = gaps.get(true.date, [])
+        if grid.dark_start_jd > true.dark_start_jd:
+            if mine and abs(mine[0][0] - grid.dark_start_jd) < 1e-9:
+                mine[0][0] = true.dark_start_jd
+            else:
+                mine.insert(0, [true.dark_start_jd, grid.dark_start_jd, "window"])
+        if grid.dark_end_jd < true.dark_end_jd:
+            if mine and abs(mine[-1][1] - grid.dark_end_jd) < 1e-9:
+                mine[-1][1] = true.dark_end_jd
+            else:
+                mine.append([grid.dark_end_jd, true.dark_end_jd, "window"])
+        out[true.date] = [(format_utc(a), format_utc(b), why) for a, b, why in mine]
+    return out
+
+
 def build_plan_file(run: PreparedRun, plan, marginals, target_bits, total_bits, notes=(),
                     now_jd=None):
     """Turn a plan into the plan file, with the exact pointing at start and end.
@@ -124,11 +153,7 @@ def build_plan_file(run: PreparedRun, plan, marginals, target_bits, total_bits, 
                 dec_deg=float(dec[k])))
     kept = [v for v in run.done]
     all_visits = sorted(kept + visits, key=lambda v: v.start_utc)
-    idle = {}
-    cap = 1 if plan.strategy == "cadence" else None
-    for gap in idle_gaps(run.problem, plan, max_per_night=cap):
-        idle.setdefault(gap.night, []).append(
-            (format_utc(gap.start_jd), format_utc(gap.end_jd), gap.reason))
+    idle = _idle_by_night(run, plan, idle_gaps)
     nights = []
     for n in run.nights:
         lost, past = _night_spans(run, n, now_jd)
