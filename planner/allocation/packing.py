@@ -426,6 +426,11 @@ def _refill(pk: _Packer, nights: list[list[_Visit]], surrogate_ok) -> int:
                 stop = pk.dark[n, 1] if nxt is None else nxt.start
                 if (stop - start) * 86400.0 < shortest:
                     continue
+                # Targets with an allowed grid start in the gap (or just before it, whose
+                # bracket reaches in), per option: the others cannot fit, whatever the slews.
+                k0, _ = pk.tl.bracket(start)
+                k1, _ = pk.tl.bracket(stop)
+                up = pk.tl.allowed[:, :, int(k0):int(k1) + 1].any(axis=2)
                 for s in range(p.n_targets):
                     rule = p.rules[s]
                     if rule.max_visits is not None and count[s] >= rule.max_visits:
@@ -433,6 +438,8 @@ def _refill(pk: _Packer, nights: list[list[_Visit]], surrogate_ok) -> int:
                     if tonight[s] >= min(rule.max_per_night, pk.cap or rule.max_per_night):
                         continue
                     for o in pk.options:
+                        if not up[o, s]:
+                            continue
                         key = (id(prev), id(nxt), n, s, o, int(version[s]))
                         if key not in fits:
                             fits[key] = _fit(pk, s, o, n, start, prev, nxt, everyone)
