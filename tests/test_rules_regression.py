@@ -6,6 +6,7 @@ import pytest
 from planner.allocation.cadence import cadence_plan
 from planner.allocation.greedy import greedy_plan
 from planner.allocation.joint import joint_plan
+from planner.allocation.plan import assemble_plan
 from planner.allocation.problem import build_problem
 from planner.allocation.rules import TargetRules
 from planner.allocation.surrogate import additive_surrogate
@@ -53,6 +54,30 @@ def test_joint_meets_min_visits_with_a_must_do_window():
     surrogate = additive_surrogate(problem)
     plan = joint_plan(problem, surrogate, time_limit_s=5, workers=1, focus_per_group=3)
     assert _meets_rules(problem, plan)
+
+
+def test_a_reduced_first_stage_without_room_for_a_rule_falls_back_to_the_whole_problem():
+    # One night; needy's best three starts lie within 10 minutes of its peak, so a reduced
+    # model of three starts per group cannot hold two visits an hour apart; the whole can. The
+    # hint is an empty plan, so it adds no start of its own to the reduced model.
+    times = T0 + np.arange(49) * STEP
+    n = times.size
+    peak = np.exp(-0.5 * ((np.arange(n) - 24) / 2.0) ** 2)
+    problem = build_problem(
+        times_jd=times, night_index=np.zeros(n, int), dark_jd=[[T0, T0 + 4 / 24]],
+        night_dates=["2027-01-01"], target_names=["needy", "rival"],
+        rules=[TargetRules(min_visits=2, max_per_night=2, min_spacing_min=60), TargetRules()],
+        exposure_s=[600.0], observable=np.ones((1, 2, n), bool),
+        bits=np.stack([0.1 + peak, np.full(n, 0.5)])[None], sigma=np.ones((1, 2, n)),
+        airmass=np.full((2, n), 1.2), altitude_deg=np.full((2, n), 60.0),
+        azimuth_deg=np.zeros((2, n)), bjd_tdb=np.broadcast_to(times, (2, n)).copy(),
+        overhead_s=60.0, keep_per_night=40, thin_spacing_min=5)
+    surrogate = additive_surrogate(problem)
+    empty = assemble_plan(problem, [], strategy="greedy", objective=0.0)
+    plan = joint_plan(problem, surrogate, time_limit_s=5, workers=1, focus_per_group=3,
+                      hint=empty)
+    starts = sorted(v.start_jd for v in plan.visits if v.target == "needy")
+    assert len(starts) == 2 and (starts[1] - starts[0]) * 1440.0 >= 60 - 1e-6
 
 
 def test_greedy_and_cadence_serve_the_must_do_window():

@@ -378,9 +378,15 @@ def joint_plan(
     if focus_per_group is not None:
         if not 0.0 < focus_share < 1.0:
             raise ValueError(f"focus_share must lie strictly between 0 and 1, got {focus_share}.")
-        first = joint_plan(problem, surrogate, time_limit_s=focus_share * time_limit_s,
-                           seed=seed, workers=workers, hint=hint, keep_per_group=focus_per_group,
-                           gap_limit=max(gap_limit, FOCUS_GAP_LIMIT))
+        try:
+            first = joint_plan(problem, surrogate, time_limit_s=focus_share * time_limit_s,
+                               seed=seed, workers=workers, hint=hint,
+                               keep_per_group=focus_per_group,
+                               gap_limit=max(gap_limit, FOCUS_GAP_LIMIT))
+        except PlanError:
+            # The reduced model can lack starts a rule needs (the whole problem may still
+            # have a plan): go on from the hint; the second stage decides, or names the rule.
+            first = dataclasses.replace(hint, status="HINT_KEPT")
         plan = joint_plan(problem, surrogate, time_limit_s=(1.0 - focus_share) * time_limit_s,
                           seed=seed, workers=workers, hint=first, keep_per_group=keep_per_group,
                           gap_limit=gap_limit)
