@@ -120,6 +120,14 @@ def test_printed_schedule_headers_and_totals(planned):
         sunset = dt.datetime.fromisoformat(night.sunset_utc.replace("Z", "+00:00"))
         assert f"sunset {sunset.astimezone(zone):%H:%M} ({sunset:%H:%M} UTC)" in text
     nightly = [float(x) for x in re.findall(r"^night total: .*; ([\d.]+) bits$", text, re.M)]
+    dark = re.findall(r"^ +dark (\d+)h(\d\d)m = exposing (\d+)h(\d\d)m \+ overheads "
+                      r"(\d+)h(\d\d)m \+ idle (\d+)h(\d\d)m$", text, re.M)
+    assert len(dark) == len(plan_file.nights)
+    for night, parts in zip(plan_file.nights, dark, strict=True):
+        minutes = [60 * int(h) + int(m) for h, m in zip(parts[::2], parts[1::2], strict=True)]
+        assert minutes[0] == sum(minutes[1:])  # the parts add up to the dark window
+        window = (parse_utc(night.dark_end_utc) - parse_utc(night.dark_start_utc)) * 1440.0
+        assert minutes[0] == round(window)
     assert len(nightly) == len(plan_file.nights)
     assert sum(nightly) == pytest.approx(plan_file.total_bits, abs=2e-3 * len(nightly))
     assert f"exact joint score {plan_file.total_bits:.2f} bits" in " ".join(text.split())

@@ -341,3 +341,56 @@ def test_nothing_left_to_plan_is_found_before_any_fitting_or_solving(base):
         pipeline.make_plan(run)
     spans = [(0.2, 0.5), (0.4, 0.6), (2.0, 3.0)]  # overlapping and outside
     assert pipeline.uncovered_d(0.0, 1.0, spans) == pytest.approx(0.6)
+
+
+def _night_parts(night, visits):
+    """Seconds of one night's dark window that are executed, lost, planned or idle.
+
+    Reference: the definition, by a one-second sweep of the dark window (each second counted
+    once: a visit's overheads and exposure, then lost time, then idle).
+    """
+    a0, b0 = parse_utc(night.dark_start_utc), parse_utc(night.dark_end_utc)
+    seconds = np.arange(int(round((b0 - a0) * 86400.0))) + 0.5
+    label = np.full(seconds.size, "idle", dtype=object)
+    for lo, hi in night.lost:
+        label[(seconds >= (parse_utc(lo) - a0) * 86400) & (seconds < (parse_utc(hi) - a0) * 86400)
+              ] = "lost"
+    for v in visits:
+        lo = (parse_utc(v.start_utc) - v.slew_s / 86400.0 - a0) * 86400.0
+        hi = (parse_utc(v.end_utc) - a0) * 86400.0
+        label[(seconds >= lo) & (seconds < hi)] = "planned" if v.status == "planned" else "done"
+    return {k: int(np.sum(label == k)) for k in ("done", "lost", "planned", "idle")}
+
+
+def test_a_mid_night_replan_accounts_for_the_whole_dark_window(base):
+    # --now in the middle of night 1 with its second half lost: every night's executed + lost +
+    # planned + idle is its dark window, in the schedule as in the plan file; the time between
+    # executed visits is idle, not lost.
+    import re
+
+    from planner.workflow.report import render_schedule
+
+    scenario, posteriors, old, _ = base
+    night = old.nights[0]
+    a0, b0 = parse_utc(night.dark_start_utc), parse_utc(night.dark_end_utc)
+    now = format_utc(a0 + 0.5 * (b0 - a0))
+    lost = f"{format_utc(a0 + 0.6 * (b0 - a0))}/{format_utc(b0)}"
+    request = replan.parse_request(old, scenario, now=now, lost=[lost])
+    new = replan.replan(scenario, posteriors, old, request).plan_file
+    text = render_schedule(new)
+    joined = re.sub(r"\n    (?=\S)", " ", text)  # a night total's wrapped lines
+    totals = re.findall(r"^ +dark (\d+)h(\d\d)m = (.*)$", joined, flags=re.M)
+    assert len(totals) == len(new.nights)
+    for night, (hours, minutes, parts) in zip(new.nights, totals, strict=True):
+        visits = [v for v in new.visits if v.night == night.date]
+        sweep = _night_parts(night, visits)
+        window = (parse_utc(night.dark_end_utc) - parse_utc(night.dark_start_utc)) * 86400.0
+        assert abs(sum(sweep.values()) - window) <= 1.0
+        shown = [60 * int(h) + int(m) for h, m in re.findall(r"(\d+)h(\d\d)m", parts)]
+        assert sum(shown) == 60 * int(hours) + int(minutes) == round(window / 60.0)
+    first = text.split("== night 2")[0].split("== night 1")[1]
+    executed = [k for k, line in enumerate(first.splitlines()) if line.startswith("*")]
+    if len(executed) >= 2:
+        between = first.splitlines()[executed[0]:executed[-1]]
+        assert not any(" lost " in line for line in between)
+    assert new.nights[0].past and new.nights[0].lost  # the past is kept apart from lost time

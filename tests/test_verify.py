@@ -104,3 +104,57 @@ def test_exact_sky_matches_pointing_at():
     assert np.all((moon_ill >= 0) & (moon_ill <= 1)) and np.all(np.abs(moon_alt) <= 90)
     assert np.all(np.isnan(pointing_at(site, ra[:3], dec[:3], t[:3], moon=False)
                            .moon_separation_deg))
+
+
+def _rules(problem, s, **changes):
+    rules = list(problem.rules)
+    rules[s] = dataclasses.replace(rules[s], **changes)
+    return dataclasses.replace(problem, rules=tuple(rules))
+
+
+def test_each_check_is_triggered_by_a_plan_built_to_break_it(case):
+    # One plan, each limit or rule tightened until it breaks: the verifier must name each one.
+    inst, plans = case
+    plan = plans["joint"]
+    site, nights = inst.sky.site, inst.sky.nights
+
+    def problems(problem=inst.problem, site=site, constraints=inst.constraints):
+        return verify_plan(plan, problem, site=site, nights=nights, ra_deg=inst.ra_deg,
+                           dec_deg=inst.dec_deg, constraints=constraints,
+                           mount=inst.mount).problems
+
+    assert not problems()
+    # Altitude: a ceiling of 0.1 deg, which every target of the plan stands above.
+    assert any("altitude limit" in p for p in problems(site=dataclasses.replace(
+        site, min_altitude_deg=0.0, max_altitude_deg=0.1)))
+    # Moon: a separation of 180 deg can never be kept while the Moon is up.
+    moon_up = [v for v in plan.visits
+               if any(a <= v.start_jd <= b for n in nights for a, b in n.moon_up)]
+    assert moon_up, "the instance needs a visit with the Moon up"
+    moon = dataclasses.replace(inst.constraints, moon_table=((1.0, 180.0),))
+    assert any("Moon limit" in p for p in problems(constraints=moon))
+    # Blackout over the middle of one exposure.
+    v = plan.visits[0]
+    mid = 0.5 * (v.start_jd + v.end_jd)
+    closed = dataclasses.replace(inst.constraints, blackouts=((mid, mid + 1e-3),))
+    assert any("blackout or reserved" in p for p in problems(constraints=closed))
+    # Visit counts, spacing and windows of the first visit's target.
+    s = inst.problem.target_names.index(v.target)
+    mine = sorted(w.start_jd for w in plan.visits if w.target == v.target)
+    assert len(mine) >= 2, "the instance needs a target with two visits"
+    text = problems(_rules(inst.problem, s, min_visits=len(mine) + 1,
+                           max_visits=len(mine) + 1))
+    assert any("below its minimum" in p for p in text)
+    text = problems(_rules(inst.problem, s, max_visits=len(mine) - 1))
+    assert any("above its maximum" in p for p in text)
+    gap_min = int(np.ceil((mine[1] - mine[0]) * 1440.0)) + 1
+    assert any("closer than" in p for p in problems(_rules(inst.problem, s,
+                                                           min_spacing_min=gap_min)))
+    outside = ((v.end_jd + 0.01, v.end_jd + 0.02),)
+    assert any("outside the target's fixed windows" in p
+               for p in problems(_rules(inst.problem, s, windows_jd=outside)))
+    text = [p for p in problems(_rules(inst.problem, s, must_windows_jd=outside))
+            if "must-do window" in p]
+    assert text
+    # The user wrote UTC times: the message gives UTC and local times, never a Julian date.
+    assert "UTC" in text[0] and "local" in text[0] and "JD" not in text[0]

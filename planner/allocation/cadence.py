@@ -2,7 +2,8 @@
 
 Every night, targets are taken in order of science weight (highest first; ties by name), and
 each gets one exposure of the default option at the open start nearest its lowest airmass of
-the night; a target whose every start is taken or ruled out that night is skipped. This is
+the night (inside its must-do window, when that night holds one not yet served); a target whose
+every start is taken or ruled out that night is skipped. This is
 common practice for RV monitoring programmes, not a published method.
 """
 
@@ -18,6 +19,17 @@ from planner.allocation.problem import Problem
 from planner.allocation.surrogate import Surrogate
 
 __all__ = ["cadence_plan"]
+
+
+def _in_unmet_window(problem: Problem, schedule: Schedule, s: int, idx: np.ndarray) -> np.ndarray:
+    """Mask of candidates ``idx`` inside a must-do window of target ``s`` not yet served."""
+    chosen = np.array([c for c in schedule.chosen if problem.target[c] == s], dtype=np.int64)
+    out = np.zeros(idx.size, dtype=bool)
+    for lo, hi in problem.rules[s].must_windows_jd:
+        if np.any((problem.start_jd(chosen) >= lo) & (problem.end_jd(chosen) <= hi)):
+            continue
+        out |= (problem.start_jd(idx) >= lo) & (problem.end_jd(idx) <= hi)
+    return out
 
 
 def cadence_plan(problem: Problem, surrogate: Surrogate, *, option: int | None = None) -> Plan:
@@ -51,6 +63,8 @@ def cadence_plan(problem: Problem, surrogate: Surrogate, *, option: int | None =
                 continue
             best_airmass = problem.airmass[mine].min()
             ok = mine[schedule.open[mine]]
+            inside = ok[_in_unmet_window(problem, schedule, s, ok)]
+            ok = inside if inside.size else ok
             if ok.size == 0:
                 continue
             v = int(ok[np.argmin(problem.airmass[ok] - best_airmass)])

@@ -134,6 +134,7 @@ def compare_strategies(
     n_outcomes: int = 512,
     verify: Callable[[Plan], object] | None = None,
     focus_per_group: int | None = None,
+    pack: Callable[[Plan], object] | None = None,
 ) -> Comparison:
     """Run cadence, greedy and joint on one problem and score them exactly.
 
@@ -155,6 +156,9 @@ def compare_strategies(
         ``plan -> Verification``; its ``ok`` goes into each row.
     focus_per_group : int, optional
         Passed to :func:`~planner.allocation.joint.joint_plan` (two-stage solve).
+    pack : callable, optional
+        ``plan -> Packing`` (:func:`planner.allocation.packing.pack_plan`), applied to every
+        strategy's plan alike before it is verified and scored on the packing's problem.
 
     Returns
     -------
@@ -169,7 +173,11 @@ def compare_strategies(
                        hint=best_hint, focus_per_group=focus_per_group)
     rows, bits, visits, plans = [], {}, {}, {}
     for plan in (cadence, greedy, joint):
-        score = score_plan(plan, problem, predictors, rng=rng, n_outcomes=n_outcomes)
+        scored = problem
+        if pack is not None:
+            packing = pack(plan)
+            plan, scored = packing.plan, packing.problem
+        score = score_plan(plan, scored, predictors, rng=rng, n_outcomes=n_outcomes)
         verified = None if verify is None else bool(verify(plan).ok)
         rows.append(_row(plan, score, problem, verified))
         bits[plan.strategy] = score.per_target_bits

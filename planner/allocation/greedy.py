@@ -62,20 +62,28 @@ def exact_gain(predictors, *, rng: np.random.Generator, n_outcomes: int = 64) ->
 
 
 def _unmet(problem: Problem, schedule: Schedule, needy: list[int]) -> np.ndarray:
-    """Candidates that serve a target's still-unmet minimum visits or must-do windows."""
+    """Candidates that serve a target's still-unmet must-do windows or minimum visits.
+
+    A target's unmet must-do windows come first: while one is open only the candidates inside
+    it serve the target, so its minimum visits (or its last visit under ``max_visits``) are not
+    spent elsewhere first.
+    """
     serve = np.zeros(problem.n_candidates, dtype=bool)
     chosen = np.array(schedule.chosen, dtype=np.int64)
     start, end = problem.start_jd(chosen), problem.end_jd(chosen)
+    all_start, all_end = problem.start_jd(slice(None)), problem.end_jd(slice(None))
     for s in needy:
         rule = problem.rules[s]
         mine = problem.target == s
-        if schedule.visits[s] < rule.min_visits:
-            serve |= mine
+        windows = np.zeros(problem.n_candidates, dtype=bool)
         for lo, hi in rule.must_windows_jd:
             done = np.any((problem.target[chosen] == s) & (start >= lo) & (end <= hi))
             if not done:
-                serve |= mine & (problem.start_jd(slice(None)) >= lo) & (
-                    problem.end_jd(slice(None)) <= hi)
+                windows |= mine & (all_start >= lo) & (all_end <= hi) & schedule.open
+        if windows.any():
+            serve |= windows
+        elif schedule.visits[s] < rule.min_visits:
+            serve |= mine
     return serve
 
 

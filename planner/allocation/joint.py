@@ -19,6 +19,7 @@ search found nothing in time).
 
 from __future__ import annotations
 
+import dataclasses
 import time
 from dataclasses import dataclass
 
@@ -216,10 +217,7 @@ def solve(
     runtime = time.perf_counter() - t0
     name = solver.StatusName(status)
     if status == cp_model.INFEASIBLE:
-        raise PlanError(
-            "No plan meets every rule (minimum visits, must-do windows or spacing clash with the "
-            "sky limits); relax those rules."
-        )
+        raise PlanError(_infeasible_rule(problem, surrogate))
     if status in (cp_model.OPTIMAL, cp_model.FEASIBLE):
         chosen = np.array([c for c in range(problem.n_candidates) if solver.Value(handles.x[c])],
                           dtype=np.int64)
@@ -247,6 +245,49 @@ def solve(
     )
 
 
+def _infeasible_rule(problem: Problem, surrogate: Surrogate) -> str:
+    """One sentence naming the target and the rule that no plan can meet.
+
+    Each target with required visits is tried alone (its own candidates, time conflicts,
+    spacing and visit rules, every other target's rules dropped); the first whose rules fail
+    alone is named, with the must-do window that has no start inside it if there is one.
+    """
+    from planner.allocation.rules import TargetRules
+    from planner.allocation.verify import when
+
+    for s, rule in enumerate(problem.rules):
+        if rule.min_visits == 0 and not rule.must_windows_jd:
+            continue
+        name = problem.target_names[s]
+        mine = np.flatnonzero(problem.target == s)
+        for lo, hi in rule.must_windows_jd:
+            inside = (problem.start_jd(mine) >= lo) & (problem.end_jd(mine) <= hi)
+            if not inside.any():
+                return (f"target {name!r}: no exposure fits inside its must-do window "
+                        f"{when(lo)} to {when(hi)} within the sky limits; widen the window or "
+                        "drop it.")
+        alone = dataclasses.replace(
+            problem.subset(mine),
+            rules=tuple(r if k == s else TargetRules() for k, r in enumerate(problem.rules)))
+        model, _ = build_model(alone, surrogate.subset(mine))
+        solver = cp_model.CpSolver()
+        solver.parameters.max_time_in_seconds = 10.0
+        solver.parameters.num_workers = 1
+        if solver.Solve(model) == cp_model.INFEASIBLE:
+            wants = [f"min_visits {rule.min_visits}"] if rule.min_visits else []
+            wants += [f"{len(rule.must_windows_jd)} must-do window"
+                      f"{'s' if len(rule.must_windows_jd) != 1 else ''}"] * bool(
+                rule.must_windows_jd)
+            return (f"target {name!r}: its {' with '.join(wants)} cannot be met within the "
+                    f"sky limits, max_visits_per_night {rule.max_per_night} and min_gap_h "
+                    f"{rule.min_spacing_min / 60:g}; relax one of these rules.")
+    needy = [problem.target_names[s] for s, r in enumerate(problem.rules)
+             if r.min_visits or r.must_windows_jd]
+    return (f"No plan meets every rule: the required visits of {', '.join(map(repr, needy))} "
+            "can each be met alone but not together (they need the same time); relax "
+            "min_visits or must_windows of one of them.")
+
+
 def _marginals(problem: Problem, surrogate: Surrogate, chosen: np.ndarray) -> np.ndarray:
     """Surrogate marginal bits of each chosen visit given the earlier ones of its target."""
     chosen = np.asarray(chosen, dtype=np.int64)
@@ -258,8 +299,22 @@ def _marginals(problem: Problem, surrogate: Surrogate, chosen: np.ndarray) -> np
     return out
 
 
+def _must_window_candidates(problem: Problem) -> np.ndarray:
+    """Candidates lying inside one of their target's must-do windows."""
+    serve = np.zeros(problem.n_candidates, dtype=bool)
+    start, end = problem.start_jd(slice(None)), problem.end_jd(slice(None))
+    for s, rule in enumerate(problem.rules):
+        for lo, hi in rule.must_windows_jd:
+            serve |= (problem.target == s) & (start >= lo) & (end <= hi)
+    return np.flatnonzero(serve)
+
+
 def _best_per_group(problem: Problem, surrogate: Surrogate, keep: int, extra) -> np.ndarray:
-    """Return the ``keep`` most valuable candidates per (target, night, option), plus extra."""
+    """Return the ``keep`` most valuable candidates per (target, night, option), plus extra.
+
+    Every candidate inside a must-do window is kept too: the most valuable starts of a night
+    need not include one inside the window, and without one the reduced model has no plan.
+    """
     group = (problem.target * problem.n_nights + problem.night) * problem.exposure_s.size \
         + problem.option
     order = np.lexsort((-surrogate.unary, group))
@@ -268,6 +323,7 @@ def _best_per_group(problem: Problem, surrogate: Surrogate, keep: int, extra) ->
     chosen = np.zeros(problem.n_candidates, dtype=bool)
     chosen[order[rank < keep]] = True
     chosen[np.asarray(extra, dtype=np.int64)] = True
+    chosen[_must_window_candidates(problem)] = True
     return np.flatnonzero(chosen)
 
 
@@ -322,9 +378,15 @@ def joint_plan(
     if focus_per_group is not None:
         if not 0.0 < focus_share < 1.0:
             raise ValueError(f"focus_share must lie strictly between 0 and 1, got {focus_share}.")
-        first = joint_plan(problem, surrogate, time_limit_s=focus_share * time_limit_s,
-                           seed=seed, workers=workers, hint=hint, keep_per_group=focus_per_group,
-                           gap_limit=max(gap_limit, FOCUS_GAP_LIMIT))
+        try:
+            first = joint_plan(problem, surrogate, time_limit_s=focus_share * time_limit_s,
+                               seed=seed, workers=workers, hint=hint,
+                               keep_per_group=focus_per_group,
+                               gap_limit=max(gap_limit, FOCUS_GAP_LIMIT))
+        except PlanError:
+            # The reduced model can lack starts a rule needs (the whole problem may still
+            # have a plan): go on from the hint; the second stage decides, or names the rule.
+            first = dataclasses.replace(hint, status="HINT_KEPT")
         plan = joint_plan(problem, surrogate, time_limit_s=(1.0 - focus_share) * time_limit_s,
                           seed=seed, workers=workers, hint=first, keep_per_group=keep_per_group,
                           gap_limit=gap_limit)

@@ -20,6 +20,7 @@ from dataclasses import dataclass, fields
 import numpy as np
 
 from planner.allocation.rules import TargetRules, validate_rules
+from planner.allocation.timeline import Timeline
 from planner.errors import PlanError
 
 __all__ = ["Problem", "build_problem", "mount_slew", "problem_from_sky"]
@@ -85,6 +86,10 @@ class Problem:
         Telescope position at the exposure's start and end [deg].
     bjd_mid : ndarray, shape (n_candidates,)
         Mid-exposure barycentric time of the target, BJD_TDB [d].
+    timeline : Timeline or None
+        The grid arrays the candidates came from, for starts off the grid (packing); candidates
+        added by :func:`planner.allocation.packing.extend_problem` start off the grid
+        (``start_jd_grid`` exact, ``start`` the minute it falls in).
     """
 
     epoch_jd: float
@@ -114,6 +119,7 @@ class Problem:
     alt_end: np.ndarray
     az_end: np.ndarray
     bjd_mid: np.ndarray
+    timeline: Timeline | None = None
 
     def __post_init__(self) -> None:
         # The record is immutable, its arrays too: caches keyed on a Problem (the largest slew
@@ -358,6 +364,7 @@ def build_problem(
     nights_of = np.clip(night_index, 0, len(dark_jd) - 1)
 
     parts = {k: [] for k in ("target", "night", "option", "time")}
+    allowed = np.zeros((n_opt, n_tgt, n_times), dtype=bool)
     for o in range(n_opt):
         end = times + exposure[o] / 86400.0
         ok_time = in_night & (times >= dark_jd[nights_of, 0] - 1e-9) & (
@@ -370,6 +377,7 @@ def build_problem(
             rule = rules[s]
             ok = observable[o, s] & ok_time
             ok &= _inside_any(times, end, np.asarray(rule.windows_jd, float).reshape(-1, 2))
+            allowed[o, s] = ok
             must = np.asarray(rule.must_windows_jd, float).reshape(-1, 2)
             for n in np.unique(night_index[ok]):
                 idx = np.flatnonzero(ok & (night_index == n))
@@ -430,6 +438,10 @@ def build_problem(
         alt_end=alt_end[:, 0],
         az_end=az_end[:, 0],
         bjd_mid=(1 - w) * bj[tgt, mid_lo] + w * bj[tgt, mid_hi],
+        timeline=Timeline(times_jd=times, night_index=night_index, grid_min=grid_min,
+                          allowed=allowed, bits=np.nan_to_num(bits),
+                          sigma=np.asarray(sigma, float), airmass=am,
+                          altitude_deg=alt, azimuth_deg=az, bjd_tdb=bj, exposure_s=exposure),
     )
 
 

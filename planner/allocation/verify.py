@@ -29,7 +29,7 @@ from planner.allocation.plan import Plan
 from planner.allocation.problem import Problem
 from planner.errors import PlanError
 
-__all__ = ["Verification", "require_valid", "verify_plan"]
+__all__ = ["Verification", "require_valid", "verify_plan", "when"]
 
 
 @dataclass(frozen=True)
@@ -41,7 +41,7 @@ class Verification:
     ok : bool
         True when no problem was found.
     problems : tuple of str
-        One sentence per violation, naming the visit (target, night, UTC JD).
+        One sentence per violation, naming the visit (target, night, UTC and local time).
     n_checked : int
         Number of visits checked.
     """
@@ -85,8 +85,31 @@ def _exact_sky(site, ra_deg, dec_deg, times_jd):
             illuminated_fraction(sun_geo, moon_geo))
 
 
-def _label(v) -> str:
-    return f"visit of {v.target!r} on {v.night} at JD {v.start_jd:.5f}"
+def when(jd: float, timezone: str | None = None) -> str:
+    """Return a JD (UTC) as ``2027-10-05 01:00:00 UTC (03:00:00 local)``, to the second.
+
+    Parameters
+    ----------
+    jd : float
+        JD, UTC scale [d].
+    timezone : str, optional
+        IANA zone of the site; without it only UTC is given.
+    """
+    import datetime as _dt
+    from zoneinfo import ZoneInfo
+
+    moment = (_dt.datetime(2000, 1, 1, 12, tzinfo=_dt.timezone.utc)
+              + _dt.timedelta(seconds=round((jd - 2451545.0) * 86400.0)))
+    text = f"{moment:%Y-%m-%d %H:%M:%S} UTC"
+    if timezone:
+        local = moment.astimezone(ZoneInfo(timezone))
+        day = "" if local.date() == moment.date() else f"{local:%Y-%m-%d} "
+        text += f" ({day}{local:%H:%M:%S} local)"
+    return text
+
+
+def _label(v, timezone: str | None = None) -> str:
+    return f"visit of {v.target!r} on {v.night} at {when(v.start_jd, timezone)}"
 
 
 def verify_plan(
@@ -135,6 +158,8 @@ def verify_plan(
     from planner.sky.tracks import pointing_at
 
     problems: list[str] = []
+    zone = getattr(site, "timezone", None)
+    label = lambda v: _label(v, zone)  # noqa: E731
     index = {name: k for k, name in enumerate(problem.target_names)}
     night_of = {n.date: n for n in nights}
     ra, dec = np.asarray(ra_deg, float), np.asarray(dec_deg, float)
@@ -143,9 +168,9 @@ def verify_plan(
     visits = sorted(plan.visits, key=lambda v: v.start_jd)
     for v in visits:
         if v.target not in index:
-            problems.append(f"{_label(v)}: the target is not in the problem.")
+            problems.append(f"{label(v)}: the target is not in the problem.")
         elif v.night not in night_of:
-            problems.append(f"{_label(v)}: the night is not in the run.")
+            problems.append(f"{label(v)}: the night is not in the run.")
     if problems:
         return Verification(False, tuple(problems), len(visits))
     if not visits:  # an empty plan breaks no rule
@@ -172,18 +197,18 @@ def verify_plan(
         here = v_all == k
         night = night_of[v.night]
         if v.start_jd < night.dark_start_jd - tol_d or v.end_jd > night.dark_end_jd + tol_d:
-            problems.append(f"{_label(v)}: the exposure is not inside the night's dark window.")
+            problems.append(f"{label(v)}: the exposure is not inside the night's dark window.")
         opt_ok = 0 <= v.option < problem.exposure_s.size
         want = problem.exposure_s[v.option] if opt_ok else np.nan
         if not (abs((v.end_jd - v.start_jd) * 86400.0 - v.exposure_s) <= time_tol_s
                 and abs(v.exposure_s - want) <= 1e-6):
-            problems.append(f"{_label(v)}: its length does not match its exposure option.")
+            problems.append(f"{label(v)}: its length does not match its exposure option.")
         for mask, what in ((bad_alt, "altitude"), (bad_am, "airmass"), (bad_moon, "Moon")):
             if np.any(mask[here]):
-                problems.append(f"{_label(v)}: the {what} limit is broken during the exposure.")
+                problems.append(f"{label(v)}: the {what} limit is broken during the exposure.")
         for a, b in blocks:
             if v.start_jd - overhead / 86400.0 < b - tol_d and v.end_jd > a + tol_d:
-                problems.append(f"{_label(v)}: it overlaps a blackout or reserved block.")
+                problems.append(f"{label(v)}: it overlaps a blackout or reserved block.")
 
     # Order, overlaps and slews between neighbours of the same night.
     pairs = [(a, b) for a, b in zip(visits, visits[1:], strict=False) if a.night == b.night]
@@ -200,17 +225,17 @@ def verify_plan(
                               ends.altitude_deg[m:], ends.azimuth_deg[m:])
     for (prev, nxt), gap, need in zip(pairs, gaps, need_s, strict=True):
         if gap < -time_tol_s:
-            problems.append(f"{_label(nxt)}: it overlaps the previous exposure.")
+            problems.append(f"{label(nxt)}: it overlaps the previous exposure.")
         elif gap < need - time_tol_s:
             problems.append(
-                f"{_label(nxt)}: the gap before it is {gap:.0f} s but the slew and overhead "
+                f"{label(nxt)}: the gap before it is {gap:.0f} s but the slew and overhead "
                 f"from {prev.target!r} need {need:.0f} s."
             )
-    problems.extend(_rule_problems(visits, problem))
+    problems.extend(_rule_problems(visits, problem, zone))
     return Verification(not problems, tuple(problems), len(visits))
 
 
-def _rule_problems(visits, problem: Problem) -> list[str]:
+def _rule_problems(visits, problem: Problem, timezone: str | None = None) -> list[str]:
     """Violations of the per-target rules."""
     out = []
     by_target = defaultdict(list)
@@ -227,16 +252,20 @@ def _rule_problems(visits, problem: Problem) -> list[str]:
                 out.append(f"target {name!r}: {count} visits on {night}, above its nightly "
                            f"maximum {rule.max_per_night}.")
         starts = sorted(v.start_jd for v in mine)
-        if rule.min_spacing_min > 0 and np.any(np.diff(starts) * 1440.0 < rule.min_spacing_min
-                                               - 1e-6):
-            out.append(f"target {name!r}: two visits closer than {rule.min_spacing_min} min.")
+        close = np.flatnonzero(np.diff(starts) * 1440.0 < rule.min_spacing_min - 1e-6)
+        if rule.min_spacing_min > 0 and close.size:
+            k = int(close[0])
+            out.append(f"target {name!r}: the visits at {when(starts[k], timezone)} and "
+                       f"{when(starts[k + 1], timezone)} are closer than its min_gap_h "
+                       f"({rule.min_spacing_min} min).")
         for v in mine:
             if rule.windows_jd and not any(a <= v.start_jd and v.end_jd <= b
                                            for a, b in rule.windows_jd):
-                out.append(f"{_label(v)}: outside the target's fixed windows.")
+                out.append(f"{_label(v, timezone)}: outside the target's fixed windows.")
         for a, b in rule.must_windows_jd:
             if not any(a <= v.start_jd and v.end_jd <= b for v in mine):
-                out.append(f"target {name!r}: no visit inside its must-do window {a:.5f}-{b:.5f}.")
+                out.append(f"target {name!r}: no visit inside its must-do window "
+                           f"{when(a, timezone)} to {when(b, timezone)}.")
     return out
 
 

@@ -108,6 +108,13 @@ class NightSummary:
         Intervals of the dark window with the Moon above the horizon.
     lost : tuple of (str, str)
         Intervals of the dark window given up (weather, engineering) in a re-plan.
+    idle : tuple of (str, str, str)
+        Idle stretches of the planned part of the dark window longer than a minute: start, end
+        and why the telescope waits (``window``, ``waiting for a better moment`` or ``nothing
+        observable``; :mod:`planner.allocation.idle`).
+    past : tuple of (str, str)
+        The part of the dark window already past when a re-plan was made (``--now``): what
+        happened there is executed or idle, never re-planned.
     """
 
     date: str
@@ -118,6 +125,8 @@ class NightSummary:
     moon_illumination: float
     moon_up: tuple[tuple[str, str], ...] = ()
     lost: tuple[tuple[str, str], ...] = ()
+    idle: tuple[tuple[str, str, str], ...] = ()
+    past: tuple[tuple[str, str], ...] = ()
 
 
 @dataclass(frozen=True)
@@ -333,7 +342,8 @@ def read_plan(path: str | Path) -> PlanFile:
         raise PlanError(f"{where}: not a nightbits plan file of format version {FORMAT_VERSION}; "
                         "write it again with `nightbits plan`.")
     top = _record(PlanFile, raw, where, skip=("nights", "visits"), pairs=("moon_table",))
-    nights = tuple(_record(NightSummary, n, f"{where}: nights[{i}]", pairs=("moon_up", "lost"))
+    nights = tuple(_record(NightSummary, n, f"{where}: nights[{i}]",
+                           pairs=("moon_up", "lost", "idle", "past"))
                    for i, n in enumerate(_list(raw, "nights", where)))
     visits = tuple(_record(ScheduledVisit, v, f"{where}: visits[{i}]")
                    for i, v in enumerate(_list(raw, "visits", where)))

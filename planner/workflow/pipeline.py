@@ -21,6 +21,7 @@ The curves saved beside a plan for re-planning are in :mod:`planner.workflow.sav
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -58,6 +59,7 @@ __all__ = [
     "load",
     "load_curves",
     "make_plan",
+    "pack",
     "physical_setup",
     "prepare",
     "require_room",
@@ -122,6 +124,42 @@ def run_strategy(run: PreparedRun, strategy: str, time_limit_s: float | None = N
     raise PlanError(f"unknown strategy {strategy!r}; use joint, greedy or cadence.")
 
 
+def pack(run: PreparedRun, plan):
+    """Pack a strategy's plan back to back and refill the freed time (same for every strategy).
+
+    The refill values visits by the surrogate's marginal gain
+    (:func:`planner.allocation.packing.surrogate_refill_gain`; the exact conditional gain was
+    measured too, docs/decisions.md); the cadence plan refills with its own exposure option and
+    at most one visit per target and night. The joint plan stays at least its greedy hint after
+    packing: the greedy plan is packed too and the better of the two on the surrogate is kept
+    (greedy's plan leaves more room to refill).
+
+    Returns
+    -------
+    planner.allocation.packing.Packing
+    """
+    from planner.allocation.greedy import greedy_plan
+    from planner.allocation.packing import Packing, pack_plan, surrogate_refill_gain
+
+    gain = surrogate_refill_gain(run.problem, run.surrogate)
+    cadence = plan.strategy == "cadence"
+    packing = pack_plan(run.problem, run.surrogate, plan, gain=gain,
+                        options=[run.problem.default_option] if cadence else None,
+                        max_per_night=1 if cadence else None)
+    if plan.strategy != "joint":
+        return packing
+    hint = dataclasses.replace(greedy_plan(run.problem, run.surrogate), strategy="joint",
+                               bound=plan.bound, gap=plan.gap, status=plan.status,
+                               runtime_s=plan.runtime_s, seed=plan.seed, stats=plan.stats)
+    other = pack_plan(run.problem, run.surrogate, hint, gain=gain)
+    if other.plan.objective <= packing.plan.objective:
+        return packing
+    stats = other.plan.stats + (("packed_from_greedy", 1.0),)
+    return Packing(other.problem, other.surrogate,
+                   dataclasses.replace(other.plan, stats=stats),
+                   other.moved, other.added)
+
+
 def verify(run: PreparedRun, plan):
     """Check a plan from scratch against the true nights, sky, mount and rules."""
     from planner.allocation.verify import verify_plan
@@ -168,8 +206,12 @@ def require_room(run: PreparedRun) -> None:
 
 
 def make_plan(run: PreparedRun, strategy: str | None = None,
-              time_limit_s: float | None = None, notes=()) -> PlanResult:
-    """Plan the run with one strategy, verify it, score it exactly and build its plan file.
+              time_limit_s: float | None = None, notes=(), now_jd: float | None = None
+              ) -> PlanResult:
+    """Plan the run with one strategy, pack it, verify it, score it exactly, build its file.
+
+    ``now_jd`` (a re-plan at the telescope) marks the part of each night already past in the
+    plan file, so the schedule counts it as executed or idle rather than lost.
 
     Raises
     ------
@@ -181,7 +223,9 @@ def make_plan(run: PreparedRun, strategy: str | None = None,
 
     require_room(run)
     strategy = strategy or run.scenario.solver.strategy
-    plan = run_strategy(run, strategy, time_limit_s)
+    packing = pack(run, run_strategy(run, strategy, time_limit_s))
+    run = dataclasses.replace(run, problem=packing.problem, surrogate=packing.surrogate)
+    plan = packing.plan
     verification = verify(run, plan)
     require_valid(verification)
     marginals, target_bits = exact_marginals(run, plan)
@@ -190,7 +234,7 @@ def make_plan(run: PreparedRun, strategy: str | None = None,
               f"{plan.runtime_s:.1f} s; independent feasibility check passed "
               f"({verification.n_checked} exposures)."]
     plan_file = build_plan_file(run, plan, marginals, target_bits, total,
-                                notes=tuple(status) + tuple(notes))
+                                notes=tuple(status) + tuple(notes), now_jd=now_jd)
     return PlanResult(plan=plan, plan_file=plan_file, verification=verification, run=run)
 
 
@@ -224,7 +268,7 @@ def compare(run: PreparedRun, time_limit_s: float | None = None) -> ComparisonRe
     comparison = compare_strategies(
         run.problem, run.surrogate, run.predictors, rng=np.random.default_rng(solver.seed),
         time_limit_s=limit, seed=solver.seed, workers=solver.workers, exact_greedy=False,
-        focus_per_group=JOINT_FOCUS_PER_GROUP,
+        focus_per_group=JOINT_FOCUS_PER_GROUP, pack=lambda plan: pack(run, plan),
         verify=lambda plan: verify(run, plan))
     lines = [f"{'strategy':<9} {'exposures':>9} {'stars':>5} {'exact bits':>15} "
              f"{'bits/dark h':>11} {'slew h':>6} {'idle h':>6} {'runtime s':>9}  verified"]

@@ -68,13 +68,71 @@ def exact_marginals(run: PreparedRun, plan, n_outcomes: int = 2048):
     return marginals, target_bits
 
 
-def build_plan_file(run: PreparedRun, plan, marginals, target_bits, total_bits, notes=()):
+def _night_spans(run: PreparedRun, night, now_jd):
+    """Lost and past spans of one night, clipped to its dark window (UTC text pairs).
+
+    The past (``now_jd``, a re-plan at the telescope) is closed like lost time when planning,
+    but it is not lost: what happened there is executed or idle.
+    """
+    from planner.workflow.outputs import format_utc
+
+    a0, b0 = night.dark_start_jd, night.dark_end_jd
+    past = () if now_jd is None or now_jd <= a0 else ((a0, min(now_jd, b0)),)
+    lost = []
+    for a, b in run.lost_jd:
+        if now_jd is not None and b == now_jd and a < a0:
+            continue  # the span re-planning closed as the past
+        if a < b0 and b > a0:
+            lost.append((max(a, a0), min(b, b0)))
+    text = lambda spans: tuple((format_utc(a), format_utc(b)) for a, b in spans)  # noqa: E731
+    return text(lost), text(past)
+
+
+def _idle_by_night(run: PreparedRun, plan, idle_gaps) -> dict:
+    """Idle stretches with their reasons per night, stretched to the true dark window.
+
+    The plan uses each night's dark window shrunk to the whole-minute run grid; the minute or
+    two at either edge is a window the planner cannot use, and joins the stretch next to it.
+    """
+    from planner.workflow.outputs import format_utc
+
+    cap = 1 if plan.strategy == "cadence" else None
+    gaps: dict = {}
+    for gap in idle_gaps(run.problem, plan, max_per_night=cap):
+        gaps.setdefault(gap.night, []).append([gap.start_jd, gap.end_jd, gap.reason])
+    out = {}
+    for true, grid in zip(run.nights, run.aligned, strict=True):
+        mine = gaps.get(true.date, [])
+        if grid.dark_start_jd > true.dark_start_jd:
+            if mine and abs(mine[0][0] - grid.dark_start_jd) < 1e-9:
+                mine[0][0] = true.dark_start_jd
+            else:
+                mine.insert(0, [true.dark_start_jd, grid.dark_start_jd, "window"])
+        if grid.dark_end_jd < true.dark_end_jd:
+            if mine and abs(mine[-1][1] - grid.dark_end_jd) < 1e-9:
+                mine[-1][1] = true.dark_end_jd
+            else:
+                mine.append([grid.dark_end_jd, true.dark_end_jd, "window"])
+        out[true.date] = [(format_utc(a), format_utc(b), why) for a, b, why in mine]
+    return out
+
+
+def build_plan_file(run: PreparedRun, plan, marginals, target_bits, total_bits, notes=(),
+                    now_jd=None):
     """Turn a plan into the plan file, with the exact pointing at start and end.
 
-    The record is :class:`planner.workflow.outputs.PlanFile`.
+    The record is :class:`planner.workflow.outputs.PlanFile`; each night carries its idle
+    stretches with their reasons (:func:`planner.allocation.idle.idle_gaps`, on the planned
+    part of the night) and, after a re-plan at ``now_jd``, the part already past.
     """
+    from planner.allocation.idle import idle_gaps
     from planner.sky.tracks import pointing_at
-    from planner.workflow.outputs import NightSummary, PlanFile, ScheduledVisit, format_utc
+    from planner.workflow.outputs import (
+        NightSummary,
+        PlanFile,
+        ScheduledVisit,
+        format_utc,
+    )
 
     scenario = run.scenario
     by_id = {t.id: t for t in scenario.targets}
@@ -95,14 +153,18 @@ def build_plan_file(run: PreparedRun, plan, marginals, target_bits, total_bits, 
                 dec_deg=float(dec[k])))
     kept = [v for v in run.done]
     all_visits = sorted(kept + visits, key=lambda v: v.start_utc)
-    nights = tuple(NightSummary(
-        date=n.date, sunset_utc=format_utc(n.sunset_jd), dark_start_utc=format_utc(n.dark_start_jd),
-        dark_end_utc=format_utc(n.dark_end_jd), sunrise_utc=format_utc(n.sunrise_jd),
-        moon_illumination=round(float(n.moon_illumination), 3),
-        moon_up=tuple((format_utc(a), format_utc(b)) for a, b in n.moon_up),
-        lost=tuple((format_utc(max(a, n.dark_start_jd)), format_utc(min(b, n.dark_end_jd)))
-                   for a, b in run.lost_jd if a < n.dark_end_jd and b > n.dark_start_jd))
-        for n in run.nights)
+    idle = _idle_by_night(run, plan, idle_gaps)
+    nights = []
+    for n in run.nights:
+        lost, past = _night_spans(run, n, now_jd)
+        nights.append(NightSummary(
+            date=n.date, sunset_utc=format_utc(n.sunset_jd),
+            dark_start_utc=format_utc(n.dark_start_jd), dark_end_utc=format_utc(n.dark_end_jd),
+            sunrise_utc=format_utc(n.sunrise_jd),
+            moon_illumination=round(float(n.moon_illumination), 3),
+            moon_up=tuple((format_utc(a), format_utc(b)) for a, b in n.moon_up),
+            lost=lost, idle=tuple(idle.get(n.date, ())), past=past))
+    nights = tuple(nights)
     done_bits = {}
     for v in kept:
         done_bits[v.target] = done_bits.get(v.target, 0.0) + v.expected_bits

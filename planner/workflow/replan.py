@@ -197,8 +197,8 @@ def _lost_items(old: PlanFile, lost) -> tuple[list, list]:
             dates = ", ".join(nights)
             raise PlanError(f"--lost {text}: not a night of this plan ({dates}) nor a UTC "
                             "interval START/END such as 2027-10-06T02:00Z/2027-10-06T04:30Z.")
-    for night in old.nights:  # what the plan file already gave up
-        spans.extend((parse_utc(a), parse_utc(b)) for a, b in night.lost)
+    for night in old.nights:  # what the plan file already gave up, and what is already past
+        spans.extend((parse_utc(a), parse_utc(b)) for a, b in night.lost + night.past)
     return spans, labels
 
 
@@ -351,7 +351,7 @@ def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
     run = pipeline.prepare(scenario, posteriors, lost_jd=request.lost_jd, done=done,
                            strict=False, reuse=reuse)
     limit = scenario.solver.replan_time_limit_s if time_limit_s is None else time_limit_s
-    result = pipeline.make_plan(run, strategy or old.strategy, limit)
+    result = pipeline.make_plan(run, strategy or old.strategy, limit, now_jd=request.now_jd)
     changes = describe_changes(old, result.plan_file, request, updates)
     return ReplanResult(plan_file=result.plan_file, changes=changes, plan=result.plan, run=run,
                         updates=updates)

@@ -5,10 +5,13 @@ Layout, at most 100 columns, no colour:
 * a run header: title, strategy, site, limits and the safety caution;
 * per night a header with the local evening date, sunset, the dark window (start and end),
   sunrise and the Moon (illuminated fraction and when it is up), every time local then UTC;
-* one line per exposure in time order: local and UTC start, target, exposure, airmass at start
-  and end, Moon separation, slew before it, marginal expected bits and the running total;
-  idle gaps and lost time as lines of their own; a separator at every local hour;
-* a total per night and for the run.
+* one line per exposure in time order: local time the slew starts, local and UTC time the
+  shutter opens (to the second), target, exposure, airmass at start and end, Moon separation,
+  overheads before it (slew, settling, acquisition and the previous exposure's readout),
+  marginal expected bits and the running total; every idle stretch over a minute and lost
+  time as lines of their own, idle with its reason; a separator at every local hour;
+* a total per night splitting its dark window into exposing, overheads and idle (and lost,
+  and executed after a re-plan), the parts adding up to the dark window; a total for the run.
 
 Only the plan file is read, so a schedule prints the same from plan.json as from the planner.
 """
@@ -32,10 +35,10 @@ CAUTION = ("CAUTION: this schedule does not replace the observatory's own safety
            "avoidance, wind and humidity limits, instrument limits); they always take precedence.")
 
 #: Idle stretches shorter than this are not shown as lines of their own [min].
-MIN_IDLE_MIN = 3.0
+MIN_IDLE_MIN = 1.0
 
-_COLUMNS = (f"{'':1}{'local':>5}  {'UTC':>5}  {'target':<16} {'exp s':>6}  {'airmass':>11}  "
-            f"{'moon':>5}  {'slew s':>6}  {'bits':>7}  {'total':>8}")
+_COLUMNS = (f"{'':1}{'slew':>8} {'open':>8} {'open UTC':>8}  {'target':<16} {'exp s':>5}  "
+            f"{'airmass':>9}  {'moon':>4}  {'ovh s':>5}  {'bits':>7}  {'total':>8}")
 
 
 
@@ -62,11 +65,6 @@ def _both(text: str, zone: ZoneInfo) -> str:
 def _span(start: str, end: str, zone: ZoneInfo) -> str:
     a, b = _moment(start), _moment(end)
     return f"{_hm(a, zone)}-{_hm(b, zone)} ({a.strftime('%H:%M')}-{b.strftime('%H:%M')} UTC)"
-
-
-def _duration(seconds: float) -> str:
-    minutes = int(round(seconds / 60.0))
-    return f"{minutes // 60}h{minutes % 60:02d}m"
 
 
 def _wrap(text: str, indent: str = "") -> list[str]:
@@ -110,9 +108,11 @@ def render_schedule(plan: PlanFile) -> str:
            *_wrap(f"limits: airmass up to {plan.max_airmass:.2f}; dark while the Sun is below "
                   f"{plan.twilight_sun_altitude_deg:.0f} deg; {_moon_rule(plan.moon_table)}",
                   "  "),
-           *_wrap("columns: exposure [s], airmass at start>end, Moon separation [deg], slew and "
-                  "acquisition before the exposure [s], marginal expected bits, running total; "
-                  "idle and lost time on lines of their own", "  "),
+           *_wrap("columns: local time the slew starts, local and UTC time the shutter opens, "
+                  "exposure [s], airmass at start>end, Moon separation [deg], overheads before "
+                  "the exposure [s] (slew, settling, acquisition and the previous exposure's "
+                  "readout), marginal expected bits, running total; idle stretches over a minute "
+                  "(with their reason) and lost time on lines of their own", "  "),
            *_wrap(CAUTION, "  "), ""]
     by_night: dict[str, list[ScheduledVisit]] = {n.date: [] for n in plan.nights}
     for visit in plan.visits:
@@ -151,13 +151,85 @@ def render_schedule(plan: PlanFile) -> str:
     return "\n".join(line.rstrip() for line in out) + "\n"
 
 
+def _hms(moment: _dt.datetime, zone: ZoneInfo | None = None) -> str:
+    return (moment.astimezone(zone) if zone else moment).strftime("%H:%M:%S")
+
+
+def _spans(pairs) -> list[tuple[float, float]]:
+    return [(parse_utc(a), parse_utc(b)) for a, b in pairs]
+
+
+def _account(night, visits) -> dict[str, float]:
+    """Seconds of the dark window per part; the parts add up to the dark window exactly.
+
+    Each instant counts once, in the first part that covers it: exposing, then overheads (the
+    telescope time before each shutter opening), of executed visits apart from planned ones;
+    then lost time; the rest is idle.
+    """
+    d0, d1 = parse_utc(night.dark_start_utc), parse_utc(night.dark_end_utc)
+    layers: list[tuple[str, list]] = [(key, []) for key in (
+        "executed exposing", "executed overheads", "exposing", "overheads")]
+    named = dict(layers)
+    for v in visits:
+        start, end = parse_utc(v.start_utc), parse_utc(v.end_utc)
+        done = "executed " if v.status != "planned" else ""
+        named[done + "exposing"].append((start, end))
+        named[done + "overheads"].append((start - v.slew_s / 86400.0, start))
+    layers.append(("lost", _spans(night.lost)))
+    cuts = sorted({d0, d1, *(t for _, spans in layers for span in spans for t in span
+                             if d0 < t < d1)})
+    out = {key: 0.0 for key, _ in layers} | {"idle": 0.0}
+    for a, b in zip(cuts[:-1], cuts[1:], strict=True):
+        mid = 0.5 * (a + b)
+        key = next((key for key, spans in layers if any(lo <= mid < hi for lo, hi in spans)),
+                   "idle")
+        out[key] += (b - a) * 86400.0
+    return out
+
+
+def _split_minutes(parts: dict[str, float]) -> dict[str, int]:
+    """Whole minutes per part that add up to the rounded whole (largest remainders)."""
+    total = int(round(sum(parts.values()) / 60.0))
+    floors = {k: int(v // 60.0) for k, v in parts.items()}
+    order = sorted(parts, key=lambda k: -(parts[k] / 60.0 - floors[k]))
+    for k in order[:max(0, total - sum(floors.values()))]:
+        floors[k] += 1
+    return floors
+
+
+def _hm_min(minutes: int) -> str:
+    return f"{minutes // 60}h{minutes % 60:02d}m"
+
+
+def _night_total(night, visits, bits: float) -> list[str]:
+    """Return the night's total lines: count and bits, then the dark window's parts."""
+    parts = _account(night, visits)
+    minutes = _split_minutes(parts)
+    planned = [v for v in visits if v.status == "planned"]
+    executed = len(visits) - len(planned)
+    plural = "s" if len(planned) != 1 else ""
+    head = f"night total: {len(planned)} planned exposure{plural}"
+    if executed:
+        head += f", {executed} executed"
+    split = (f"dark {_hm_min(sum(minutes.values()))} = exposing {_hm_min(minutes['exposing'])}"
+             f" + overheads {_hm_min(minutes['overheads'])} + idle {_hm_min(minutes['idle'])}")
+    if minutes["lost"]:
+        split += f" + lost {_hm_min(minutes['lost'])}"
+    if executed:
+        split += (f" + executed {_hm_min(minutes['executed exposing'])} exposing and "
+                  f"{_hm_min(minutes['executed overheads'])} overheads")
+    return [f"{head}; {bits:.3f} bits", *("  " + line for line in _wrap(split, "  "))]
+
+
 def _night_body(night, visits, running, zone):
     """Lines of one night between its header and its total, and the new running total."""
     lines = [_COLUMNS, "-" * len(_COLUMNS)]
-    events = [(parse_utc(a), parse_utc(b), "lost") for a, b in night.lost]
+    lost = _spans(night.lost)
+    past = _spans(night.past)
+    reasons = {parse_utc(a): why for a, _, why in night.idle}
     cursor = parse_utc(night.dark_start_utc)
     last_hour = None
-    exposing = slewing = bits = 0.0
+    bits = 0.0
 
     def separator(jd: float) -> None:
         nonlocal last_hour
@@ -167,52 +239,63 @@ def _night_body(night, visits, running, zone):
             lines.append(f"{'':1}{'-' * 4} {hour.strftime('%H:00')} {'-' * 40}")
         last_hour = hour
 
-    def gap(start: float, end: float) -> None:
-        """Idle and lost lines from ``start`` to ``end``, cut at every local hour."""
-        cuts = {start, end}
+    def hours(start: float, end: float) -> list[float]:
+        """Local hour boundaries strictly inside ``(start, end)``."""
+        out = []
         hour = _moment_jd(start).astimezone(zone).replace(minute=0, second=0, microsecond=0)
         while True:
             hour += _dt.timedelta(hours=1)
             jd = 2451545.0 + (hour - _J2000).total_seconds() / 86400.0
             if jd >= end:
-                break
-            cuts.add(jd)
-        cuts.update(t for a, b, _ in events for t in (a, b) if start < t < end)
-        edges = sorted(cuts)
-        for a, b in zip(edges[:-1], edges[1:], strict=True):
-            lost = any(la <= a and b <= lb for la, lb, _ in events)
-            if not lost and b - a < MIN_IDLE_MIN / 1440.0:
+                return out
+            out.append(jd)
+
+    def stretch(a: float, b: float, label: str, why: str | None = None) -> None:
+        separator(a)
+        moment = _moment_jd(a)
+        seconds = int(round((b - a) * 86400.0))
+        length = f"{seconds // 3600}h{seconds % 3600 // 60:02d}m{seconds % 60:02d}s"
+        tail = f": {why}" if why else ""
+        lines.append(f"{'':1}{_hms(moment, zone):>8} {'':>8} {_hms(moment):>8}  {label} {length}"
+                     f" until {_hms(_moment_jd(b), zone)}{tail}")
+
+    def gap(start: float, end: float) -> None:
+        """Lost and idle lines from ``start`` to ``end`` (lost cut at every local hour)."""
+        cuts = sorted({start, end, *(t for a, b in lost + past for t in (a, b) if start < t < end)})
+        for a, b in zip(cuts[:-1], cuts[1:], strict=True):
+            if any(la <= a and b <= lb for la, lb in lost):
+                edges = [a, *hours(a, b), b]
+                for x, y in zip(edges[:-1], edges[1:], strict=True):
+                    stretch(x, y, "lost")
                 continue
-            separator(a)
-            moment = _moment_jd(a)
-            lines.append(f"{'':1}{_hm(moment, zone):>5}  {moment.strftime('%H:%M'):>5}  "
-                         f"{'lost' if lost else 'idle'} {_duration((b - a) * 86400.0)}")
+            if b - a <= MIN_IDLE_MIN / 1440.0:
+                continue
+            why = reasons.get(a)
+            if why is None:
+                why = ("not observed" if any(pa <= a and b <= pb for pa, pb in past)
+                       else next((r for t, r in reasons.items() if a <= t < b), None))
+            edges = [a, *hours(a, b), b]
+            for x, y in zip(edges[:-1], edges[1:], strict=True):
+                stretch(x, y, "idle", why)
 
     for visit in visits:
         start = parse_utc(visit.start_utc)
-        gap(cursor, start - visit.slew_s / 86400.0)
-        separator(start)
+        slew_start = start - visit.slew_s / 86400.0
+        gap(cursor, slew_start)
+        separator(slew_start)
         running += visit.expected_bits
         bits += visit.expected_bits
-        exposing += visit.exposure_s
-        slewing += visit.slew_s
         mark = " " if visit.status == "planned" else "*"
         moment = _moment_jd(start)
         airmass = f"{visit.airmass_start:.2f}>{visit.airmass_end:.2f}"
-        lines.append(f"{mark}{_hm(moment, zone):>5}  {moment.strftime('%H:%M'):>5}  "
-                     f"{visit.target[:16]:<16} {visit.exposure_s:>6.0f}  {airmass:>11}  "
-                     f"{visit.moon_separation_deg:>5.0f}  {visit.slew_s:>6.0f}  "
+        lines.append(f"{mark}{_hms(_moment_jd(slew_start), zone):>8} {_hms(moment, zone):>8} "
+                     f"{_hms(moment):>8}  {visit.target[:16]:<16} {visit.exposure_s:>5.0f}  "
+                     f"{airmass:>9}  {visit.moon_separation_deg:>4.0f}  {visit.slew_s:>5.0f}  "
                      f"{visit.expected_bits:>7.3f}  {running:>8.3f}")
         cursor = max(cursor, parse_utc(visit.end_utc))
     gap(cursor, parse_utc(night.dark_end_utc))
-    dark_s = (parse_utc(night.dark_end_utc) - parse_utc(night.dark_start_utc)) * 86400.0
-    lost_s = sum((b - a) * 86400.0 for a, b, _ in events)
-    idle_s = max(dark_s - exposing - slewing - lost_s, 0.0)
     lines.append("-" * len(_COLUMNS))
-    plural = 's' if len(visits) != 1 else ''
-    lines.append(f"night total: {len(visits)} exposure{plural}, exposing {_duration(exposing)}, "
-                 f"slewing {_duration(slewing)}, idle {_duration(idle_s)}"
-                 f"{f', lost {_duration(lost_s)}' if lost_s else ''}; {bits:.3f} bits")
+    lines.extend(_night_total(night, visits, bits))
     return lines, running
 
 
