@@ -25,6 +25,7 @@ from planner.cli.support import (
     EXIT_USER,
     SCENARIO_HELP,
     add_common_options,
+    add_strict,
     fit_with_progress,
     open_session,
 )
@@ -74,8 +75,10 @@ def _plan_options(p, out_default: str | None) -> None:
 def _add_plan(sub) -> None:
     p = _command(sub, "plan", "plan the run and print the hour-by-hour schedule",
                  "Plan every night of the run at once, print the hour-by-hour schedule and "
-                 "write DIR/plan.json and DIR/plan.csv.", _run_plan)
+                 "a per-target summary, and write DIR/plan.json, DIR/plan.csv and the queue "
+                 "table DIR/plan.ecsv.", _run_plan)
     _plan_options(p, "nightbits-plan")
+    add_strict(p)
 
 
 def _add_compare(sub) -> None:
@@ -88,6 +91,7 @@ def _add_compare(sub) -> None:
                    help="also write DIR/compare.json (one record per strategy)")
     p.add_argument("--force", action="store_true", help="replace an existing DIR/compare.json")
     p.add_argument("--plot", metavar="FILE", help="also draw the comparison bar chart to FILE")
+    add_strict(p)
 
 
 def _add_replan(sub) -> None:
@@ -172,7 +176,7 @@ def _run_plan(args) -> int:
     pipeline, scenario, cache = open_session(args)
     pipeline.check_out_folder(args.out, args.force)
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
-    run = pipeline.prepare(scenario, posteriors)
+    run = pipeline.prepare(scenario, posteriors, strict=args.strict)
     result = pipeline.make_plan(run, strategy=args.strategy, time_limit_s=args.time_limit)
     sys.stdout.write(render_schedule(result.plan_file))
     paths = write_plan(args.out, result.plan_file, force=args.force)
@@ -197,14 +201,14 @@ def _run_compare(args) -> int:
         target = Path(args.out) / "compare.json"
         pipeline.check_out_folder(args.out, args.force, names=(target.name,))
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
-    run = pipeline.prepare(scenario, posteriors)
+    run = pipeline.prepare(scenario, posteriors, strict=args.strict)
     comparison = pipeline.compare(run, time_limit_s=args.time_limit)
     sys.stdout.write(comparison.text)
     if target is not None:
         from planner.workflow.outputs import write_compare_json
 
         target.parent.mkdir(parents=True, exist_ok=True)
-        write_compare_json(comparison.comparison, target)
+        write_compare_json(comparison, target)
         sys.stderr.write(f"wrote {target}\n")
     if args.plot:
         from planner.workflow.plots import plot_comparison

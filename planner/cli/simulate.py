@@ -24,7 +24,7 @@ CAUTION = ("A simulation on invented stars: it tests the method, not a night's s
 
 def add_simulate(sub) -> None:
     """Register the ``simulate`` subcommand on an argparse subparsers object."""
-    from planner.cli.support import add_common_options
+    from planner.cli.support import add_common_options, add_strict
 
     p = sub.add_parser(
         "simulate", help="execute the strategies against true orbits and measure realised bits",
@@ -58,6 +58,7 @@ def add_simulate(sub) -> None:
     p.add_argument("--plot-star", metavar="ID",
                    help="draw this star's period and semi-amplitude before and after (first "
                         "seed, each strategy) to DIR/posterior_<ID>.png")
+    add_strict(p)
     p.set_defaults(func=run_simulate)
 
 
@@ -83,18 +84,23 @@ def run_simulate(args) -> int:
     from planner.simulation.experiment import build_setup, run_experiment
     from planner.simulation.truth import read_truths
     from planner.simulation.weather import Weather
+    from planner.workflow.accounting import left_out
     from planner.workflow.outputs import atomic_write_text
+    from planner.workflow.report import left_out_lines
 
     pipeline, scenario, cache = open_session(args)
     out = _check(args, scenario)
     truths = read_truths(args.truth or scenario.path.parent / "truth")
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
-    setup = build_setup(scenario, posteriors, truths, time_limit_s=args.time_limit)
+    setup = build_setup(scenario, posteriors, truths, time_limit_s=args.time_limit,
+                        strict=args.strict)
     seeds = tuple(range(args.first_seed, args.first_seed + args.seeds))
     weather = Weather(night_loss=args.night_loss, hour_loss=args.hour_loss)
     experiment = run_experiment(setup, strategies=args.strategies, seeds=seeds, weather=weather,
                                 refit=args.refit, progress=ProgressBar(sys.stderr, "simulating"))
-    doc = simulate_document(scenario, experiment, weather, args.refit)
+    excluded = left_out(setup.prepared)
+    doc = simulate_document(scenario, experiment, weather, args.refit, excluded)
+    sys.stdout.write("\n".join(left_out_lines(excluded) + [""]) if excluded else "")
     sys.stdout.write(render_tables(experiment))
     out.parent.mkdir(parents=True, exist_ok=True)
     import json
@@ -118,7 +124,7 @@ def _saving(summary, cadence):
     return 100.0 * (1.0 - summary.reach_exposures / cadence.exposures)
 
 
-def simulate_document(scenario, experiment, weather, refit):
+def simulate_document(scenario, experiment, weather, refit, excluded=()):
     """Return the JSON document of ``simulate.json`` (plain dicts and lists).
 
     Parameters
@@ -131,6 +137,8 @@ def simulate_document(scenario, experiment, weather, refit):
         The loss probabilities used.
     refit : bool
         Whether degenerate weights were refitted.
+    excluded : sequence of planner.workflow.accounting.LeftOut
+        Targets left out of the run as never observable (key ``left_out``).
 
     Returns
     -------
@@ -167,6 +175,8 @@ def simulate_document(scenario, experiment, weather, refit):
                                "reweighting)" + ("; bridge or kNN estimate after a refit"
                                                  if refit else "")),
         "strategies": strategies, "caution": CAUTION,
+        "left_out": [{"target": e.target, "limit": e.limit, "reason": e.reason}
+                     for e in excluded],
     }
 
 

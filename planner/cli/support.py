@@ -18,6 +18,7 @@ __all__ = [
     "ProgressBar",
     "SCENARIO_HELP",
     "add_common_options",
+    "add_strict",
     "fit_with_progress",
     "open_session",
 ]
@@ -66,6 +67,13 @@ def add_common_options(parser: argparse.ArgumentParser,
     parser.add_argument("--no-cache", action="store_true", help="fit again, keep nothing")
     parser.add_argument("--jobs", type=int, default=None, metavar="N",
                         help="processes for fitting (default: all cores)")
+
+
+def add_strict(parser: argparse.ArgumentParser) -> None:
+    """Add ``--strict``: a never-observable target is an error instead of being left out."""
+    parser.add_argument("--strict", action="store_true",
+                        help="stop with an error if a target can never be observed, instead "
+                             "of leaving it out and listing it with the limit that excludes it")
 
 
 def open_session(args):

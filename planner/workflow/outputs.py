@@ -27,6 +27,7 @@ from pathlib import Path
 from typing import Any
 
 from planner.errors import PlanError
+from planner.workflow.accounting import LeftOut, TargetAccount
 
 __all__ = [
     "FORMAT_VERSION",
@@ -156,6 +157,12 @@ class PlanFile:
     objective_bits : float or None
         The strategy's own objective (the solver's redundancy-aware surrogate of the bits), the
         quantity ``bound_bits`` bounds.
+    left_out : tuple of planner.workflow.accounting.LeftOut
+        Targets that can never be observed in the run, with the limit that keeps each out
+        (plan.json key ``left_out``; empty in files written before it existed).
+    target_summary : tuple of planner.workflow.accounting.TargetAccount
+        Every target's visits, nights, expected bits and what bound it, in scenario order
+        (plan.json key ``target_summary``).
     """
 
     strategy: str
@@ -172,6 +179,8 @@ class PlanFile:
     visits: tuple[ScheduledVisit, ...]
     notes: tuple[str, ...] = ()
     objective_bits: float | None = None
+    left_out: tuple = ()
+    target_summary: tuple = ()
 
     def to_json(self) -> str:
         """Return the plan.json text (UTF-8, indented, with a format version)."""
@@ -231,7 +240,8 @@ def write_compare_json(comparison, path: str | Path) -> Path:
 
     Parameters
     ----------
-    comparison : planner.allocation.compare.Comparison
+    comparison : planner.allocation.compare.Comparison or planner.workflow.pipeline.ComparisonReport
+        Anything with a ``document()`` (the report's adds the targets left out).
     path : str or Path
         Output file; written to a temporary file in the same folder, then renamed over it.
 
@@ -332,7 +342,12 @@ def read_plan(path: str | Path) -> PlanFile:
     if not isinstance(raw, dict) or raw.get("format_version") != FORMAT_VERSION:
         raise PlanError(f"{where}: not a nightbits plan file of format version {FORMAT_VERSION}; "
                         "write it again with `nightbits plan`.")
-    top = _record(PlanFile, raw, where, skip=("nights", "visits"), pairs=("moon_table",))
+    top = _record(PlanFile, raw, where, skip=("nights", "visits", "left_out", "target_summary"),
+                  pairs=("moon_table",))
+    for key, cls in (("left_out", LeftOut), ("target_summary", TargetAccount)):
+        if key in raw:
+            top[key] = tuple(_record(cls, r, f"{where}: {key}[{i}]")
+                             for i, r in enumerate(_list(raw, key, where)))
     nights = tuple(_record(NightSummary, n, f"{where}: nights[{i}]", pairs=("moon_up", "lost"))
                    for i, n in enumerate(_list(raw, "nights", where)))
     visits = tuple(_record(ScheduledVisit, v, f"{where}: visits[{i}]")
