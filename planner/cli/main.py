@@ -67,7 +67,8 @@ def _plan_options(p, out_default: str | None) -> None:
                    help="solver wall-clock limit in seconds (default: solver.time_limit_s, "
                         "for replan solver.replan_time_limit_s)")
     p.add_argument("--out", metavar="DIR", default=out_default,
-                   help="folder for plan.json and plan.csv (default: %(default)s)")
+                   help="folder for plan.json, plan.csv and the queue table plan.ecsv "
+                        "(default: %(default)s)")
     p.add_argument("--force", action="store_true", help="replace an existing plan in DIR")
     p.add_argument("--plot", metavar="FILE", help="also draw the night altitude charts to FILE")
 
@@ -125,6 +126,9 @@ def build_parser() -> argparse.ArgumentParser:
         prog="nightbits",
         description="Plan precision radial-velocity observing runs by expected information "
                     "gain. Schedules never replace the observatory's own safety rules.")
+    from planner import VERSION
+
+    parser.add_argument("--version", action="version", version=f"nightbits {VERSION}")
     parser.add_argument("--debug", action="store_true", help="show tracebacks and debug logs")
     parser.add_argument("-v", "--verbose", action="store_true", help="log progress on stderr")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
@@ -179,11 +183,19 @@ def _run_plan(args) -> int:
     run = pipeline.prepare(scenario, posteriors, strict=args.strict)
     result = pipeline.make_plan(run, strategy=args.strategy, time_limit_s=args.time_limit)
     sys.stdout.write(render_schedule(result.plan_file))
-    paths = write_plan(args.out, result.plan_file, force=args.force)
+    paths = write_plan(args.out, result.plan_file, force=args.force,
+                       extra=_queue(scenario, result.plan_file))
     pipeline.save_curves(run, paths[0].parent / "curves.npz")
-    sys.stderr.write(f"wrote {paths[0]} and {paths[1]}\n")
+    sys.stderr.write(f"wrote {paths[0]}, {paths[1]} and {paths[0].parent / 'plan.ecsv'}\n")
     _maybe_night_plot(args, run, result)
     return EXIT_OK
+
+
+def _queue(scenario, plan_file) -> dict:
+    """Return the queue table ``plan.ecsv`` of a plan, by file name."""
+    from planner.workflow.queue_table import queue_text
+
+    return {"plan.ecsv": queue_text(plan_file, {t.id: t.v_mag for t in scenario.targets})}
 
 
 def _maybe_night_plot(args, run, result) -> None:
@@ -237,9 +249,10 @@ def _run_replan(args) -> int:
                            time_limit_s=args.time_limit, reuse=saved)
     sys.stdout.write(render_schedule(result.plan_file))
     sys.stdout.write(result.changes)
-    paths = write_plan(args.out, result.plan_file, force=args.force)
+    paths = write_plan(args.out, result.plan_file, force=args.force,
+                       extra=_queue(scenario, result.plan_file))
     pipeline.save_curves(result.run, paths[0].parent / "curves.npz")
-    sys.stderr.write(f"wrote {paths[0]} and {paths[1]}\n")
+    sys.stderr.write(f"wrote {paths[0]}, {paths[1]} and {paths[0].parent / 'plan.ecsv'}\n")
     _maybe_night_plot(args, result.run, result)
     return EXIT_OK
 

@@ -215,12 +215,8 @@ def render_tables(experiment):
 
 def _plot_bits(experiment, path):
     """Realised against expected bits, one point per strategy and seed (matplotlib)."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    fig, ax = plt.subplots(figsize=(6, 5))
+    fig = _figure(figsize=(6, 5))
+    ax = fig.subplots()
     top = 0.0
     for s in experiment.summaries:
         runs = [r for r in experiment.runs if r.strategy == s.strategy]
@@ -235,22 +231,18 @@ def _plot_bits(experiment, path):
     ax.legend()
     fig.tight_layout()
     _save(fig, path)
-    plt.close(fig)
 
 
 def _plot_star(setup, experiment, target, path):
     """One star's period and semi-amplitude before and after, first seed, each strategy."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
     import numpy as np
 
     from planner.information.update import importance_weights, new_data_log_likelihood
 
     post = setup.posteriors[target]
     first = [r for r in experiment.runs if r.seed == experiment.seeds[0]]
-    fig, axes = plt.subplots(1, 2, figsize=(10, 4))
+    fig = _figure(figsize=(10, 4))
+    axes = fig.subplots(1, 2)
     names = ("period_1", "semi_amplitude_1")
     if post.model.n_planets == 0:
         names = (f"offset_{setup.instrument_name}", f"jitter_{setup.instrument_name}")
@@ -275,7 +267,12 @@ def _plot_star(setup, experiment, target, path):
     fig.suptitle(f"{target}: posterior before and after the simulated run (true value dotted)")
     fig.tight_layout()
     _save(fig, path)
-    plt.close(fig)
+
+
+def _figure(**kwargs):
+    from planner.workflow.plots import new_figure
+
+    return new_figure(**kwargs)
 
 
 def _save(fig, path):

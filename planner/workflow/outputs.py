@@ -270,7 +270,7 @@ def _write_temporary(path: Path, data: bytes) -> Path:
 
 
 def check_out_folder(out: str | Path, force: bool,
-                     names: tuple[str, ...] = ("plan.json", "plan.csv")) -> None:
+                     names: tuple[str, ...] = ("plan.json", "plan.csv", "plan.ecsv")) -> None:
     """Fail at once, before any work, if ``out`` holds one of ``names`` and ``force`` is off."""
     existing = [Path(out) / name for name in names if (Path(out) / name).exists()]
     if existing and not force:
@@ -278,8 +278,9 @@ def check_out_folder(out: str | Path, force: bool,
                         "another folder with --out.")
 
 
-def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False) -> tuple[Path, Path]:
-    """Write ``plan.json`` and ``plan.csv`` into ``out_dir`` atomically.
+def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False,
+               extra: dict[str, str] | None = None) -> tuple[Path, Path]:
+    """Write ``plan.json`` and ``plan.csv`` (and ``extra`` files) into ``out_dir`` atomically.
 
     Parameters
     ----------
@@ -288,6 +289,9 @@ def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False) -> tupl
     plan : PlanFile
     force : bool
         Replace an existing plan in that folder.
+    extra : dict of str to str, optional
+        More files of the plan by name and text (``{"plan.ecsv": ...}``), written and renamed
+        with the other two, so a crash leaves all of them as they were.
 
     Returns
     -------
@@ -303,6 +307,7 @@ def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False) -> tupl
     json_path, csv_path = out / "plan.json", out / "plan.csv"
     check_out_folder(out, force)
     payload = {json_path: plan.to_json().encode("utf-8"), csv_path: plan.to_csv().encode("utf-8")}
+    payload.update({out / name: text.encode("utf-8") for name, text in (extra or {}).items()})
     try:
         out.mkdir(parents=True, exist_ok=True)
         temporaries = {}

@@ -27,7 +27,13 @@ from pathlib import Path
 import numpy as np
 
 from planner.errors import PlanError
-from planner.workflow.fitting import cache_folder, fit_jobs, fit_posteriors, sampler_settings
+from planner.workflow.fitting import (
+    cache_folder,
+    fit_jobs,
+    fit_posteriors,
+    sampler_settings,
+    scheduler_address,
+)
 from planner.workflow.outputs import check_out_folder
 from planner.workflow.plan_file import build_plan_file, exact_marginals
 from planner.workflow.prepared import PreparedRun, prepare
@@ -65,6 +71,7 @@ __all__ = [
     "run_strategy",
     "sampler_settings",
     "save_curves",
+    "scheduler_address",
     "uncovered_d",
     "verify",
 ]
