@@ -17,8 +17,17 @@ import numpy as np
 from planner.errors import PlanError
 from planner.workflow.outputs import atomic_write_bytes
 
-__all__ = ["airmass_altitude_deg", "jd_to_datetime64", "new_figure", "plot_comparison",
-           "plot_curves", "plot_nights"]
+__all__ = [
+    "airmass_altitude_deg",
+    "comparison_figure",
+    "curves_figure",
+    "jd_to_datetime64",
+    "new_figure",
+    "night_figure",
+    "plot_comparison",
+    "plot_curves",
+    "plot_nights",
+]
 
 
 def new_figure(**kwargs):
@@ -83,6 +92,11 @@ def _clock_axis(ax, zone, dates: bool = False) -> None:
 
 
 def plot_nights(run, plan_file, path) -> Path:
+    """Draw :func:`night_figure` to ``path`` (png, pdf or svg)."""
+    return _save(night_figure(run, plan_file), path)
+
+
+def night_figure(run, plan_file):
     """Altitude against local clock time for the stars scheduled each night, one panel a night.
 
     Only the stars with an exposure that night are drawn, each in its own colour with its
@@ -93,8 +107,10 @@ def plot_nights(run, plan_file, path) -> Path:
     ----------
     run : planner.workflow.pipeline.PreparedRun
     plan_file : planner.workflow.outputs.PlanFile
-    path : str or pathlib.Path
-        Output image.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
     """
     from zoneinfo import ZoneInfo
 
@@ -141,10 +157,15 @@ def plot_nights(run, plan_file, path) -> Path:
     axes[-1].set_xlabel(f"local time ({run.site.timezone})")
     fig.suptitle(f"{plan_file.run_name}: {plan_file.strategy} plan, thick lines are exposures",
                  fontsize=10)
-    return _save(fig, path)
+    return fig
 
 
 def plot_curves(run, path, targets=None) -> Path:
+    """Draw :func:`curves_figure` to ``path`` (png, pdf or svg)."""
+    return _save(curves_figure(run, targets), path)
+
+
+def curves_figure(run, targets=None):
     """One-visit expected bits against local date and time, best exposure option, per target."""
     from zoneinfo import ZoneInfo
 
@@ -171,10 +192,15 @@ def plot_curves(run, path, targets=None) -> Path:
     if len(chosen) <= 20:
         ax.legend(fontsize=7, ncol=1 + len(chosen) // 10, loc="upper left",
                   bbox_to_anchor=(1.005, 1.0), frameon=False)
-    return _save(fig, path)
+    return fig
 
 
 def plot_comparison(comparison, path) -> Path:
+    """Draw :func:`comparison_figure` to ``path`` (png, pdf or svg)."""
+    return _save(comparison_figure(comparison), path)
+
+
+def comparison_figure(comparison):
     """Bar chart of the strategies' exact joint scores with their Monte Carlo error bars.
 
     Each value is written above the top of its error bar, so labels and bars never overlap.
@@ -198,4 +224,4 @@ def plot_comparison(comparison, path) -> Path:
     ax.set_title("strategies on the same exact score", fontsize=10)
     ax.grid(axis="y", color="0.9", lw=0.6)
     ax.set_axisbelow(True)
-    return _save(fig, path)
+    return fig
