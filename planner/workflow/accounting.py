@@ -8,13 +8,13 @@ Two records go into the plan file under keys of their own:
   and the limit or rule that bound it: a limit for a star never observable, ``max_visits``,
   ``max_visits_per_night``, ``min_gap_h`` or ``weight`` where a rule left no further visit
   open, and ``telescope_time`` where more visits were allowed but the time went to visits worth
-  more. For a star bound by telescope time the record carries its best one-visit bits per
-  telescope minute and the rate of the last visit taken, the plan's lowest.
+  more. For a star bound by telescope time the record carries the best bits per telescope
+  minute of its next visit and the rate of the last visit taken, the plan's lowest.
 
 A telescope minute here is the exposure plus the mount's fixed overhead for a candidate, and
-the exposure plus the slew before it for a planned visit. The best rate of a star is its
-one-visit value before any of its own visits, so it is an upper bound on what a further visit
-of a star already visited would add.
+the exposure plus the slew before it for a planned visit. The next visit's bits are its
+expected gain given the star's planned visits (their outcomes not yet known), among the
+candidate starts the star's own rules still allow.
 """
 
 from __future__ import annotations
@@ -71,8 +71,8 @@ class TargetAccount:
     reason : str
         The same in words, with the numbers.
     best_bits_per_min : float or None
-        Its best weighted one-visit bits per telescope minute over the run, for a star bound
-        by telescope time [bits/min].
+        The best weighted bits per telescope minute of its next visit, given its planned
+        visits, for a star bound by telescope time [bits/min].
     last_bits_per_min : float or None
         The marginal bits per telescope minute of the last visit taken (the plan's lowest
         rate), for a star bound by telescope time [bits/min].
@@ -146,7 +146,7 @@ def account_targets(run, plan, marginals, target_bits) -> tuple[TargetAccount, .
             e = excluded[target.id]
             bound, reason, best, floor = e.limit, f"never observable: {e.reason}", None, None
         else:
-            bound, reason, best, floor = _bound(run.problem, s, target, mine, visits, last)
+            bound, reason, best, floor = _bound(run, s, target, mine, visits, last)
         out.append(TargetAccount(
             target=target.id, visits=visits,
             nights=len({v.night for v in mine} | {v.night for v in done}),
@@ -156,8 +156,9 @@ def account_targets(run, plan, marginals, target_bits) -> tuple[TargetAccount, .
     return tuple(out)
 
 
-def _bound(problem, s, target, mine, visits, last):
+def _bound(run, s, target, mine, visits, last):
     """(bound, reason, best rate, last rate) of an observable target."""
+    problem = run.problem
     rule = problem.rules[s]
     if rule.weight == 0:
         return "weight", "weight 0: its bits count for nothing in this run", None, None
@@ -177,15 +178,39 @@ def _bound(problem, s, target, mine, visits, last):
                 "free observable start", None, None)
     pool = cands[allowed]
     exposure = np.asarray(problem.exposure_s, dtype=float)[problem.option[pool]]
-    rate = rule.weight * problem.bits[pool] / ((exposure + problem.overhead_s) / 60.0)
+    bits = _next_bits(run, s, mine, pool)
+    rate = rule.weight * bits / ((exposure + problem.overhead_s) / 60.0)
     best = round(float(rate.max()), 5) if rate.size else None
     floor = None if last is None else round(last, 5)
     if best is None:
         return TIME_BOUND, "observable, but no candidate start was left for it", None, floor
     if floor is None:
-        return (TIME_BOUND, f"best {best:.4f} bits per telescope minute; no visit was taken",
-                best, None)
-    more = "more visits were allowed, but " if visits else ""
-    clash = " (its best times went to visits worth more)" if best > floor else ""
-    return (TIME_BOUND, f"{more}outvalued: best {best:.4f} bits per telescope minute against "
-            f"{floor:.4f} for the last visit taken{clash}", best, floor)
+        return (TIME_BOUND, f"best visit {best:.4f} bits/tel. min; no visit was taken", best,
+                None)
+    what = "next visit" if visits else "best visit"
+    reason = (f"outvalued{' in time' if best > floor else ''}: {what} {best:.4f} bits/tel. min "
+              f"against {floor:.4f} for the last visit taken")
+    return TIME_BOUND, reason, best, floor
+
+
+def _next_bits(run, s, mine, pool) -> np.ndarray:
+    """Unweighted expected bits of each candidate in ``pool`` given the star's planned visits.
+
+    The conditional gain of one more visit (:func:`planner.information.gain.conditional_bits`,
+    64 simulated outcomes of the planned visits, seeded by the solver seed); the one-visit bits
+    of the candidates for a star with no planned visit.
+    """
+    problem = run.problem
+    if not mine or pool.size == 0:
+        return np.asarray(problem.bits[pool], dtype=float)
+    from planner.information.gain import conditional_bits
+
+    predictor = run.predictors[s]
+    jitter2 = predictor.jitter[:, None] ** 2
+    planned = np.array([v.candidate for v in mine], dtype=np.int64)
+    return conditional_bits(
+        predictor.velocities(problem.bjd_mid[planned]),
+        np.sqrt(problem.sigma[planned][None, :] ** 2 + jitter2),
+        predictor.velocities(problem.bjd_mid[pool]),
+        np.sqrt(problem.sigma[pool][None, :] ** 2 + jitter2),
+        np.random.default_rng(run.scenario.solver.seed), n_outcomes=64)

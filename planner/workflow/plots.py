@@ -122,7 +122,11 @@ def night_figure(run, plan_file):
     ids = [t.id for t in run.scenario.targets]
     limits = run.constraints.airmass_limits(len(ids))
     nights = run.nights
-    fig = new_figure(figsize=(11, 2.8 * len(nights)), layout="constrained")
+    most = max((len({v.target for v in plan_file.visits if v.night == n.date}) for n in nights),
+               default=0)
+    columns = max(1, -(-most // 16))  # legend columns: at most 16 names in one
+    fig = new_figure(figsize=(10 + 1.6 * columns, max(3.4, 0.16 * min(most, 16) + 1.2)
+                              * len(nights)), layout="constrained")
     axes = np.atleast_1d(fig.subplots(len(nights), 1, squeeze=False)[:, 0])
     colours = matplotlib.colormaps["tab20"]
     for k, (night, ax) in enumerate(zip(nights, axes, strict=True)):
@@ -134,7 +138,8 @@ def night_figure(run, plan_file):
         for j, target in enumerate(scheduled):
             s = ids.index(target)
             colour = colours(j % 20)
-            ax.plot(clock, run.sky.altitude_deg[s, cols], color=colour, lw=0.8, label=target)
+            ax.plot(clock, run.sky.altitude_deg[s, cols], color=colour, lw=0.7, alpha=0.55,
+                    label=target)
             for v in (v for v in visits if v.target == target):
                 t = np.linspace(parse_utc(v.start_utc), parse_utc(v.end_utc), 8)
                 alt = np.interp(t, times, run.sky.altitude_deg[s, cols])
@@ -153,7 +158,8 @@ def night_figure(run, plan_file):
         ax.set_title(f"night of {night.date}: {len(visits)} exposures of {len(scheduled)} stars"
                      " (grey: Moon up)", fontsize=9)
         _clock_axis(ax, zone)
-        ax.legend(fontsize=6, loc="upper left", bbox_to_anchor=(1.005, 1.0), frameon=False)
+        ax.legend(fontsize=6, loc="upper left", bbox_to_anchor=(1.005, 1.0), frameon=False,
+                  ncol=columns, handlelength=1.2, columnspacing=0.8, labelspacing=0.25)
     axes[-1].set_xlabel(f"local time ({run.site.timezone})")
     fig.suptitle(f"{plan_file.run_name}: {plan_file.strategy} plan, thick lines are exposures",
                  fontsize=10)

@@ -320,7 +320,7 @@ def left_out_lines(items) -> list[str]:
         return []
     n = len(items)
     lines = _wrap(f"left out: {n} target{'s' if n != 1 else ''} can never be observed in this "
-                  "run; the plan goes on without them (pass --strict to stop instead):", "  ")
+                  "run; the plan goes on without them:", "  ")
     for item in items:
         lines.extend(_hang(f"  {item.target[:16]:<16} {limit_words(item.limit):<9} ",
                            item.reason))
@@ -338,7 +338,11 @@ def target_summary_lines(plan: PlanFile) -> list[str]:
         lines.extend(_hang(f"{row.target[:16]:<16} {row.visits:>6} {row.nights:>6} "
                            f"{row.expected_bits:>8.3f}  ", row.reason))
     if any(row.last_bits_per_min is not None for row in plan.target_summary):
-        lines.extend(_wrap("bits per telescope minute: one-visit bits (before the star's own "
-                           "visits) over exposure plus overhead, against the last visit taken, the "
-                           "plan's lowest marginal bits per minute of exposure and slew.", "  "))
+        lines.extend(_wrap("bits/tel. min: expected bits per telescope minute. A star's next "
+                           "visit is valued given its planned visits, over exposure plus the "
+                           "mount's fixed overhead; the last visit taken is the plan's lowest "
+                           "marginal bits per minute of exposure and slew. 'in time': the "
+                           "visit is worth more than that, but its open times went to visits "
+                           "worth more.",
+                           "  "))
     return lines
