@@ -343,6 +343,13 @@ def target_summary_lines(plan: PlanFile) -> list[str]:
                            "mount's fixed overhead; the last visit taken is the plan's lowest "
                            "marginal bits per minute of exposure and slew. 'in time': the "
                            "visit is worth more than that, but its open times went to visits "
-                           "worth more.",
-                           "  "))
+                           "worth more.", "  "))
+        planned = [v for v in plan.visits if v.status == "planned" and v.exposure_s + v.slew_s]
+        if planned:
+            last = min(planned, key=lambda v: v.expected_bits / (v.exposure_s + v.slew_s))
+            zone = ZoneInfo(plan.site["timezone"])
+            lines.extend(_wrap(f"the last visit taken: {last.target} at "
+                               f"{_hm(_moment(last.start_utc), zone)} local on the night of "
+                               f"{last.night}, {last.expected_bits:.4f} bits in "
+                               f"{(last.exposure_s + last.slew_s) / 60.0:.1f} min.", "  "))
     return lines
