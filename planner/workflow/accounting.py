@@ -12,9 +12,10 @@ Two records go into the plan file under keys of their own:
   minute of its next visit and the rate of the last visit taken, the plan's lowest.
 
 A telescope minute here is the exposure plus the mount's fixed overhead for a candidate, and
-the exposure plus the slew before it for a planned visit. The next visit's bits are its
-expected gain given the star's planned visits (their outcomes not yet known), among the
-candidate starts the star's own rules still allow.
+the exposure plus the slew before it for a planned visit. The next visit's bits are its gain
+given the star's planned visits on the solver's surrogate objective (exact joint information of
+visit patterns, :mod:`planner.allocation.surrogate`), among the candidate starts the star's own
+rules still allow.
 """
 
 from __future__ import annotations
@@ -146,7 +147,7 @@ def account_targets(run, plan, marginals, target_bits) -> tuple[TargetAccount, .
             e = excluded[target.id]
             bound, reason, best, floor = e.limit, f"never observable: {e.reason}", None, None
         else:
-            bound, reason, best, floor = _bound(run, s, target, mine, visits, last)
+            bound, reason, best, floor = _bound(run, plan, s, target, mine, visits, last)
         out.append(TargetAccount(
             target=target.id, visits=visits,
             nights=len({v.night for v in mine} | {v.night for v in done}),
@@ -156,7 +157,7 @@ def account_targets(run, plan, marginals, target_bits) -> tuple[TargetAccount, .
     return tuple(out)
 
 
-def _bound(run, s, target, mine, visits, last):
+def _bound(run, plan, s, target, mine, visits, last):
     """(bound, reason, best rate, last rate) of an observable target."""
     problem = run.problem
     rule = problem.rules[s]
@@ -178,9 +179,8 @@ def _bound(run, s, target, mine, visits, last):
                 "free observable start", None, None)
     pool = cands[allowed]
     exposure = np.asarray(problem.exposure_s, dtype=float)[problem.option[pool]]
-    bits = _next_bits(run, s, mine, pool)
-    rate = rule.weight * bits / ((exposure + problem.overhead_s) / 60.0)
-    best = round(float(rate.max()), 5) if rate.size else None
+    minutes = (exposure + problem.overhead_s) / 60.0
+    best = round(_best_next(run, plan, pool, minutes), 5) if pool.size else None
     floor = None if last is None else round(last, 5)
     if best is None:
         return TIME_BOUND, "observable, but no candidate start was left for it", None, floor
@@ -193,24 +193,14 @@ def _bound(run, s, target, mine, visits, last):
     return TIME_BOUND, reason, best, floor
 
 
-def _next_bits(run, s, mine, pool) -> np.ndarray:
-    """Unweighted expected bits of each candidate in ``pool`` given the star's planned visits.
+def _best_next(run, plan, pool, minutes) -> float:
+    """Best weighted bits per telescope minute of one more visit among ``pool``.
 
-    The conditional gain of one more visit (:func:`planner.information.gain.conditional_bits`,
-    64 simulated outcomes of the planned visits, seeded by the solver seed); the one-visit bits
-    of the candidates for a star with no planned visit.
+    Each candidate is valued by the solver's surrogate objective given the star's planned
+    visits (:meth:`planner.allocation.surrogate.Surrogate.marginal`: the exact joint
+    information of the star's visit pattern with and without it, redundancy included), the
+    value every strategy packs by.
     """
-    problem = run.problem
-    if not mine or pool.size == 0:
-        return np.asarray(problem.bits[pool], dtype=float)
-    from planner.information.gain import conditional_bits
-
-    predictor = run.predictors[s]
-    jitter2 = predictor.jitter[:, None] ** 2
-    planned = np.array([v.candidate for v in mine], dtype=np.int64)
-    return conditional_bits(
-        predictor.velocities(problem.bjd_mid[planned]),
-        np.sqrt(problem.sigma[planned][None, :] ** 2 + jitter2),
-        predictor.velocities(problem.bjd_mid[pool]),
-        np.sqrt(problem.sigma[pool][None, :] ** 2 + jitter2),
-        np.random.default_rng(run.scenario.solver.seed), n_outcomes=64)
+    chosen = np.array([v.candidate for v in plan.visits], dtype=np.int64)
+    gain = run.surrogate.marginal(run.problem, pool, chosen) / run.surrogate.scale
+    return float(np.max(gain / minutes))

@@ -339,7 +339,8 @@ def target_summary_lines(plan: PlanFile) -> list[str]:
                            f"{row.expected_bits:>8.3f}  ", row.reason))
     if any(row.last_bits_per_min is not None for row in plan.target_summary):
         lines.extend(_wrap("bits/tel. min: expected bits per telescope minute. A star's next "
-                           "visit is valued given its planned visits, over exposure plus the "
+                           "visit is valued given its planned visits (the solver's surrogate), "
+                           "over exposure plus the "
                            "mount's fixed overhead; the last visit taken is the plan's lowest "
                            "marginal bits per minute of exposure and slew. 'in time': the "
                            "visit is worth more than that, but its open times went to visits "
