@@ -26,8 +26,7 @@ import numpy as np
 
 __all__ = ["LeftOut", "TargetAccount", "account_targets", "left_out"]
 
-#: Bound keys of a rule (the scenario keys the user would change) and of telescope time.
-RULE_BOUNDS = ("max_visits", "max_visits_per_night", "min_gap_h", "weight")
+#: Bound key of a star that more visits were allowed for, but the time went to visits worth more.
 TIME_BOUND = "telescope_time"
 
 
