@@ -6,7 +6,7 @@ builds one from a Dask distributed scheduler address.
 """
 
 import logging
-from concurrent.futures import ProcessPoolExecutor, as_completed
+from concurrent.futures import Executor, ProcessPoolExecutor, as_completed
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass
 
@@ -76,23 +76,45 @@ def run_job(job):
     return fit(job.data, job.model, job.settings, rng=job.seed, target=job.target)
 
 
-def dask_executor(address):
+class _DaskExecutor(Executor):
+    """A Dask client's executor that closes its client on shutdown."""
+
+    def __init__(self, client) -> None:
+        self._client = client
+        self._executor = client.get_executor()
+
+    def submit(self, fn, /, *args, **kwargs):
+        """Submit ``fn(*args, **kwargs)`` to the cluster."""
+        return self._executor.submit(fn, *args, **kwargs)
+
+    def shutdown(self, wait=True, *, cancel_futures=False):
+        """Wait for (or cancel) the submitted work, then close the client."""
+        try:
+            self._executor.shutdown(wait=wait and not cancel_futures)
+        finally:
+            self._client.close()
+
+
+def dask_executor(address, timeout_s=10.0):
     """Build an Executor that runs on a Dask distributed cluster.
 
     Parameters
     ----------
     address : str
         Scheduler address, e.g. ``"tcp://10.0.0.5:8786"``.
+    timeout_s : float
+        How long to wait for the scheduler to answer [s].
 
     Returns
     -------
     concurrent.futures.Executor
-        ``Client(address).get_executor()``; close it with ``executor.shutdown()``.
+        Submits to ``Client(address)``; ``shutdown()`` also closes the client. Every worker
+        needs nightbits (and its dependencies) installed.
 
     Raises
     ------
     InferenceError
-        If dask.distributed is not installed.
+        If dask.distributed is not installed or the scheduler cannot be reached.
     """
     try:
         from distributed import Client
@@ -101,7 +123,15 @@ def dask_executor(address):
             "a Dask scheduler address was given but dask.distributed is not installed: "
             "install it with pip install 'nightbits[dask]' or drop the address."
         ) from None
-    return Client(address).get_executor()
+    try:
+        client = Client(address, timeout=timeout_s)
+    except (OSError, ValueError, TypeError) as exc:
+        raise InferenceError(
+            f"cannot reach the Dask scheduler at {address!r} ({type(exc).__name__}: {exc}); "
+            "start one with `dask scheduler` and workers with `dask worker ADDRESS`, or drop "
+            "the address."
+        ) from None
+    return _DaskExecutor(client)
 
 
 def _failure(job, exc):

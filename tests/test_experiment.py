@@ -247,7 +247,7 @@ def invented_fits(monkeypatch):
 
     truths = read_truths(DEMO_TRUTH)
 
-    def fake_fit(scenario, cache=None, jobs=None, progress=None):
+    def fake_fit(scenario, cache=None, jobs=None, progress=None, scheduler=None):
         rng = np.random.default_rng(2)
         out = {}
         for t in scenario.targets:

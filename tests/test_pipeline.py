@@ -143,17 +143,19 @@ def test_joint_is_not_below_greedy_on_the_exact_score(run):
     assert joint.plan_file.total_bits >= greedy.plan_file.total_bits - 0.05
 
 
-def test_target_never_observable_is_a_scenario_error(tmp_path, cache_dir, capsys):
+def test_target_never_observable_is_an_error_with_strict(tmp_path, cache_dir, capsys):
     text = TINY.read_text().replace("dec_deg: -33.582", "dec_deg: 75.0")  # never up at -27 deg
     for name in ("gamur-7.csv", "lundra-15.csv", "quidra-7.csv"):
         (tmp_path / "rv").mkdir(exist_ok=True)
         shutil.copy(TINY.parent / "rv" / name, tmp_path / "rv" / name)
     (tmp_path / "run.yaml").write_text(text)
     code = main(["plan", str(tmp_path / "run.yaml"), "--cache", str(cache_dir),
-                 "--out", str(tmp_path / "out")])
+                 "--out", str(tmp_path / "out"), "--strict"])
     err = capsys.readouterr().err
     assert code == 2
     assert "run.yaml: targets[2]: Target 'Quidra-7' is never observable" in err
+    assert "--strict" in err
+    assert len(err.strip().splitlines()) == 1 and err.count("never observable") == 1
     assert not (tmp_path / "out").exists()  # nothing written
 
 

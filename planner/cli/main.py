@@ -25,6 +25,7 @@ from planner.cli.support import (
     EXIT_USER,
     SCENARIO_HELP,
     add_common_options,
+    add_strict,
     fit_with_progress,
     open_session,
 )
@@ -66,7 +67,8 @@ def _plan_options(p, out_default: str | None) -> None:
                    help="solver wall-clock limit in seconds (default: solver.time_limit_s, "
                         "for replan solver.replan_time_limit_s)")
     p.add_argument("--out", metavar="DIR", default=out_default,
-                   help="folder for plan.json and plan.csv (default: %(default)s)")
+                   help="folder for plan.json, plan.csv and the queue table plan.ecsv "
+                        "(default: %(default)s)")
     p.add_argument("--force", action="store_true", help="replace an existing plan in DIR")
     p.add_argument("--plot", metavar="FILE", help="also draw the night altitude charts to FILE")
 
@@ -74,8 +76,10 @@ def _plan_options(p, out_default: str | None) -> None:
 def _add_plan(sub) -> None:
     p = _command(sub, "plan", "plan the run and print the hour-by-hour schedule",
                  "Plan every night of the run at once, print the hour-by-hour schedule and "
-                 "write DIR/plan.json and DIR/plan.csv.", _run_plan)
+                 "a per-target summary, and write DIR/plan.json, DIR/plan.csv and the queue "
+                 "table DIR/plan.ecsv.", _run_plan)
     _plan_options(p, "nightbits-plan")
+    add_strict(p)
 
 
 def _add_compare(sub) -> None:
@@ -88,6 +92,7 @@ def _add_compare(sub) -> None:
                    help="also write DIR/compare.json (one record per strategy)")
     p.add_argument("--force", action="store_true", help="replace an existing DIR/compare.json")
     p.add_argument("--plot", metavar="FILE", help="also draw the comparison bar chart to FILE")
+    add_strict(p)
 
 
 def _add_replan(sub) -> None:
@@ -121,6 +126,9 @@ def build_parser() -> argparse.ArgumentParser:
         prog="nightbits",
         description="Plan precision radial-velocity observing runs by expected information "
                     "gain. Schedules never replace the observatory's own safety rules.")
+    from planner import VERSION
+
+    parser.add_argument("--version", action="version", version=f"nightbits {VERSION}")
     parser.add_argument("--debug", action="store_true", help="show tracebacks and debug logs")
     parser.add_argument("-v", "--verbose", action="store_true", help="log progress on stderr")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
@@ -172,14 +180,22 @@ def _run_plan(args) -> int:
     pipeline, scenario, cache = open_session(args)
     pipeline.check_out_folder(args.out, args.force)
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
-    run = pipeline.prepare(scenario, posteriors)
+    run = pipeline.prepare(scenario, posteriors, strict=args.strict)
     result = pipeline.make_plan(run, strategy=args.strategy, time_limit_s=args.time_limit)
     sys.stdout.write(render_schedule(result.plan_file))
-    paths = write_plan(args.out, result.plan_file, force=args.force)
+    paths = write_plan(args.out, result.plan_file, force=args.force,
+                       extra=_queue(scenario, result.plan_file))
     pipeline.save_curves(run, paths[0].parent / "curves.npz")
-    sys.stderr.write(f"wrote {paths[0]} and {paths[1]}\n")
+    sys.stderr.write(f"wrote {paths[0]}, {paths[1]} and {paths[0].parent / 'plan.ecsv'}\n")
     _maybe_night_plot(args, run, result)
     return EXIT_OK
+
+
+def _queue(scenario, plan_file) -> dict:
+    """Return the queue table ``plan.ecsv`` of a plan, by file name."""
+    from planner.workflow.queue_table import queue_text
+
+    return {"plan.ecsv": queue_text(plan_file, {t.id: t.v_mag for t in scenario.targets})}
 
 
 def _maybe_night_plot(args, run, result) -> None:
@@ -197,14 +213,14 @@ def _run_compare(args) -> int:
         target = Path(args.out) / "compare.json"
         pipeline.check_out_folder(args.out, args.force, names=(target.name,))
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
-    run = pipeline.prepare(scenario, posteriors)
+    run = pipeline.prepare(scenario, posteriors, strict=args.strict)
     comparison = pipeline.compare(run, time_limit_s=args.time_limit)
     sys.stdout.write(comparison.text)
     if target is not None:
         from planner.workflow.outputs import write_compare_json
 
         target.parent.mkdir(parents=True, exist_ok=True)
-        write_compare_json(comparison.comparison, target)
+        write_compare_json(comparison, target)
         sys.stderr.write(f"wrote {target}\n")
     if args.plot:
         from planner.workflow.plots import plot_comparison
@@ -233,9 +249,10 @@ def _run_replan(args) -> int:
                            time_limit_s=args.time_limit, reuse=saved)
     sys.stdout.write(render_schedule(result.plan_file))
     sys.stdout.write(result.changes)
-    paths = write_plan(args.out, result.plan_file, force=args.force)
+    paths = write_plan(args.out, result.plan_file, force=args.force,
+                       extra=_queue(scenario, result.plan_file))
     pipeline.save_curves(result.run, paths[0].parent / "curves.npz")
-    sys.stderr.write(f"wrote {paths[0]} and {paths[1]}\n")
+    sys.stderr.write(f"wrote {paths[0]}, {paths[1]} and {paths[0].parent / 'plan.ecsv'}\n")
     _maybe_night_plot(args, result.run, result)
     return EXIT_OK
 

@@ -24,7 +24,7 @@ CAUTION = ("A simulation on invented stars: it tests the method, not a night's s
 
 def add_simulate(sub) -> None:
     """Register the ``simulate`` subcommand on an argparse subparsers object."""
-    from planner.cli.support import add_common_options
+    from planner.cli.support import add_common_options, add_strict
 
     p = sub.add_parser(
         "simulate", help="execute the strategies against true orbits and measure realised bits",
@@ -58,6 +58,7 @@ def add_simulate(sub) -> None:
     p.add_argument("--plot-star", metavar="ID",
                    help="draw this star's period and semi-amplitude before and after (first "
                         "seed, each strategy) to DIR/posterior_<ID>.png")
+    add_strict(p)
     p.set_defaults(func=run_simulate)
 
 
@@ -83,18 +84,23 @@ def run_simulate(args) -> int:
     from planner.simulation.experiment import build_setup, run_experiment
     from planner.simulation.truth import read_truths
     from planner.simulation.weather import Weather
+    from planner.workflow.accounting import left_out
     from planner.workflow.outputs import atomic_write_text
+    from planner.workflow.report import left_out_lines
 
     pipeline, scenario, cache = open_session(args)
     out = _check(args, scenario)
     truths = read_truths(args.truth or scenario.path.parent / "truth")
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
-    setup = build_setup(scenario, posteriors, truths, time_limit_s=args.time_limit)
+    setup = build_setup(scenario, posteriors, truths, time_limit_s=args.time_limit,
+                        strict=args.strict)
     seeds = tuple(range(args.first_seed, args.first_seed + args.seeds))
     weather = Weather(night_loss=args.night_loss, hour_loss=args.hour_loss)
     experiment = run_experiment(setup, strategies=args.strategies, seeds=seeds, weather=weather,
                                 refit=args.refit, progress=ProgressBar(sys.stderr, "simulating"))
-    doc = simulate_document(scenario, experiment, weather, args.refit)
+    excluded = left_out(setup.prepared)
+    doc = simulate_document(scenario, experiment, weather, args.refit, excluded)
+    sys.stdout.write("\n".join(left_out_lines(excluded) + [""]) if excluded else "")
     sys.stdout.write(render_tables(experiment))
     out.parent.mkdir(parents=True, exist_ok=True)
     import json
@@ -118,7 +124,7 @@ def _saving(summary, cadence):
     return 100.0 * (1.0 - summary.reach_exposures / cadence.exposures)
 
 
-def simulate_document(scenario, experiment, weather, refit):
+def simulate_document(scenario, experiment, weather, refit, excluded=()):
     """Return the JSON document of ``simulate.json`` (plain dicts and lists).
 
     Parameters
@@ -131,6 +137,8 @@ def simulate_document(scenario, experiment, weather, refit):
         The loss probabilities used.
     refit : bool
         Whether degenerate weights were refitted.
+    excluded : sequence of planner.workflow.accounting.LeftOut
+        Targets left out of the run as never observable (key ``left_out``).
 
     Returns
     -------
@@ -167,6 +175,8 @@ def simulate_document(scenario, experiment, weather, refit):
                                "reweighting)" + ("; bridge or kNN estimate after a refit"
                                                  if refit else "")),
         "strategies": strategies, "caution": CAUTION,
+        "left_out": [{"target": e.target, "limit": e.limit, "reason": e.reason}
+                     for e in excluded],
     }
 
 
@@ -205,12 +215,8 @@ def render_tables(experiment):
 
 def _plot_bits(experiment, path):
     """Realised against expected bits, one point per strategy and seed (matplotlib)."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    fig, ax = plt.subplots(figsize=(6, 5))
+    fig = _figure(figsize=(6, 5))
+    ax = fig.subplots()
     top = 0.0
     for s in experiment.summaries:
         runs = [r for r in experiment.runs if r.strategy == s.strategy]
@@ -225,22 +231,18 @@ def _plot_bits(experiment, path):
     ax.legend()
     fig.tight_layout()
     _save(fig, path)
-    plt.close(fig)
 
 
 def _plot_star(setup, experiment, target, path):
     """One star's period and semi-amplitude before and after, first seed, each strategy."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
     import numpy as np
 
     from planner.information.update import importance_weights, new_data_log_likelihood
 
     post = setup.posteriors[target]
     first = [r for r in experiment.runs if r.seed == experiment.seeds[0]]
-    fig, axes = plt.subplots(1, 2, figsize=(10, 4))
+    fig = _figure(figsize=(10, 4))
+    axes = fig.subplots(1, 2)
     names = ("period_1", "semi_amplitude_1")
     if post.model.n_planets == 0:
         names = (f"offset_{setup.instrument_name}", f"jitter_{setup.instrument_name}")
@@ -265,7 +267,12 @@ def _plot_star(setup, experiment, target, path):
     fig.suptitle(f"{target}: posterior before and after the simulated run (true value dotted)")
     fig.tight_layout()
     _save(fig, path)
-    plt.close(fig)
+
+
+def _figure(**kwargs):
+    from planner.workflow.plots import new_figure
+
+    return new_figure(**kwargs)
 
 
 def _save(fig, path):

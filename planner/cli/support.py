@@ -18,6 +18,7 @@ __all__ = [
     "ProgressBar",
     "SCENARIO_HELP",
     "add_common_options",
+    "add_strict",
     "fit_with_progress",
     "open_session",
 ]
@@ -57,7 +58,7 @@ SCENARIO_HELP = "scenario YAML file (default: the bundled invented demo run)"
 
 def add_common_options(parser: argparse.ArgumentParser,
                        scenario_help: str = SCENARIO_HELP) -> None:
-    """Add the options every command shares: SCENARIO, --cache, --no-cache, --jobs."""
+    """Add the options every command shares: SCENARIO, --cache, --no-cache, --jobs, --scheduler."""
     parser.add_argument("scenario", nargs="?", default=None, metavar="SCENARIO",
                         help=scenario_help)
     parser.add_argument("--cache", metavar="DIR", default=None,
@@ -66,6 +67,17 @@ def add_common_options(parser: argparse.ArgumentParser,
     parser.add_argument("--no-cache", action="store_true", help="fit again, keep nothing")
     parser.add_argument("--jobs", type=int, default=None, metavar="N",
                         help="processes for fitting (default: all cores)")
+    parser.add_argument("--scheduler", metavar="ADDRESS", default=None,
+                        help="run the fits on a Dask distributed cluster, e.g. "
+                             "tcp://host:8786 (default: $NIGHTBITS_SCHEDULER, else local "
+                             "processes; needs the dask extra)")
+
+
+def add_strict(parser: argparse.ArgumentParser) -> None:
+    """Add ``--strict``: a never-observable target is an error instead of being left out."""
+    parser.add_argument("--strict", action="store_true",
+                        help="stop with an error if a target can never be observed, instead "
+                             "of leaving it out and listing it with the limit that excludes it")
 
 
 def open_session(args):
@@ -80,4 +92,5 @@ def open_session(args):
 def fit_with_progress(args, pipeline, scenario, cache):
     """Fit (or load from the cache) every target's posterior, with a progress bar on stderr."""
     bar = ProgressBar(sys.stderr, "fitting")
-    return pipeline.fit_posteriors(scenario, cache=cache, jobs=args.jobs, progress=bar)
+    return pipeline.fit_posteriors(scenario, cache=cache, jobs=args.jobs, progress=bar,
+                                   scheduler=pipeline.scheduler_address(args.scheduler))

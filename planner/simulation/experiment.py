@@ -342,7 +342,7 @@ def run_experiment(setup, strategies=STRATEGIES, seeds=(0,), weather=None, refit
                       summaries=summarise(runs, strategies, tuple(setup.posteriors)))
 
 
-def build_setup(scenario, posteriors, truths, time_limit_s=None):
+def build_setup(scenario, posteriors, truths, time_limit_s=None, strict=False):
     """Build the Setup of a scenario: its sky, noise and the pipeline's strategies as planners.
 
     Parameters
@@ -356,6 +356,9 @@ def build_setup(scenario, posteriors, truths, time_limit_s=None):
     time_limit_s : float, optional
         Solver limit of every joint plan, the adaptive re-plans included (default the
         scenario's).
+    strict : bool
+        Stop on a never-observable target instead of leaving it out
+        (:func:`planner.workflow.pipeline.prepare`).
 
     Returns
     -------
@@ -370,7 +373,7 @@ def build_setup(scenario, posteriors, truths, time_limit_s=None):
     if missing:
         raise PlanError(f"target {missing[0]!r} has no true orbit; add its truth file (see "
                         "docs/simulation.md) or pass the right folder with --truth.")
-    run = pipeline.prepare(scenario, posteriors)
+    run = pipeline.prepare(scenario, posteriors, strict=strict)
     jobs = pipeline.fit_jobs(scenario)
     past = {job.target: job.data for job in jobs}
     aligned = run.aligned

@@ -22,7 +22,7 @@ from __future__ import annotations
 
 import logging
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -33,9 +33,13 @@ from planner.sky.tracks import Sky
 __all__ = [
     "Constraints",
     "DEFAULT_MOON_TABLE",
+    "Exclusion",
+    "LIMIT_WORDS",
     "binding_constraints",
+    "blocking_limits",
     "instantaneous_ok",
     "observable_hours",
+    "never_observable",
     "observable_starts",
 ]
 
@@ -209,53 +213,186 @@ def observable_hours(sky: Sky, constraints: Constraints, exposure_s=0.0) -> NDAr
     return hours
 
 
-def binding_constraints(
-    sky: Sky, constraints: Constraints, exposure_s=0.0
-) -> tuple[str | None, ...]:
-    """Explain, for each target never observable, which limit keeps it out.
+#: The limits that can keep a target out, as keys, and the words the reports use for them.
+#: ``dark_time``: the dark windows less blackouts and lost time; ``window``: the target's own
+#: allowed windows; then the three sky limits.
+LIMIT_WORDS: dict[str, str] = {"dark_time": "dark time", "window": "window",
+                               "altitude": "altitude", "airmass": "airmass", "moon": "Moon"}
+_SKY_LIMITS = ("altitude", "airmass", "moon")
+
+
+@dataclass(frozen=True)
+class Exclusion:
+    """Why a target can never be observed in the run.
+
+    Attributes
+    ----------
+    target : str
+        Target name.
+    index : int
+        Its index in the sky's targets.
+    limit : str
+        The binding limit, a key of :data:`LIMIT_WORDS`, or several joined by ``+`` when
+        relaxing any one of them would let the target in (``altitude+moon``).
+    reason : str
+        What keeps it out, with the numbers (``its airmass never gets down to the limit 1.5
+        during the dark windows (lowest 1.62)``).
+    """
+
+    target: str
+    index: int
+    limit: str
+    reason: str
+
+    @property
+    def sentence(self) -> str:
+        """The one sentence for the user: what, why, and how to fix it."""
+        return (f"Target {self.target!r} is never observable in this run: {self.reason}; relax "
+                "that limit or drop the target.")
+
+
+def _relaxed_starts(sky: Sky, constraints: Constraints, exposure_s, drop) -> NDArray[np.bool_]:
+    """Observable starts with the limits named in ``drop`` switched off."""
+    masks = _limit_masks(sky, constraints)
+    ok = np.ones(sky.altitude_deg.shape, dtype=bool)
+    for key, mask in masks.items():
+        if key not in drop:
+            ok &= mask
+    if "window" in drop:
+        constraints = replace(constraints, target_windows=None)
+    return _starts_from_mask(sky, ok, constraints, exposure_s)
+
+
+def _any(starts: NDArray[np.bool_], sky: Sky, per_night: bool) -> NDArray[np.bool_]:
+    if not per_night:
+        return starts.any(axis=1)[:, None]
+    counts = np.zeros((starts.shape[0], len(sky.nights)), dtype=np.int64)
+    np.add.at(counts.T, sky.night_index, starts.T.astype(np.int64))
+    return counts > 0
+
+
+def blocking_limits(sky: Sky, constraints: Constraints, exposure_s,
+                    per_night: bool = False) -> NDArray[np.object_]:
+    """Name the limit that keeps each target out, over the run or per night.
+
+    Parameters
+    ----------
+    sky : Sky
+    constraints : Constraints
+    exposure_s : float or array_like, shape (n_targets,)
+        Exposure length [s] (each target's shortest, to ask whether it can be observed at all).
+    per_night : bool
+        One answer per night instead of one for the whole run.
 
     Returns
     -------
-    tuple of (str or None), length n_targets
-        ``None`` for a target observable at some time; otherwise one sentence
-        naming the binding limit (also logged as a warning).
+    ndarray of str, shape (n_targets,) or (n_targets, n_nights)
+        ``""`` where an exposure can start; otherwise the key of :data:`LIMIT_WORDS` that keeps
+        the target out, in this order of precedence: ``dark_time`` (no dark stretch long enough
+        outside blackouts and lost time), ``window`` (its own windows hold none), then the first
+        of ``altitude``, ``airmass``, ``moon`` that alone is never met; failing those, the
+        limits whose relaxation alone would let it in, joined by ``+`` (all of them when no
+        single relaxation would).
+
+    Notes
+    -----
+    Each answer is found by switching limits off one at a time on the same gridded mask as
+    :func:`observable_starts`, so a name given here is a limit whose relaxation changes the
+    planner's own answer.
     """
-    masks = _limit_masks(sky, constraints)
+    n = sky.n_targets
+    exp = np.broadcast_to(np.asarray(exposure_s, dtype=float), (n,))
+    every = ("window",) + _SKY_LIMITS
+    shape = (n, len(sky.nights)) if per_night else (n, 1)
+    out = np.full(shape, "", dtype=object)
+    decided = np.zeros(shape, dtype=bool)
+
+    def settle(open_, name):
+        nonlocal decided
+        hit = ~open_ & ~decided
+        out[hit] = name
+        decided |= hit
+
+    full = _any(_relaxed_starts(sky, constraints, exp, ()), sky, per_night)
+    decided |= full
+    settle(_any(_relaxed_starts(sky, constraints, exp, every), sky, per_night), "dark_time")
+    settle(_any(_relaxed_starts(sky, constraints, exp, _SKY_LIMITS), sky, per_night), "window")
+    for key in _SKY_LIMITS:
+        alone = tuple(k for k in _SKY_LIMITS if k != key)
+        settle(_any(_relaxed_starts(sky, constraints, exp, alone), sky, per_night), key)
+    if not decided.all():
+        opened = {key: _any(_relaxed_starts(sky, constraints, exp, (key,)), sky, per_night)
+                  for key in every}
+        for idx in zip(*np.nonzero(~decided), strict=True):
+            names = [key for key in every if opened[key][idx]] or list(_SKY_LIMITS)
+            out[idx] = "+".join(names)
+    return out if per_night else out[:, 0]
+
+
+def never_observable(sky: Sky, constraints: Constraints,
+                     exposure_s=0.0) -> tuple[Exclusion | None, ...]:
+    """Explain, for each target never observable, which limit keeps it out.
+
+    Parameters
+    ----------
+    sky : Sky
+    constraints : Constraints
+    exposure_s : float or array_like, shape (n_targets,)
+        Exposure length [s]; give each target's shortest option.
+
+    Returns
+    -------
+    tuple of (Exclusion or None), length n_targets
+        ``None`` for a target observable at some time.
+    """
+    n = sky.n_targets
+    exp = np.broadcast_to(np.asarray(exposure_s, dtype=float), (n,))
+    limits = blocking_limits(sky, constraints, exp)
     dark = sky.times_jd <= _dark_end(sky)
-    starts = observable_starts(sky, constraints, exposure_s)
-    open_time = _starts_from_mask(sky, np.ones_like(starts), constraints, np.zeros(sky.n_targets))
-    limits = constraints.airmass_limits(sky.n_targets)
+    airmass_limits = constraints.airmass_limits(n)
+    need = constraints.min_moon_separation(sky.moon_illumination)
     site = sky.site
-    out: list[str | None] = []
+    out: list[Exclusion | None] = []
     for k, name in enumerate(sky.names):
-        if starts[k].any():
+        limit = limits[k]
+        if not limit:
             out.append(None)
             continue
-        alone = [key for key, mask in masks.items() if not (mask[k] & dark).any()]
-        both = masks["altitude"][k] & masks["airmass"][k] & masks["moon"][k] & dark
-        if not open_time[k].any():
-            why = "the blackout windows and its own allowed windows leave no dark time"
-        elif "altitude" in alone:
-            best = sky.altitude_deg[k][dark].max()
-            why = (
-                f"it never stands between {site.min_altitude_deg:g} and {site.max_altitude_deg:g} "
-                f"deg altitude during the dark windows (highest {best:.1f} deg)"
-            )
-        elif "airmass" in alone:
-            why = (
-                f"its airmass never gets down to the limit {limits[k]:g} during the dark windows "
-                f"(lowest {sky.airmass[k][dark].min():.2f})"
-            )
-        elif "moon" in alone:
-            why = "the Moon is always closer than the required separation while it is dark"
-        elif not (both & (open_time[k])).any():
-            why = "the altitude, airmass and Moon limits are never met together outside blackouts"
+        if limit == "dark_time":
+            why = (f"the blackouts and lost time leave no dark stretch of {exp[k]:g} s")
+        elif limit == "window":
+            why = (f"its own allowed windows hold no dark stretch of {exp[k]:g} s outside the "
+                   "blackouts")
+        elif limit == "altitude":
+            why = (f"it never stands between {site.min_altitude_deg:g} and "
+                   f"{site.max_altitude_deg:g} deg altitude during the dark windows (highest "
+                   f"{sky.altitude_deg[k][dark].max():.1f} deg)")
+        elif limit == "airmass":
+            why = (f"its airmass never gets down to the limit {airmass_limits[k]:g} during the "
+                   f"dark windows (lowest {sky.airmass[k][dark].min():.2f})")
+        elif limit == "moon":
+            up = dark & (sky.moon_altitude_deg > 0.0)
+            margin = np.where(up, sky.moon_separation_deg[k] - need, -np.inf)
+            i = int(np.argmax(margin))
+            why = (f"the Moon is always closer than the required separation while it is dark "
+                   f"(at best {sky.moon_separation_deg[k, i]:.1f} deg from it, {need[i]:g} deg "
+                   "needed)")
         else:
-            why = f"no stretch of {float(np.max(exposure_s)):g} s meets every limit throughout"
-        sentence = (
-            f"Target {name!r} is never observable in this run: {why}; relax that limit or drop "
-            "the target."
-        )
-        logger.warning(sentence)
-        out.append(sentence)
+            words = [LIMIT_WORDS[key] for key in limit.split("+")]
+            if len(words) == 1:
+                why = (f"no stretch of {exp[k]:g} s meets the {words[0]} limit together with "
+                       "the others (relaxing it would let the target in)")
+            else:
+                why = (f"no stretch of {exp[k]:g} s meets the {' and '.join(words)} limits "
+                       "together (relaxing any one of them would let the target in)")
+        logger.info("target %r never observable: %s", name, why)
+        out.append(Exclusion(target=name, index=k, limit=limit, reason=why))
     return tuple(out)
+
+
+def binding_constraints(
+    sky: Sky, constraints: Constraints, exposure_s=0.0
+) -> tuple[str | None, ...]:
+    """Return the sentence of each target never observable (:func:`never_observable`), else None."""
+    return tuple(None if e is None else e.sentence
+                 for e in never_observable(sky, constraints, exposure_s))

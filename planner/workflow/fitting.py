@@ -13,7 +13,23 @@ from pathlib import Path
 from planner.errors import PlanError, ScenarioError
 from planner.workflow.scenario import Scenario
 
-__all__ = ["cache_folder", "fit_jobs", "fit_posteriors", "sampler_settings"]
+__all__ = [
+    "SCHEDULER_ENV",
+    "cache_folder",
+    "fit_jobs",
+    "fit_posteriors",
+    "sampler_settings",
+    "scheduler_address",
+]
+
+#: Environment variable naming a Dask scheduler for the fits when no address is given.
+SCHEDULER_ENV = "NIGHTBITS_SCHEDULER"
+
+
+def scheduler_address(override: str | None) -> str | None:
+    """Return the Dask scheduler of the fits: ``override``, else ``$NIGHTBITS_SCHEDULER``."""
+    address = override or os.environ.get(SCHEDULER_ENV, "")
+    return address.strip() or None
 
 
 def cache_folder(scenario: Scenario, override: str | None, disabled: bool) -> Path | None:
@@ -82,7 +98,7 @@ def _target_seed(seed: int, target_id: str) -> int:
 
 
 def fit_posteriors(scenario: Scenario, cache: Path | None = None, jobs: int | None = None,
-                   progress=None) -> dict:
+                   progress=None, scheduler: str | None = None) -> dict:
     """Sample (or load from the cache) the posterior of every target.
 
     Parameters
@@ -94,6 +110,10 @@ def fit_posteriors(scenario: Scenario, cache: Path | None = None, jobs: int | No
         Worker processes (None: every core; 1: in this process).
     progress : callable, optional
         ``progress(done, total, label)`` after each target.
+    scheduler : str, optional
+        Address of a Dask distributed scheduler (``tcp://host:8786``): the fits run on its
+        workers (:func:`inference.batch.dask_executor`) instead of local processes, and
+        ``jobs`` is not used. Cached posteriors are still read and written here.
 
     Returns
     -------
@@ -112,9 +132,15 @@ def fit_posteriors(scenario: Scenario, cache: Path | None = None, jobs: int | No
 
     work = fit_jobs(scenario)
     store = None if cache is None else FitCache(cache)
+    from inference.batch import dask_executor
+
     workers = max(1, min(jobs or os.cpu_count() or 1, len(work)))
-    # One worker fits in this process (a thread), more fit in worker processes.
-    executor = ThreadPoolExecutor(1) if workers == 1 else ProcessPoolExecutor(workers)
+    if scheduler:
+        executor = dask_executor(scheduler)
+    elif workers == 1:  # one worker fits in this process (a thread)
+        executor = ThreadPoolExecutor(1)
+    else:  # more fit in worker processes
+        executor = ProcessPoolExecutor(workers)
     try:
         results = fit_many(work, executor=executor, cache=store, progress=progress)
     finally:

@@ -27,6 +27,7 @@ from pathlib import Path
 from typing import Any
 
 from planner.errors import PlanError
+from planner.workflow.accounting import LeftOut, TargetAccount
 
 __all__ = [
     "FORMAT_VERSION",
@@ -165,6 +166,12 @@ class PlanFile:
     objective_bits : float or None
         The strategy's own objective (the solver's redundancy-aware surrogate of the bits), the
         quantity ``bound_bits`` bounds.
+    left_out : tuple of planner.workflow.accounting.LeftOut
+        Targets that can never be observed in the run, with the limit that keeps each out
+        (plan.json key ``left_out``; empty in files written before it existed).
+    target_summary : tuple of planner.workflow.accounting.TargetAccount
+        Every target's visits, nights, expected bits and what bound it, in scenario order
+        (plan.json key ``target_summary``).
     """
 
     strategy: str
@@ -181,6 +188,8 @@ class PlanFile:
     visits: tuple[ScheduledVisit, ...]
     notes: tuple[str, ...] = ()
     objective_bits: float | None = None
+    left_out: tuple = ()
+    target_summary: tuple = ()
 
     def to_json(self) -> str:
         """Return the plan.json text (UTF-8, indented, with a format version)."""
@@ -240,7 +249,8 @@ def write_compare_json(comparison, path: str | Path) -> Path:
 
     Parameters
     ----------
-    comparison : planner.allocation.compare.Comparison
+    comparison : planner.allocation.compare.Comparison or planner.workflow.pipeline.ComparisonReport
+        Anything with a ``document()`` (the report's adds the targets left out).
     path : str or Path
         Output file; written to a temporary file in the same folder, then renamed over it.
 
@@ -269,7 +279,7 @@ def _write_temporary(path: Path, data: bytes) -> Path:
 
 
 def check_out_folder(out: str | Path, force: bool,
-                     names: tuple[str, ...] = ("plan.json", "plan.csv")) -> None:
+                     names: tuple[str, ...] = ("plan.json", "plan.csv", "plan.ecsv")) -> None:
     """Fail at once, before any work, if ``out`` holds one of ``names`` and ``force`` is off."""
     existing = [Path(out) / name for name in names if (Path(out) / name).exists()]
     if existing and not force:
@@ -277,8 +287,9 @@ def check_out_folder(out: str | Path, force: bool,
                         "another folder with --out.")
 
 
-def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False) -> tuple[Path, Path]:
-    """Write ``plan.json`` and ``plan.csv`` into ``out_dir`` atomically.
+def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False,
+               extra: dict[str, str] | None = None) -> tuple[Path, Path]:
+    """Write ``plan.json`` and ``plan.csv`` (and ``extra`` files) into ``out_dir`` atomically.
 
     Parameters
     ----------
@@ -287,6 +298,9 @@ def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False) -> tupl
     plan : PlanFile
     force : bool
         Replace an existing plan in that folder.
+    extra : dict of str to str, optional
+        More files of the plan by name and text (``{"plan.ecsv": ...}``), written and renamed
+        with the other two, so a crash leaves all of them as they were.
 
     Returns
     -------
@@ -302,6 +316,7 @@ def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False) -> tupl
     json_path, csv_path = out / "plan.json", out / "plan.csv"
     check_out_folder(out, force)
     payload = {json_path: plan.to_json().encode("utf-8"), csv_path: plan.to_csv().encode("utf-8")}
+    payload.update({out / name: text.encode("utf-8") for name, text in (extra or {}).items()})
     try:
         out.mkdir(parents=True, exist_ok=True)
         temporaries = {}
@@ -341,7 +356,12 @@ def read_plan(path: str | Path) -> PlanFile:
     if not isinstance(raw, dict) or raw.get("format_version") != FORMAT_VERSION:
         raise PlanError(f"{where}: not a nightbits plan file of format version {FORMAT_VERSION}; "
                         "write it again with `nightbits plan`.")
-    top = _record(PlanFile, raw, where, skip=("nights", "visits"), pairs=("moon_table",))
+    top = _record(PlanFile, raw, where, skip=("nights", "visits", "left_out", "target_summary"),
+                  pairs=("moon_table",))
+    for key, cls in (("left_out", LeftOut), ("target_summary", TargetAccount)):
+        if key in raw:
+            top[key] = tuple(_record(cls, r, f"{where}: {key}[{i}]")
+                             for i, r in enumerate(_list(raw, key, where)))
     nights = tuple(_record(NightSummary, n, f"{where}: nights[{i}]",
                            pairs=("moon_up", "lost", "idle", "past"))
                    for i, n in enumerate(_list(raw, "nights", where)))

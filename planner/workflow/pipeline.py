@@ -28,7 +28,13 @@ from pathlib import Path
 import numpy as np
 
 from planner.errors import PlanError
-from planner.workflow.fitting import cache_folder, fit_jobs, fit_posteriors, sampler_settings
+from planner.workflow.fitting import (
+    cache_folder,
+    fit_jobs,
+    fit_posteriors,
+    sampler_settings,
+    scheduler_address,
+)
 from planner.workflow.outputs import check_out_folder
 from planner.workflow.plan_file import build_plan_file, exact_marginals
 from planner.workflow.prepared import PreparedRun, prepare
@@ -67,6 +73,7 @@ __all__ = [
     "run_strategy",
     "sampler_settings",
     "save_curves",
+    "scheduler_address",
     "uncovered_d",
     "verify",
 ]
@@ -252,6 +259,13 @@ class ComparisonReport:
 
     comparison: object
     text: str
+    left_out: tuple = ()
+
+    def document(self) -> dict:
+        """Return the ``compare.json`` document: the comparison and the targets left out."""
+        from dataclasses import asdict
+
+        return {**self.comparison.document(), "left_out": [asdict(e) for e in self.left_out]}
 
 
 def compare(run: PreparedRun, time_limit_s: float | None = None) -> ComparisonReport:
@@ -261,6 +275,8 @@ def compare(run: PreparedRun, time_limit_s: float | None = None) -> ComparisonRe
     surrogate), so a row of the table is the plan that command would print.
     """
     from planner.allocation.compare import compare_strategies
+    from planner.workflow.accounting import left_out
+    from planner.workflow.report import left_out_lines
 
     require_room(run)
     solver = run.scenario.solver
@@ -270,8 +286,10 @@ def compare(run: PreparedRun, time_limit_s: float | None = None) -> ComparisonRe
         time_limit_s=limit, seed=solver.seed, workers=solver.workers, exact_greedy=False,
         focus_per_group=JOINT_FOCUS_PER_GROUP, pack=lambda plan: pack(run, plan),
         verify=lambda plan: verify(run, plan))
-    lines = [f"{'strategy':<9} {'exposures':>9} {'stars':>5} {'exact bits':>15} "
-             f"{'bits/dark h':>11} {'slew h':>6} {'idle h':>6} {'runtime s':>9}  verified"]
+    excluded = left_out(run)
+    lines = left_out_lines(excluded)
+    lines.append(f"{'strategy':<9} {'exposures':>9} {'stars':>5} {'exact bits':>15} "
+                 f"{'bits/dark h':>11} {'slew h':>6} {'idle h':>6} {'runtime s':>9}  verified")
     for r in comparison.rows:
         lines.append(f"{r.strategy:<9} {r.visits:>9} {r.stars_observed:>5} "
                      f"{r.total_bits:>8.2f} +-{r.stderr:>4.2f} {r.bits_per_dark_hour:>11.3f} "
@@ -284,4 +302,5 @@ def compare(run: PreparedRun, time_limit_s: float | None = None) -> ComparisonRe
         lines.append(f"joint against {name}: {bits['joint'] - base:+.2f} bits{share}")
     lines.append("exact bits: per target the joint expected information of all its visits")
     lines.append("(not a sum of single visits), weighted and summed over targets.")
-    return ComparisonReport(comparison=comparison, text="\n".join(lines) + "\n")
+    return ComparisonReport(comparison=comparison, text="\n".join(lines) + "\n",
+                            left_out=excluded)

@@ -127,12 +127,8 @@ def build_plan_file(run: PreparedRun, plan, marginals, target_bits, total_bits, 
     """
     from planner.allocation.idle import idle_gaps
     from planner.sky.tracks import pointing_at
-    from planner.workflow.outputs import (
-        NightSummary,
-        PlanFile,
-        ScheduledVisit,
-        format_utc,
-    )
+    from planner.workflow.accounting import account_targets, left_out
+    from planner.workflow.outputs import NightSummary, PlanFile, ScheduledVisit, format_utc
 
     scenario = run.scenario
     by_id = {t.id: t for t in scenario.targets}
@@ -183,4 +179,5 @@ def build_plan_file(run: PreparedRun, plan, marginals, target_bits, total_bits, 
         max_airmass=float(scenario.constraints.max_airmass),
         moon_table=tuple(tuple(map(float, r)) for r in run.moon_table),
         target_bits=per_target, nights=nights, visits=tuple(all_visits), notes=tuple(notes),
-        objective_bits=round(float(plan.objective), 5))
+        objective_bits=round(float(plan.objective), 5), left_out=left_out(run),
+        target_summary=account_targets(run, plan, marginals, target_bits))

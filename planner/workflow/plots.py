@@ -1,8 +1,10 @@
 """Optional plots (the ``plot`` extra): night altitude charts, information curves, comparisons.
 
-matplotlib is imported inside each function, with the non-interactive Agg backend, so the rest
-of nightbits never needs it. Every figure is written atomically (a temporary file in the same
-folder, then renamed); the format follows the file's suffix (``.png``, ``.pdf``, ``.svg``).
+matplotlib is imported inside each function, and figures are built with its object interface
+(:class:`matplotlib.figure.Figure`), never through pyplot's global state, so no backend is
+chosen or forced here and the rest of nightbits never needs matplotlib. Every figure is written
+atomically (a temporary file in the same folder, then renamed); the format follows the file's
+suffix (``.png``, ``.pdf``, ``.svg``). Time axes are clock times in the site's time zone.
 """
 
 from __future__ import annotations
@@ -15,19 +17,33 @@ import numpy as np
 from planner.errors import PlanError
 from planner.workflow.outputs import atomic_write_bytes
 
-__all__ = ["plot_comparison", "plot_curves", "plot_nights"]
+__all__ = [
+    "airmass_altitude_deg",
+    "comparison_figure",
+    "curves_figure",
+    "jd_to_datetime64",
+    "new_figure",
+    "night_figure",
+    "plot_comparison",
+    "plot_curves",
+    "plot_nights",
+]
 
 
-def _pyplot():
+def new_figure(**kwargs):
+    """Return a matplotlib ``Figure`` (object interface: no pyplot state, no backend forced).
+
+    Raises
+    ------
+    PlanError
+        If matplotlib is not installed.
+    """
     try:
-        import matplotlib
+        from matplotlib.figure import Figure
     except ImportError:
         raise PlanError("plots need matplotlib; install it with `pip install "
                         "nightbits[plot]` or leave out --plot.") from None
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    return plt
+    return Figure(**kwargs)
 
 
 def _save(fig, path: str | Path) -> Path:
@@ -36,119 +52,182 @@ def _save(fig, path: str | Path) -> Path:
     if suffix not in ("png", "pdf", "svg"):
         raise PlanError(f"--plot {path}: use a .png, .pdf or .svg file name.")
     buffer = io.BytesIO()
-    try:
-        fig.savefig(buffer, format=suffix, dpi=110)
-        atomic_write_bytes(path, buffer.getvalue())
-    finally:
-        import matplotlib.pyplot as plt
-
-        plt.close(fig)
+    fig.savefig(buffer, format=suffix, dpi=110)
+    atomic_write_bytes(path, buffer.getvalue())
     return path
 
 
-def _hours(times_jd, zone, ref_jd):
-    """Local clock hours after the local midnight before ``ref_jd`` (may pass 24)."""
-    import datetime as dt
+def jd_to_datetime64(times_jd) -> np.ndarray:
+    """JD (UTC scale) to ``numpy.datetime64[ms]`` (UTC), for matplotlib's date axes."""
+    ms = np.round((np.asarray(times_jd, dtype=float) - 2440587.5) * 86400000.0)
+    return ms.astype("int64").astype("datetime64[ms]")
 
-    from planner.workflow.outputs import format_utc
 
-    ref = dt.datetime.fromisoformat(format_utc(ref_jd).replace("Z", "+00:00")).astimezone(zone)
-    midnight_jd = ref_jd - (ref.hour + ref.minute / 60.0 + ref.second / 3600.0) / 24.0
-    return (np.asarray(times_jd) - midnight_jd) * 24.0
+def airmass_altitude_deg(airmass: float) -> float:
+    """Altitude at which the Kasten and Young airmass equals ``airmass`` [deg].
+
+    Notes
+    -----
+    Inverts :func:`planner.sky.airmass.airmass_kasten_young` (Kasten and Young 1989), which
+    falls monotonically with altitude, by root finding.
+    """
+    from scipy.optimize import brentq
+
+    from planner.sky.airmass import airmass_kasten_young
+
+    if airmass <= 1.0:
+        return 90.0
+    return float(brentq(lambda alt: float(airmass_kasten_young(alt)) - airmass, 0.0, 90.0,
+                        xtol=1e-6))
+
+
+def _clock_axis(ax, zone, dates: bool = False) -> None:
+    """Ticks at local clock times (``HH:MM``), with the dates too when ``dates``."""
+    import matplotlib.dates as mdates
+
+    locator = mdates.AutoDateLocator(tz=zone, minticks=4, maxticks=12)
+    ax.xaxis.set_major_locator(locator)
+    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator, tz=zone) if dates
+                                 else mdates.DateFormatter("%H:%M", tz=zone))
 
 
 def plot_nights(run, plan_file, path) -> Path:
-    """Altitude against local time for the scheduled targets, one panel per night.
+    """Draw :func:`night_figure` to ``path`` (png, pdf or svg)."""
+    return _save(night_figure(run, plan_file), path)
+
+
+def night_figure(run, plan_file):
+    """Altitude against local clock time for the stars scheduled each night, one panel a night.
+
+    Only the stars with an exposure that night are drawn, each in its own colour with its
+    exposures as thick segments; the dashed lines are the site's lowest altitude and the
+    altitude of each airmass limit in force for those stars; grey: Moon up.
 
     Parameters
     ----------
     run : planner.workflow.pipeline.PreparedRun
     plan_file : planner.workflow.outputs.PlanFile
-    path : str or pathlib.Path
-        Output image.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
     """
     from zoneinfo import ZoneInfo
 
+    import matplotlib
+
     from planner.workflow.outputs import parse_utc
 
-    plt = _pyplot()
     zone = ZoneInfo(run.site.timezone)
     ids = [t.id for t in run.scenario.targets]
+    limits = run.constraints.airmass_limits(len(ids))
     nights = run.nights
-    fig, axes = plt.subplots(len(nights), 1, figsize=(10, 2.6 * len(nights)), squeeze=False)
-    colours = plt.get_cmap("tab20")
-    for k, (night, ax) in enumerate(zip(nights, axes[:, 0], strict=True)):
+    most = max((len({v.target for v in plan_file.visits if v.night == n.date}) for n in nights),
+               default=0)
+    columns = max(1, -(-most // 16))  # legend columns: at most 16 names in one
+    fig = new_figure(figsize=(10 + 1.6 * columns, max(3.4, 0.16 * min(most, 16) + 1.2)
+                              * len(nights)), layout="constrained")
+    axes = np.atleast_1d(fig.subplots(len(nights), 1, squeeze=False)[:, 0])
+    colours = matplotlib.colormaps["tab20"]
+    for k, (night, ax) in enumerate(zip(nights, axes, strict=True)):
         cols = np.flatnonzero(run.sky.night_index == k)
-        hours = _hours(run.sky.times_jd[cols], zone, night.sunset_jd)
+        times = run.sky.times_jd[cols]
+        clock = jd_to_datetime64(times)
         visits = [v for v in plan_file.visits if v.night == night.date]
-        for j, target in enumerate(sorted({v.target for v in visits})):
+        scheduled = sorted({v.target for v in visits}, key=ids.index)
+        for j, target in enumerate(scheduled):
             s = ids.index(target)
             colour = colours(j % 20)
-            ax.plot(hours, run.sky.altitude_deg[s, cols], color=colour, lw=0.8)
+            ax.plot(clock, run.sky.altitude_deg[s, cols], color=colour, lw=0.7, alpha=0.55,
+                    label=target)
             for v in (v for v in visits if v.target == target):
                 t = np.linspace(parse_utc(v.start_utc), parse_utc(v.end_utc), 8)
-                alt = np.interp(t, run.sky.times_jd[cols], run.sky.altitude_deg[s, cols])
-                ax.plot(_hours(t, zone, night.sunset_jd), alt, color=colour, lw=4,
-                        solid_capstyle="butt")
-            ax.text(hours[np.argmax(run.sky.altitude_deg[s, cols])],
-                    run.sky.altitude_deg[s, cols].max() + 1, target, fontsize=6, color=colour,
-                    ha="center")
+                alt = np.interp(t, times, run.sky.altitude_deg[s, cols])
+                ax.plot(jd_to_datetime64(t), alt, color=colour, lw=4, solid_capstyle="butt")
         for a, b in night.moon_up:
-            ax.axvspan(*_hours([a, b], zone, night.sunset_jd), color="0.9", zorder=0)
-        ax.axhline(run.site.min_altitude_deg, color="0.5", lw=0.6, ls="--")
-        ax.set_xlim(hours[0], hours[-1])
+            ax.axvspan(*jd_to_datetime64([a, b]), color="0.9", zorder=0)
+        ax.axhline(run.site.min_altitude_deg, color="0.4", lw=0.7, ls=":",
+                   label=f"lowest altitude {run.site.min_altitude_deg:g} deg")
+        for limit in sorted({float(limits[ids.index(t)]) for t in scheduled}):
+            alt = airmass_altitude_deg(limit)
+            ax.axhline(alt, color="0.2", lw=0.8, ls="--",
+                       label=f"airmass {limit:g} (altitude {alt:.1f} deg)")
+        ax.set_xlim(clock[0], clock[-1])
         ax.set_ylim(0, 90)
         ax.set_ylabel("altitude [deg]")
-        ax.set_title(f"night of {night.date} (shaded: Moon up)", fontsize=9)
-        ticks = np.arange(np.ceil(hours[0]), np.floor(hours[-1]) + 1)
-        ax.set_xticks(ticks, [f"{int(h) % 24:02d}" for h in ticks])
-    axes[-1, 0].set_xlabel(f"local time ({run.site.timezone}) [h]")
+        ax.set_title(f"night of {night.date}: {len(visits)} exposures of {len(scheduled)} stars"
+                     " (grey: Moon up)", fontsize=9)
+        _clock_axis(ax, zone)
+        ax.legend(fontsize=6, loc="upper left", bbox_to_anchor=(1.005, 1.0), frameon=False,
+                  ncol=columns, handlelength=1.2, columnspacing=0.8, labelspacing=0.25)
+    axes[-1].set_xlabel(f"local time ({run.site.timezone})")
     fig.suptitle(f"{plan_file.run_name}: {plan_file.strategy} plan, thick lines are exposures",
                  fontsize=10)
-    fig.tight_layout()
-    return _save(fig, path)
+    return fig
 
 
 def plot_curves(run, path, targets=None) -> Path:
-    """One-visit expected bits against local time, best exposure option, per target."""
+    """Draw :func:`curves_figure` to ``path`` (png, pdf or svg)."""
+    return _save(curves_figure(run, targets), path)
+
+
+def curves_figure(run, targets=None):
+    """One-visit expected bits against local date and time, best exposure option, per target."""
     from zoneinfo import ZoneInfo
 
-    plt = _pyplot()
+    import matplotlib
+
     zone = ZoneInfo(run.site.timezone)
     ids = [t.id for t in run.scenario.targets]
     chosen = list(targets or ids)
-    fig, ax = plt.subplots(figsize=(10, 4))
-    ref = run.nights[0].sunset_jd
-    colours = plt.get_cmap("tab20")
+    fig = new_figure(figsize=(11, 4.2), layout="constrained")
+    ax = fig.subplots()
+    colours = matplotlib.colormaps["tab20"]
     for j, name in enumerate(chosen):
         s = ids.index(name)
         best = run.bits[:, s].max(axis=0)
         best = np.where(run.observable[:, s].any(axis=0), best, np.nan)
         for k in range(len(run.nights)):
             cols = np.flatnonzero(run.sky.night_index == k)
-            ax.plot(_hours(run.sky.times_jd[cols], zone, ref), best[cols], lw=0.9,
+            ax.plot(jd_to_datetime64(run.sky.times_jd[cols]), best[cols], lw=0.9,
                     color=colours(j % 20), label=name if k == 0 else None)
-    ax.set_xlabel(f"hours from local midnight before the first night ({run.site.timezone})")
+    _clock_axis(ax, zone, dates=True)
+    ax.set_xlabel(f"local date and time ({run.site.timezone})")
     ax.set_ylabel("expected bits of one velocity")
-    if len(chosen) <= 12:
-        ax.legend(fontsize=7, ncol=2)
-    fig.tight_layout()
-    return _save(fig, path)
+    ax.set_title("best one-visit information per star (gaps: not observable)", fontsize=10)
+    if len(chosen) <= 20:
+        ax.legend(fontsize=7, ncol=1 + len(chosen) // 10, loc="upper left",
+                  bbox_to_anchor=(1.005, 1.0), frameon=False)
+    return fig
 
 
 def plot_comparison(comparison, path) -> Path:
-    """Bar chart of the strategies' exact joint scores, with the solver bound if any."""
-    plt = _pyplot()
+    """Draw :func:`comparison_figure` to ``path`` (png, pdf or svg)."""
+    return _save(comparison_figure(comparison), path)
+
+
+def comparison_figure(comparison):
+    """Bar chart of the strategies' exact joint scores with their Monte Carlo error bars.
+
+    Each value is written above the top of its error bar, so labels and bars never overlap.
+    """
     rows = comparison.comparison.rows
     names = [r.strategy for r in rows]
-    bits = [r.total_bits for r in rows]
-    fig, ax = plt.subplots(figsize=(5, 3.5))
-    bars = ax.bar(names, bits, yerr=[r.stderr for r in rows], capsize=3,
-                  color=["0.6", "0.4", "0.15"][: len(names)])
-    for bar, value in zip(bars, bits, strict=True):
-        ax.text(bar.get_x() + bar.get_width() / 2, value, f"{value:.1f}", ha="center",
-                va="bottom", fontsize=8)
+    bits = np.array([r.total_bits for r in rows])
+    err = np.array([r.stderr for r in rows])
+    fig = new_figure(figsize=(5.5, 4.0), layout="constrained")
+    ax = fig.subplots()
+    x = np.arange(len(names))
+    ax.bar(x, bits, width=0.6, yerr=err, capsize=4,
+           color=["0.65", "0.45", "0.2"][: len(names)], error_kw={"lw": 1.0})
+    for xi, value, e in zip(x, bits, err, strict=True):
+        ax.annotate(f"{value:.1f} \u00b1 {e:.1f}", (xi, value + e), xytext=(0, 4),
+                    textcoords="offset points", ha="center", va="bottom", fontsize=9)
+    ax.set_xticks(x, [f"{n}\n{r.visits} exposures" for n, r in zip(names, rows, strict=True)])
+    top = float(np.max(bits + err)) if len(bits) else 1.0
+    ax.set_ylim(0, top * 1.18 if top > 0 else 1.0)
     ax.set_ylabel("exact expected information [bits]")
     ax.set_title("strategies on the same exact score", fontsize=10)
-    fig.tight_layout()
-    return _save(fig, path)
+    ax.grid(axis="y", color="0.9", lw=0.6)
+    ax.set_axisbelow(True)
+    return fig

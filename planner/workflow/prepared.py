@@ -21,7 +21,7 @@ from planner.workflow.rungrid import RunGrid, fill_bjd, physical_setup, run_grid
 from planner.workflow.saved_curves import reusable_curves
 from planner.workflow.scenario import Scenario
 
-__all__ = ["PreparedRun", "prepare", "visit_predictions"]
+__all__ = ["PreparedRun", "prepare", "shortest_exposures", "visit_predictions"]
 
 log = logging.getLogger(__name__)
 
@@ -66,6 +66,9 @@ class PreparedRun:
         Time given up (JD UTC pairs).
     done : tuple of planner.workflow.outputs.ScheduledVisit
         Executed visits kept from an earlier plan.
+    excluded : tuple of planner.sky.observability.Exclusion
+        The targets that can never be observed in this run (each with its binding limit), in
+        scenario order; they get no candidate visit and the plan goes on without them.
     """
 
     scenario: Scenario
@@ -88,9 +91,15 @@ class PreparedRun:
     surrogate: object
     lost_jd: tuple = ()
     done: tuple = ()
+    excluded: tuple = ()
 
 
-def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict: bool = True,
+def shortest_exposures(scenario: Scenario) -> np.ndarray:
+    """Each target's shortest exposure option [s], shape (n_targets,)."""
+    return np.array([min(scenario.target_exposures(t)) for t in scenario.targets], dtype=float)
+
+
+def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict: bool = False,
             seed: int | None = None, jobs: int | None = None, reuse=None) -> PreparedRun:
     """Compute the sky, limits, noise, information and candidate visits of a run.
 
@@ -105,8 +114,9 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
         Executed visits: their telescope time is closed, and for targets whose velocities from
         them are not yet in the posterior, new visits are valued given them.
     strict : bool
-        Raise if a target is never observable (a scenario error); off when re-planning, where
-        lost time may legitimately leave a target out.
+        Raise a :class:`planner.errors.ScenarioError` if a target is never observable (the
+        command line's ``--strict``); by default such targets are left out, listed in
+        ``PreparedRun.excluded`` with the limit that keeps them out.
     seed : int, optional
         Seed of the simulated outcomes behind conditional values (default: the solver seed).
     jobs : int, optional
@@ -144,8 +154,7 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
     offered = np.array([[e in scenario.target_exposures(t) for t in targets] for e in exposures])
     observable = np.stack([observable_starts(sky, constraints, e) for e in exposures])
     observable &= offered[:, :, None]
-    if strict:
-        _check_observable(scenario, sky, constraints, observable)
+    excluded = _excluded(scenario, sky, constraints, strict)
     v_mag = np.array([t.v_mag for t in targets])
     sigma = np.moveaxis(grid_sigma(instrument, sky, v_mag, exposures), 1, 0)
     predictors = tuple(Predictor.from_posterior(posteriors[t.id], scenario.instrument.name)
@@ -181,19 +190,24 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
                        instrument=instrument, mount=mount, posteriors=dict(posteriors),
                        predictors=predictors, exposures=exposures, observable=observable,
                        bits=bits, sigma=sigma, problem=problem, surrogate=surrogate,
-                       lost_jd=tuple(lost_jd), done=tuple(done))
+                       lost_jd=tuple(lost_jd), done=tuple(done), excluded=excluded)
 
 
-def _check_observable(scenario, sky, constraints, observable) -> None:
-    from planner.sky.observability import binding_constraints
+def _excluded(scenario, sky, constraints, strict: bool) -> tuple:
+    """Find the never-observable targets; with ``strict``, the first is a scenario error."""
+    from planner.sky.observability import never_observable
 
-    never = np.flatnonzero(~observable.any(axis=(0, 2)))
-    if never.size:
-        i = int(never[0])
-        shortest = min(scenario.target_exposures(scenario.targets[i]))
-        reasons = binding_constraints(sky, constraints, shortest)
-        why = reasons[i] or f"Target {scenario.targets[i].id!r} is never observable in this run."
-        raise ScenarioError(f"{scenario.path.name}: targets[{i}]: {why}")
+    excluded = tuple(e for e in never_observable(sky, constraints, shortest_exposures(scenario))
+                     if e is not None)
+    if strict and excluded:
+        first = excluded[0]
+        more = f" ({len(excluded) - 1} more targets likewise)" if len(excluded) > 1 else ""
+        raise ScenarioError(f"{scenario.path.name}: targets[{first.index}]: "
+                            f"{first.sentence.rstrip('.')}{more}, or leave out --strict to plan "
+                            "without it.")
+    for e in excluded:
+        log.info("left out %s: %s", e.target, e.reason)
+    return excluded
 
 
 def _curve_bits(args) -> np.ndarray:

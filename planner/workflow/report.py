@@ -11,7 +11,10 @@ Layout, at most 100 columns, no colour:
   marginal expected bits and the running total; every idle stretch over a minute and lost
   time as lines of their own, idle with its reason; a separator at every local hour;
 * a total per night splitting its dark window into exposing, overheads and idle (and lost,
-  and executed after a re-plan), the parts adding up to the dark window; a total for the run.
+  and executed after a re-plan), the parts adding up to the dark window; a total for the run;
+* the targets left out (never observable, each with its limit) right under the run header, and
+  after the schedule a per-target summary: visits, nights, expected bits and the limit or rule
+  that bound each star (:mod:`planner.workflow.accounting`).
 
 Only the plan file is read, so a schedule prints the same from plan.json as from the planner.
 """
@@ -25,7 +28,16 @@ import numpy as np
 
 from planner.workflow.outputs import PlanFile, ScheduledVisit, parse_utc
 
-__all__ = ["CAUTION", "WIDTH", "curves_summary", "fit_summary", "render_schedule"]
+__all__ = [
+    "CAUTION",
+    "WIDTH",
+    "curves_summary",
+    "fit_summary",
+    "left_out_lines",
+    "limit_words",
+    "render_schedule",
+    "target_summary_lines",
+]
 
 #: Widest line of the schedule [characters].
 WIDTH = 100
@@ -113,7 +125,7 @@ def render_schedule(plan: PlanFile) -> str:
                   "the exposure [s] (slew, settling, acquisition and the previous exposure's "
                   "readout), marginal expected bits, running total; idle stretches over a minute "
                   "(with their reason) and lost time on lines of their own", "  "),
-           *_wrap(CAUTION, "  "), ""]
+           *_wrap(CAUTION, "  "), "", *left_out_lines(plan.left_out)]
     by_night: dict[str, list[ScheduledVisit]] = {n.date: [] for n in plan.nights}
     for visit in plan.visits:
         by_night.setdefault(visit.night, []).append(visit)
@@ -148,6 +160,7 @@ def render_schedule(plan: PlanFile) -> str:
         out.append("lines marked * were executed and are kept as they were observed.")
     for note in plan.notes:
         out.extend(_wrap(note, "  "))
+    out.extend(target_summary_lines(plan))
     return "\n".join(line.rstrip() for line in out) + "\n"
 
 
@@ -347,7 +360,16 @@ def _read(path):
 
 
 def curves_summary(run, targets=None) -> str:
-    """Tabulate the best one-visit bits per target and night, and the local time of each."""
+    """Tabulate the best one-visit bits per target and night, and the local time of each.
+
+    A night on which the target cannot be observed shows the limit that keeps it out
+    (:func:`planner.sky.observability.blocking_limits`): ``no: Moon``, ``no: airmass``.
+    """
+    from planner.sky.observability import blocking_limits
+    from planner.workflow.prepared import shortest_exposures
+
+    blocked = blocking_limits(run.sky, run.constraints, shortest_exposures(run.scenario),
+                              per_night=True)
     zone = ZoneInfo(run.site.timezone)
     wanted = set(targets or [t.id for t in run.scenario.targets])
     head = f"{'target':<16}" + "".join(f" {n.date[5:]:>13}" for n in run.nights)
@@ -361,10 +383,80 @@ def curves_summary(run, targets=None) -> str:
         for k in range(len(run.nights)):
             cols = np.flatnonzero((run.sky.night_index == k) & run.observable[:, s].any(axis=0))
             if cols.size == 0:
-                cells.append(f" {'not up':>13}")
+                why = limit_words(blocked[s, k]) if blocked[s, k] else "no start"
+                cells.append(f" {'no: ' + why:>13}"[:14])
                 continue
             c = cols[np.argmax(best[cols])]
             moment = _hm(_moment_jd(run.sky.times_jd[c]), zone)
             cells.append(f" {best[c]:>6.3f}@{moment}")
         lines.append(f"{target.id[:16]:<16}" + "".join(cells))
+    lines.extend(_wrap("no: LIMIT - no exposure can start that night; LIMIT keeps the target out "
+                       "(altitude, airmass, Moon, its window, or dark time left after blackouts "
+                       "and lost time; a+b: either relaxed alone would let it in).", "  "))
     return "\n".join(lines) + "\n"
+
+
+# ---- every star accounted for: targets left out and the per-target summary -------------------
+
+
+def limit_words(limit: str) -> str:
+    """Words for a limit key of :data:`planner.sky.observability.LIMIT_WORDS` (``a+b`` too)."""
+    from planner.sky.observability import LIMIT_WORDS
+
+    return "+".join(LIMIT_WORDS.get(key, key) for key in limit.split("+"))
+
+
+def _hang(prefix: str, text: str) -> list[str]:
+    """``text`` wrapped to :data:`WIDTH` after ``prefix``, later lines indented to match."""
+    import textwrap
+
+    return textwrap.wrap(text, WIDTH, initial_indent=prefix,
+                         subsequent_indent=" " * len(prefix), break_on_hyphens=False)
+
+
+def left_out_lines(items) -> list[str]:
+    """Return lines naming the targets left out, each with its limit (none left out: no lines).
+
+    Parameters
+    ----------
+    items : sequence of planner.workflow.accounting.LeftOut
+        ``PlanFile.left_out``, or :func:`planner.workflow.accounting.left_out` of a run.
+    """
+    if not items:
+        return []
+    n = len(items)
+    lines = _wrap(f"left out: {n} target{'s' if n != 1 else ''} can never be observed in this "
+                  "run; the plan goes on without them:", "  ")
+    for item in items:
+        lines.extend(_hang(f"  {item.target[:16]:<16} {limit_words(item.limit):<9} ",
+                           item.reason))
+    return lines + [""]
+
+
+def target_summary_lines(plan: PlanFile) -> list[str]:
+    """Return the per-target summary printed after the schedule (none in older plan files)."""
+    if not plan.target_summary:
+        return []
+    lines = ["", "per-target summary: visits, nights, expected bits, and what bound each star",
+             f"{'target':<16} {'visits':>6} {'nights':>6} {'bits':>8}  bound",
+             "-" * WIDTH]
+    for row in plan.target_summary:
+        lines.extend(_hang(f"{row.target[:16]:<16} {row.visits:>6} {row.nights:>6} "
+                           f"{row.expected_bits:>8.3f}  ", row.reason))
+    if any(row.last_bits_per_min is not None for row in plan.target_summary):
+        lines.extend(_wrap("bits/tel. min: expected bits per telescope minute. A star's next "
+                           "visit is valued given its planned visits (the solver's surrogate), "
+                           "over exposure plus the "
+                           "mount's fixed overhead; the last visit taken is the plan's lowest "
+                           "marginal bits per minute of exposure and slew. 'in time': the "
+                           "visit is worth more than that, but its open times went to visits "
+                           "worth more.", "  "))
+        planned = [v for v in plan.visits if v.status == "planned" and v.exposure_s + v.slew_s]
+        if planned:
+            last = min(planned, key=lambda v: v.expected_bits / (v.exposure_s + v.slew_s))
+            zone = ZoneInfo(plan.site["timezone"])
+            lines.extend(_wrap(f"the last visit taken: {last.target} at "
+                               f"{_hm(_moment(last.start_utc), zone)} local on the night of "
+                               f"{last.night}, {last.expected_bits:.4f} bits in "
+                               f"{(last.exposure_s + last.slew_s) / 60.0:.1f} min.", "  "))
+    return lines
