@@ -66,8 +66,8 @@ class TargetAccount:
         Weighted joint expected bits of its visits [bits].
     bound : str
         What bound it: a limit key (never observable, see :class:`LeftOut`), a rule key
-        (``max_visits``, ``max_visits_per_night``, ``min_gap_h``, ``weight``) or
-        ``telescope_time``.
+        (``max_visits``, ``max_visits_per_night``, ``min_gap_h``, ``weight``),
+        ``saturated`` (one more visit is worth no measurable bits) or ``telescope_time``.
     reason : str
         The same in words, with the numbers.
     best_bits_per_min : float or None
@@ -183,6 +183,10 @@ def _bound(run, plan, s, target, mine, visits, last):
     floor = None if last is None else round(last, 5)
     if best is None:
         return TIME_BOUND, "observable, but no candidate start was left for it", None, floor
+    if best <= 0.0:
+        # Another visit adds nothing the Monte Carlo values can tell from zero.
+        return ("saturated", f"one more visit adds nothing measurable (best {best:.4f} bits/tel. "
+                "min)", best, floor)
     if floor is None:
         return (TIME_BOUND, f"best visit {best:.4f} bits/tel. min; no visit was taken", best,
                 None)
