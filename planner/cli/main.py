@@ -59,12 +59,19 @@ def _add_curves(sub) -> None:
                         "from equal-count period intervals) or 'alias' (which period mode)")
 
 
+def _limit_options(p, default: str) -> None:
+    p.add_argument("--work-limit", type=float, default=None, metavar="W",
+                   help="search work in CP-SAT deterministic time units; the same input gives "
+                        f"the same plan (default: {default})")
+    p.add_argument("--time-limit", type=float, default=None, metavar="S",
+                   help="search for S seconds of wall clock instead (at the telescope); the "
+                        "plan may then differ between runs")
+
+
 def _plan_options(p, out_default: str | None) -> None:
     p.add_argument("--strategy", choices=("joint", "greedy", "cadence"), default=None,
                    help="allocation strategy (default: the scenario's solver.strategy, joint)")
-    p.add_argument("--time-limit", type=float, default=None, metavar="S",
-                   help="solver wall-clock limit in seconds (default: solver.time_limit_s, "
-                        "for replan solver.replan_time_limit_s)")
+    _limit_options(p, "solver.work_limit, for replan solver.replan_work_limit")
     p.add_argument("--out", metavar="DIR", default=out_default,
                    help="folder for plan.json and plan.csv (default: %(default)s)")
     p.add_argument("--force", action="store_true", help="replace an existing plan in DIR")
@@ -82,8 +89,7 @@ def _add_compare(sub) -> None:
     p = _command(sub, "compare", "joint, greedy and cadence plans on one exact score",
                  "Plan the run with every strategy and compare them on the exact joint "
                  "information score.", _run_compare)
-    p.add_argument("--time-limit", type=float, default=None, metavar="S",
-                   help="solver wall-clock limit in seconds (default: solver.time_limit_s)")
+    _limit_options(p, "solver.work_limit")
     p.add_argument("--out", metavar="DIR", default=None,
                    help="also write DIR/compare.json (one record per strategy)")
     p.add_argument("--force", action="store_true", help="replace an existing DIR/compare.json")
@@ -173,7 +179,8 @@ def _run_plan(args) -> int:
     pipeline.check_out_folder(args.out, args.force)
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
     run = pipeline.prepare(scenario, posteriors)
-    result = pipeline.make_plan(run, strategy=args.strategy, time_limit_s=args.time_limit)
+    limit = pipeline.search_limit(scenario, args.time_limit, args.work_limit)
+    result = pipeline.make_plan(run, strategy=args.strategy, time_limit_s=limit)
     sys.stdout.write(render_schedule(result.plan_file))
     paths = write_plan(args.out, result.plan_file, force=args.force)
     pipeline.save_curves(run, paths[0].parent / "curves.npz")
@@ -198,7 +205,8 @@ def _run_compare(args) -> int:
         pipeline.check_out_folder(args.out, args.force, names=(target.name,))
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
     run = pipeline.prepare(scenario, posteriors)
-    comparison = pipeline.compare(run, time_limit_s=args.time_limit)
+    limit = pipeline.search_limit(scenario, args.time_limit, args.work_limit)
+    comparison = pipeline.compare(run, time_limit_s=limit)
     sys.stdout.write(comparison.text)
     if target is not None:
         from planner.workflow.outputs import write_compare_json
@@ -229,8 +237,9 @@ def _run_replan(args) -> int:
                                    rv_files=args.rvs, now=args.now)
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
     saved = pipeline.load_curves(Path(args.plan).parent / "curves.npz")
+    limit = pipeline.search_limit(scenario, args.time_limit, args.work_limit, replan=True)
     result = replan.replan(scenario, posteriors, old, request, strategy=args.strategy,
-                           time_limit_s=args.time_limit, reuse=saved)
+                           time_limit_s=limit, reuse=saved)
     sys.stdout.write(render_schedule(result.plan_file))
     sys.stdout.write(result.changes)
     paths = write_plan(args.out, result.plan_file, force=args.force)

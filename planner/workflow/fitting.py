@@ -13,7 +13,7 @@ from pathlib import Path
 from planner.errors import PlanError, ScenarioError
 from planner.workflow.scenario import Scenario
 
-__all__ = ["cache_folder", "fit_jobs", "fit_posteriors", "sampler_settings"]
+__all__ = ["cache_folder", "fit_jobs", "fit_posteriors", "posterior_keys", "sampler_settings"]
 
 
 def cache_folder(scenario: Scenario, override: str | None, disabled: bool) -> Path | None:
@@ -63,6 +63,22 @@ def fit_jobs(scenario: Scenario) -> list:
         jobs.append(FitJob(target=target.id, data=data, model=model, settings=settings,
                            seed=seed))
     return jobs
+
+
+def posterior_keys(scenario: Scenario, jobs=None) -> dict:
+    """Return the posterior cache key of every target (:func:`inference.cache.cache_key`), by id.
+
+    The key is a digest of the target's data, model, sampler settings, seed and the sampler
+    version, so equal keys mean equal posteriors whether they were fitted or loaded.
+    """
+    from inference.cache import cache_key
+
+    keys = {}
+    for job in (fit_jobs(scenario) if jobs is None else jobs):
+        job = job.resolved()
+        keys[job.target] = cache_key(job.data.digest, job.model, job.settings, job.seed,
+                                     target=job.target)
+    return keys
 
 
 def sampler_settings(scenario: Scenario):

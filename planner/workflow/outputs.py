@@ -156,6 +156,11 @@ class PlanFile:
     objective_bits : float or None
         The strategy's own objective (the solver's redundancy-aware surrogate of the bits), the
         quantity ``bound_bits`` bounds.
+    provenance : dict or None
+        What reproduces the plan: solver settings and limit, seeds, posterior cache keys, the
+        nightbits version and the input files' digests
+        (:func:`planner.workflow.provenance.plan_provenance`); None in plans written before it
+        was recorded.
     """
 
     strategy: str
@@ -172,6 +177,7 @@ class PlanFile:
     visits: tuple[ScheduledVisit, ...]
     notes: tuple[str, ...] = ()
     objective_bits: float | None = None
+    provenance: dict | None = None
 
     def to_json(self) -> str:
         """Return the plan.json text (UTF-8, indented, with a format version)."""

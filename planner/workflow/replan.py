@@ -327,32 +327,37 @@ def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
         Curves saved with the old plan (:func:`planner.workflow.pipeline.load_curves`), reused for
         the
         targets they still describe.
-    time_limit_s : float, optional
-        Solver limit (default: the scenario's ``solver.replan_time_limit_s``, shorter than the
-        planning limit because observers re-plan at the telescope).
+    time_limit_s : float or planner.allocation.joint.SearchLimit, optional
+        Solver limit: wall-clock seconds or a SearchLimit (default: the scenario's re-plan
+        limit, :func:`planner.workflow.pipeline.search_limit` with ``replan=True``, shorter
+        than the planning limit because observers re-plan at the telescope).
 
     Returns
     -------
     ReplanResult
     """
     from inference.data import read_rv_csv
+    from planner.information.streams import Streams
     from planner.information.update import update_posterior
     from planner.workflow import pipeline
 
-    rng = np.random.default_rng(scenario.solver.seed)
+    streams = Streams(scenario.solver.seed)
     posteriors, updates = dict(posteriors), {}
     for target_id, data in request.new_data.items():
         target = scenario.target(target_id)
-        update = update_posterior(posteriors[target_id], read_rv_csv(target.rv_file), data, rng,
+        update = update_posterior(posteriors[target_id], read_rv_csv(target.rv_file), data,
+                                  streams.star("update", target_id),
                                   settings=pipeline.sampler_settings(scenario))
         posteriors[target_id], updates[target_id] = update.posterior, update
     done = tuple(dataclasses.replace(v, status="measured") if v.target in request.new_data
                  else v for v in request.done)
     run = pipeline.prepare(scenario, posteriors, lost_jd=request.lost_jd, done=done,
                            strict=False, reuse=reuse)
-    limit = scenario.solver.replan_time_limit_s if time_limit_s is None else time_limit_s
+    limit = (pipeline.search_limit(scenario, replan=True) if time_limit_s is None
+             else time_limit_s)
     result = pipeline.make_plan(run, strategy or old.strategy, limit)
     changes = describe_changes(old, result.plan_file, request, updates)
+    changes += settings_note(old, result.plan_file)
     return ReplanResult(plan_file=result.plan_file, changes=changes, plan=result.plan, run=run,
                         updates=updates)
 
@@ -387,3 +392,19 @@ def describe_changes(old: PlanFile, new: PlanFile, request: ReplanRequest, updat
     if rows:
         lines += ["changed targets:", header, *rows]
     return "\n".join(lines) + "\n"
+
+
+def settings_note(old: PlanFile, new: PlanFile) -> str:
+    """Return a line naming what differs between the old and the new plan's settings and inputs.
+
+    The limits are left out (a re-plan uses its own, shorter one on purpose), and so are the
+    posteriors of targets with new velocities. Empty when nothing else differs.
+    """
+    from planner.workflow.provenance import differences
+
+    found = differences(old.provenance, new.provenance,
+                        skip=("work limit", "wall-clock limit [s]", "posteriors"))
+    if not found:
+        return ""
+    return ("note: the old plan was made under other settings or inputs (" + "; ".join(found)
+            + "), so its bits and visits are not comparable one to one.\n")
