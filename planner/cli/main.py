@@ -211,8 +211,9 @@ def _run_compare(args) -> int:
     if target is not None:
         from planner.workflow.outputs import write_compare_json
 
+        _earlier_settings(target.parent, comparison.provenance)
         target.parent.mkdir(parents=True, exist_ok=True)
-        write_compare_json(comparison.comparison, target)
+        write_compare_json(comparison.comparison, target, comparison.provenance)
         sys.stderr.write(f"wrote {target}\n")
     if args.plot:
         from planner.workflow.plots import plot_comparison
@@ -220,6 +221,24 @@ def _run_compare(args) -> int:
         plot_comparison(comparison, args.plot)
         sys.stderr.write(f"wrote {args.plot}\n")
     return EXIT_OK
+
+
+def _earlier_settings(folder: Path, current: dict) -> None:
+    """Say on stderr when a plan or comparison in ``folder`` was made under other settings."""
+    import json
+
+    from planner.workflow.provenance import other_settings_note
+
+    for name in ("plan.json", "compare.json"):
+        try:
+            recorded = json.loads((folder / name).read_text(encoding="utf-8"))
+        except (OSError, UnicodeDecodeError, ValueError):
+            continue  # nothing readable there: nothing to say
+        if not isinstance(recorded, dict):
+            continue
+        skip = ("solver strategy",) if name == "plan.json" else ()
+        sys.stderr.write(other_settings_note(str(folder / name), recorded.get("provenance"),
+                                             current, skip=skip))
 
 
 def _run_replan(args) -> int:

@@ -232,7 +232,7 @@ def atomic_write_text(path: str | Path, text: str) -> None:
     atomic_write_bytes(path, text.encode("utf-8"))
 
 
-def write_compare_json(comparison, path: str | Path) -> Path:
+def write_compare_json(comparison, path: str | Path, provenance: dict | None = None) -> Path:
     """Write ``compare.json`` (one record per strategy, plus per-target figures) atomically.
 
     Parameters
@@ -240,6 +240,9 @@ def write_compare_json(comparison, path: str | Path) -> Path:
     comparison : planner.allocation.compare.Comparison
     path : str or Path
         Output file; written to a temporary file in the same folder, then renamed over it.
+    provenance : dict, optional
+        What reproduces it (:func:`planner.workflow.provenance.plan_provenance`), stored under
+        ``provenance``.
 
     Returns
     -------
@@ -247,7 +250,10 @@ def write_compare_json(comparison, path: str | Path) -> Path:
         The written file.
     """
     path = Path(path)
-    atomic_write_text(path, json.dumps(comparison.document(), indent=2) + "\n")
+    document = comparison.document()
+    if provenance is not None:
+        document["provenance"] = provenance
+    atomic_write_text(path, json.dumps(document, indent=2, allow_nan=False) + "\n")
     return path
 
 

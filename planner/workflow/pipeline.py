@@ -281,11 +281,15 @@ class ComparisonReport:
         The printed table.
     limit : planner.allocation.joint.SearchLimit
         The joint search limit it was made with.
+    provenance : dict
+        What reproduces it (:func:`planner.workflow.provenance.plan_provenance` of the joint
+        strategy).
     """
 
     comparison: object
     text: str
     limit: object = None
+    provenance: dict | None = None
 
 
 def compare(run: PreparedRun, time_limit_s=None) -> ComparisonReport:
@@ -299,6 +303,8 @@ def compare(run: PreparedRun, time_limit_s=None) -> ComparisonReport:
     """
     from planner.allocation.compare import compare_strategies
     from planner.information.streams import Streams
+    from planner.workflow.fitting import posterior_keys
+    from planner.workflow.provenance import plan_provenance
 
     require_room(run)
     solver = run.scenario.solver
@@ -323,4 +329,7 @@ def compare(run: PreparedRun, time_limit_s=None) -> ComparisonReport:
     lines.append("exact bits: per target the joint expected information of all its visits")
     lines.append("(not a sum of single visits), weighted and summed over targets.")
     lines.append(limit_note(limit))
-    return ComparisonReport(comparison=comparison, text="\n".join(lines) + "\n", limit=limit)
+    provenance = plan_provenance(run.scenario, posterior_keys(run.scenario), "joint", limit,
+                                 focus_per_group=JOINT_FOCUS_PER_GROUP)
+    return ComparisonReport(comparison=comparison, text="\n".join(lines) + "\n", limit=limit,
+                            provenance=provenance)

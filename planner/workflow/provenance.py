@@ -13,7 +13,13 @@ import hashlib
 from importlib import metadata
 from pathlib import Path
 
-__all__ = ["differences", "file_digest", "nightbits_version", "plan_provenance"]
+__all__ = [
+    "differences",
+    "file_digest",
+    "nightbits_version",
+    "other_settings_note",
+    "plan_provenance",
+]
 
 
 def nightbits_version() -> str:
@@ -152,3 +158,20 @@ def _text(value) -> str:
     if value is None:
         return "none"
     return f"{value:g}" if isinstance(value, float) else str(value)
+
+
+def other_settings_note(what: str, recorded: dict | None, current: dict, *, skip=()) -> str:
+    """Return one line saying that ``what`` was made under other settings, or an empty string.
+
+    Parameters
+    ----------
+    what : str
+        What was made, for the sentence (``"the old plan"``, ``"out/plan.json"``).
+    recorded, current, skip
+        As in :func:`differences`.
+    """
+    found = differences(recorded, current, skip=skip)
+    if not found:
+        return ""
+    return (f"note: {what} was made under other settings or inputs ({'; '.join(found)}), so "
+            "its bits and visits are not comparable one to one.\n")

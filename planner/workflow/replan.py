@@ -400,11 +400,7 @@ def settings_note(old: PlanFile, new: PlanFile) -> str:
     The limits are left out (a re-plan uses its own, shorter one on purpose), and so are the
     posteriors of targets with new velocities. Empty when nothing else differs.
     """
-    from planner.workflow.provenance import differences
+    from planner.workflow.provenance import other_settings_note
 
-    found = differences(old.provenance, new.provenance,
-                        skip=("work limit", "wall-clock limit [s]", "posteriors"))
-    if not found:
-        return ""
-    return ("note: the old plan was made under other settings or inputs (" + "; ".join(found)
-            + "), so its bits and visits are not comparable one to one.\n")
+    return other_settings_note("the old plan", old.provenance, new.provenance,
+                               skip=("work limit", "wall-clock limit [s]", "posteriors"))
