@@ -19,6 +19,8 @@ search found nothing in time).
 
 from __future__ import annotations
 
+import contextlib
+import os
 import time
 from dataclasses import dataclass
 
@@ -120,6 +122,9 @@ def _set_parameters(solver: cp_model.CpSolver, limit: SearchLimit, seed: int, wo
         params.max_time_in_seconds = float(limit.seconds)
     params.random_seed = int(seed)
     params.num_workers = int(workers)
+    # CP-SAT would catch Ctrl-C itself and return its best plan as if the limit were reached;
+    # _search lets the interrupt reach Python instead.
+    params.catch_sigint_signal = False
     # Probing in presolve adds about a million implications between the visit-pattern
     # Booleans and took the whole demo limit; without it the demo's reduced model reached a
     # 0.3 % gap in 12.5 s (docs/allocation.md).
@@ -295,7 +300,7 @@ def solve(
     solver = cp_model.CpSolver()
     _set_parameters(solver, limit, seed, workers, gap_limit)
     t0 = time.perf_counter()
-    status = solver.Solve(model)
+    status = _search(solver, model)
     runtime = time.perf_counter() - t0
     name = solver.StatusName(status)
     if status == cp_model.INFEASIBLE:
@@ -329,6 +334,52 @@ def solve(
         marginal_bits=marginal, bound=bound, status=name,
         runtime_s=runtime, seed=int(seed), stats=stats,
     )
+
+
+def _search(solver: cp_model.CpSolver, model: cp_model.CpModel):
+    """Run the search in a worker thread, so that Ctrl-C stops it and is raised, not swallowed.
+
+    The calling thread waits in short joins, where Python's signal handlers run; on an
+    exception there (KeyboardInterrupt from SIGINT, or SIGTERM turned into one by the CLI) the
+    search is stopped and the exception re-raised, so no plan is made from a cut search.
+    """
+    import threading
+
+    outcome = {}
+
+    def work() -> None:
+        try:
+            outcome["status"] = solver.Solve(model)
+        except BaseException as exc:  # handed to the calling thread
+            outcome["error"] = exc
+
+    before = _threads()
+    thread = threading.Thread(target=work, name="cp-sat-search", daemon=True)
+    thread.start()
+    try:
+        while thread.is_alive():
+            thread.join(0.05)
+    except BaseException:
+        solver.StopSearch()
+        thread.join()
+        # The search's own worker threads end shortly after Solve returns; a process that
+        # exits before they have ended is aborted by the C++ runtime, so wait for them.
+        with contextlib.suppress(KeyboardInterrupt):
+            deadline = time.monotonic() + 2.0
+            while _threads() > before and time.monotonic() < deadline:
+                time.sleep(0.01)
+        raise
+    if "error" in outcome:
+        raise outcome["error"]
+    return outcome["status"]
+
+
+def _threads() -> int:
+    """Threads of this process (Linux ``/proc``; elsewhere 0, and the wait above is skipped)."""
+    try:
+        return len(os.listdir("/proc/self/task"))
+    except OSError:
+        return 0
 
 
 def _marginals(problem: Problem, surrogate: Surrogate, chosen: np.ndarray) -> np.ndarray:

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import argparse
 import logging
+import signal
 import sys
 from pathlib import Path
 
@@ -148,6 +149,7 @@ def _run_curves(args) -> int:
     pipeline, scenario, cache = open_session(args)
     for target in args.target or ():
         scenario.target(target)
+    _check_plot(args)
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
     run = pipeline.prepare(scenario, posteriors)
     from planner.workflow.report import curves_summary
@@ -172,21 +174,38 @@ def _run_curves(args) -> int:
 
 
 def _run_plan(args) -> int:
-    from planner.workflow.outputs import write_plan
+    from planner.workflow.outputs import OutLock, write_plan
     from planner.workflow.report import render_schedule
 
     pipeline, scenario, cache = open_session(args)
     pipeline.check_out_folder(args.out, args.force)
+    lock = OutLock(args.out)
+    args.locks.append(lock)
+    _check_plot(args)
+    limit = pipeline.search_limit(scenario, args.time_limit, args.work_limit)
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
     run = pipeline.prepare(scenario, posteriors)
-    limit = pipeline.search_limit(scenario, args.time_limit, args.work_limit)
     result = pipeline.make_plan(run, strategy=args.strategy, time_limit_s=limit)
     sys.stdout.write(render_schedule(result.plan_file))
-    paths = write_plan(args.out, result.plan_file, force=args.force)
-    pipeline.save_curves(run, paths[0].parent / "curves.npz")
-    sys.stderr.write(f"wrote {paths[0]} and {paths[1]}\n")
+    _write_plan_set(args, pipeline, write_plan, result, run, lock)
     _maybe_night_plot(args, run, result)
     return EXIT_OK
+
+
+def _write_plan_set(args, pipeline, write_plan, result, run, lock) -> None:
+    """Write plan.json, plan.csv and curves.npz as one set and say so."""
+    paths = write_plan(args.out, result.plan_file, force=args.force,
+                       extra={"curves.npz": pipeline.curves_bytes(run)}, lock=lock,
+                       on_commit=lambda: args.written.append(f"the new plan in {args.out}"))
+    sys.stderr.write(f"wrote {paths[0]} and {paths[1]}\n")
+
+
+def _check_plot(args) -> None:
+    """Check ``--plot`` (its folder, suffix and matplotlib) before any work."""
+    if getattr(args, "plot", None):
+        from planner.workflow.plots import check_plot_path
+
+        check_plot_path(args.plot)
 
 
 def _maybe_night_plot(args, run, result) -> None:
@@ -194,6 +213,7 @@ def _maybe_night_plot(args, run, result) -> None:
         from planner.workflow.plots import plot_nights
 
         plot_nights(run, result.plan_file, args.plot)
+        args.written.append(args.plot)
         sys.stderr.write(f"wrote {args.plot}\n")
 
 
@@ -203,9 +223,10 @@ def _run_compare(args) -> int:
     if args.out is not None:
         target = Path(args.out) / "compare.json"
         pipeline.check_out_folder(args.out, args.force, names=(target.name,))
+    _check_plot(args)
+    limit = pipeline.search_limit(scenario, args.time_limit, args.work_limit)
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
     run = pipeline.prepare(scenario, posteriors)
-    limit = pipeline.search_limit(scenario, args.time_limit, args.work_limit)
     comparison = pipeline.compare(run, time_limit_s=limit)
     sys.stdout.write(comparison.text)
     if target is not None:
@@ -214,11 +235,13 @@ def _run_compare(args) -> int:
         _earlier_settings(target.parent, comparison.provenance)
         target.parent.mkdir(parents=True, exist_ok=True)
         write_compare_json(comparison.comparison, target, comparison.provenance)
+        args.written.append(str(target))
         sys.stderr.write(f"wrote {target}\n")
     if args.plot:
         from planner.workflow.plots import plot_comparison
 
         plot_comparison(comparison, args.plot)
+        args.written.append(args.plot)
         sys.stderr.write(f"wrote {args.plot}\n")
     return EXIT_OK
 
@@ -243,10 +266,13 @@ def _earlier_settings(folder: Path, current: dict) -> None:
 
 def _run_replan(args) -> int:
     from planner.workflow import pipeline, replan
-    from planner.workflow.outputs import read_plan, write_plan
+    from planner.workflow.outputs import OutLock, read_plan, write_plan
     from planner.workflow.report import render_schedule
 
     pipeline.check_out_folder(args.out, args.force)
+    lock = OutLock(args.out)
+    args.locks.append(lock)
+    _check_plot(args)
     old = read_plan(args.plan)
     path = args.scenario if args.scenario is not None else replan.recorded_scenario(old, args.plan)
     scenario = pipeline.load(path)
@@ -254,16 +280,14 @@ def _run_replan(args) -> int:
     cache = pipeline.cache_folder(scenario, args.cache, args.no_cache)
     request = replan.parse_request(old, scenario, lost=args.lost, done_file=args.done,
                                    rv_files=args.rvs, now=args.now)
+    limit = pipeline.search_limit(scenario, args.time_limit, args.work_limit, replan=True)
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
     saved = pipeline.load_curves(Path(args.plan).parent / "curves.npz")
-    limit = pipeline.search_limit(scenario, args.time_limit, args.work_limit, replan=True)
     result = replan.replan(scenario, posteriors, old, request, strategy=args.strategy,
                            time_limit_s=limit, reuse=saved)
     sys.stdout.write(render_schedule(result.plan_file))
     sys.stdout.write(result.changes)
-    paths = write_plan(args.out, result.plan_file, force=args.force)
-    pipeline.save_curves(result.run, paths[0].parent / "curves.npz")
-    sys.stderr.write(f"wrote {paths[0]} and {paths[1]}\n")
+    _write_plan_set(args, pipeline, write_plan, result, result.run, lock)
     _maybe_night_plot(args, result.run, result)
     return EXIT_OK
 
@@ -301,6 +325,11 @@ def main(argv: list[str] | None = None) -> int:
     from inference.errors import InferenceError
     from planner.errors import PlannerError
 
+    args.written, args.locks = [], []
+    import threading
+
+    main_thread = threading.current_thread() is threading.main_thread()
+    previous = signal.signal(signal.SIGTERM, _terminated) if main_thread else None
     try:
         return args.func(args)
     except (PlannerError, InferenceError) as exc:  # user errors: one sentence each
@@ -309,11 +338,27 @@ def main(argv: list[str] | None = None) -> int:
         sys.stderr.write(f"nightbits {args.command}: {exc}\n")
         return EXIT_USER
     except KeyboardInterrupt:
-        sys.stderr.write(f"nightbits {args.command}: interrupted; nothing was written.\n")
-        return 130
+        done = (f"only {', '.join(args.written)} had been written" if args.written
+                else "nothing was written and earlier outputs are as they were")
+        sys.stderr.write(f"nightbits {args.command}: interrupted; {done}.\n")
+        return EXIT_INTERRUPTED
     except Exception as exc:
         if args.debug:
             raise
         sys.stderr.write(f"nightbits {args.command}: internal error ({type(exc).__name__}: "
                          f"{exc}); rerun with --debug for the traceback and report it.\n")
         return EXIT_INTERNAL
+    finally:
+        for lock in args.locks:
+            lock.release()
+        if main_thread:
+            signal.signal(signal.SIGTERM, previous)
+
+
+#: Exit code after SIGINT or SIGTERM (the shell's 128 + SIGINT).
+EXIT_INTERRUPTED = 130
+
+
+def _terminated(number, frame):
+    """SIGTERM handler: end like Ctrl-C (temporaries removed, the old outputs kept)."""
+    raise KeyboardInterrupt

@@ -25,14 +25,25 @@ def cache_folder(scenario: Scenario, override: str | None, disabled: bool) -> Pa
     if disabled:
         return None
     if override:
-        return Path(override).expanduser().resolve()
+        return _usable(Path(override).expanduser().resolve(), "--cache")
     if scenario.cache_dir is not None:
-        return scenario.cache_dir
+        return _usable(scenario.cache_dir, f"{scenario.path.name}: cache")
     env = os.environ.get("NIGHTBITS_CACHE")
     if env:
-        return Path(env).expanduser().resolve()
+        return _usable(Path(env).expanduser().resolve(), "$NIGHTBITS_CACHE")
     base = os.environ.get("XDG_CACHE_HOME") or str(Path.home() / ".cache")
-    return Path(base).expanduser().resolve() / "nightbits"
+    return _usable(Path(base).expanduser().resolve() / "nightbits", "the user cache")
+
+
+def _usable(folder: Path, where: str) -> Path:
+    """Return ``folder`` if it is, or could become, a folder: not a file nor under one."""
+    from planner.workflow.outputs import nearest_existing
+
+    probe = nearest_existing(folder)
+    if probe.exists() and not probe.is_dir():
+        raise PlanError(f"{where} {folder}: {probe} is a file, not a folder; give a folder for "
+                        "the posterior cache (or --no-cache).")
+    return folder
 
 
 def fit_jobs(scenario: Scenario) -> list:

@@ -21,6 +21,7 @@ import io
 import json
 import math
 import os
+import signal
 import tempfile
 from dataclasses import MISSING, asdict, dataclass, fields
 from pathlib import Path
@@ -31,12 +32,15 @@ from planner.errors import PlanError
 __all__ = [
     "FORMAT_VERSION",
     "NightSummary",
+    "OutLock",
+    "deferred_interrupts",
     "PlanFile",
     "ScheduledVisit",
     "atomic_write_bytes",
     "atomic_write_text",
     "check_out_folder",
     "format_utc",
+    "nearest_existing",
     "parse_utc",
     "read_plan",
     "write_compare_json",
@@ -258,8 +262,12 @@ def write_compare_json(comparison, path: str | Path, provenance: dict | None = N
 
 
 def _write_temporary(path: Path, data: bytes) -> Path:
+    from inference.posterior import current_umask
+
     fd, name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
+        # mkstemp makes the file 0600; an output gets the umask's mode, like any new file.
+        os.fchmod(fd, 0o666 & ~current_umask())
         with os.fdopen(fd, "wb") as handle:
             handle.write(data)
             handle.flush()
@@ -271,17 +279,140 @@ def _write_temporary(path: Path, data: bytes) -> Path:
     return Path(name)
 
 
+def nearest_existing(path: str | Path) -> Path:
+    """Return ``path`` if it exists, else its nearest existing parent (a file or a folder)."""
+    path = Path(path)
+    while not path.exists() and path != path.parent:
+        path = path.parent
+    return path
+
+
 def check_out_folder(out: str | Path, force: bool,
                      names: tuple[str, ...] = ("plan.json", "plan.csv")) -> None:
-    """Fail at once, before any work, if ``out`` holds one of ``names`` and ``force`` is off."""
-    existing = [Path(out) / name for name in names if (Path(out) / name).exists()]
+    """Fail at once, before any work, if the outputs ``names`` could not be written into ``out``.
+
+    Raises
+    ------
+    PlanError
+        If ``out`` or one of its parents is a file, the nearest existing folder cannot be
+        written, one of ``names`` is a folder, or one of them exists and ``force`` is off.
+    """
+    out = Path(out)
+    existing_parent = nearest_existing(out)
+    if existing_parent.exists() and not existing_parent.is_dir():
+        raise PlanError(f"--out {out}: {existing_parent} is a file, not a folder; choose a "
+                        "folder with --out.")
+    if existing_parent.is_dir() and not os.access(existing_parent, os.W_OK | os.X_OK):
+        raise PlanError(f"--out {out}: the folder {existing_parent} cannot be written; choose "
+                        "another folder with --out.")
+    for name in names:
+        if (out / name).is_dir():
+            raise PlanError(f"{out / name} is a folder, so it cannot be written; choose another "
+                            "folder with --out.")
+    existing = [out / name for name in names if (out / name).exists()]
     if existing and not force:
         raise PlanError(f"{existing[0]} already exists; pass --force to replace it or choose "
                         "another folder with --out.")
 
 
-def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False) -> tuple[Path, Path]:
-    """Write ``plan.json`` and ``plan.csv`` into ``out_dir`` atomically.
+@contextlib.contextmanager
+def deferred_interrupts():
+    """Hold SIGINT and SIGTERM back inside the block, then act on them as usual.
+
+    Python runs signal handlers in the main thread between bytecodes, so replacing the
+    handlers for the block defers an interrupt whichever thread the kernel delivers it to.
+    Outside the main thread (where handlers cannot be set) the block runs unprotected.
+    """
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    caught = []
+    kinds = [signal.SIGINT, signal.SIGTERM]
+    previous = {kind: signal.signal(kind, lambda number, frame: caught.append(number))
+                for kind in kinds}
+    try:
+        yield
+    finally:
+        for kind, handler in previous.items():
+            signal.signal(kind, handler)
+    for number in caught[:1]:
+        handler = previous[number]
+        if callable(handler):
+            handler(number, None)
+        elif handler == signal.SIG_DFL:
+            signal.raise_signal(number)
+
+
+class OutLock:
+    """An exclusive lock on an output folder, held until the process ends or :meth:`release`.
+
+    Two commands writing into one folder (two ``--force`` runs) would otherwise mix their
+    files; the second is refused at once with one sentence. The lock is ``flock`` on the
+    folder itself, so nothing is written to take it, and the system drops it when the process
+    ends, however it ends.
+
+    Parameters
+    ----------
+    folder : str or Path
+        The output folder; locked now if it exists, else by :meth:`acquire` once it does.
+    """
+
+    def __init__(self, folder: str | Path) -> None:
+        self.folder, self._fd = Path(folder), None
+        if self.folder.is_dir():
+            self.acquire()
+
+    def acquire(self) -> None:
+        """Take the lock (a no-op if held).
+
+        Raises
+        ------
+        PlanError
+            If another process holds it.
+        """
+        import fcntl
+
+        if self._fd is not None:
+            return
+        fd = os.open(self.folder, os.O_RDONLY)
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            os.close(fd)
+            raise PlanError(f"another nightbits command is writing into {self.folder}; wait "
+                            "for it to finish or choose another folder with --out.") from None
+        self._fd = fd
+
+    def release(self) -> None:
+        """Release the lock."""
+        if self._fd is not None:
+            os.close(self._fd)
+            self._fd = None
+
+
+#: The names of the files a plan folder holds, in the order they are renamed into place.
+PLAN_FILES = ("plan.csv", "curves.npz", "plan.json")
+
+
+def _clean_stale(out: Path, names=PLAN_FILES) -> None:
+    """Remove the temporaries of ``names`` in ``out`` (call only with the folder's lock held)."""
+    for name in names:
+        for stale in out.glob(f".{name}.*.tmp"):
+            with contextlib.suppress(OSError):
+                stale.unlink()
+
+
+def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False, *,
+               extra: dict | None = None, lock: OutLock | None = None,
+               on_commit=None) -> tuple[Path, Path]:
+    """Write ``plan.json``, ``plan.csv`` and any extra files into ``out_dir``, all or nothing.
+
+    Every file is first written to a temporary file in the folder; then all are renamed into
+    place with SIGINT and SIGTERM held back (:func:`deferred_interrupts`), so an interrupt
+    leaves either the old set or the new one, never a mix. The folder is locked
+    (:class:`OutLock`) while it is written, and temporaries left by a killed writer are removed.
 
     Parameters
     ----------
@@ -290,6 +421,13 @@ def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False) -> tupl
     plan : PlanFile
     force : bool
         Replace an existing plan in that folder.
+    extra : dict of str to bytes, optional
+        More files of the set by name (``curves.npz``).
+    lock : OutLock, optional
+        The folder's lock if the command took it already; else it is taken here.
+    on_commit : callable, optional
+        Called with no argument once every file is in place, before a held-back interrupt is
+        acted on (so the caller knows the new set was written).
 
     Returns
     -------
@@ -299,28 +437,43 @@ def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False) -> tupl
     Raises
     ------
     PlanError
-        If a plan already exists there and ``force`` is false, or the folder cannot be written.
+        If a plan already exists there and ``force`` is false, another command is writing
+        there, or the folder cannot be written.
     """
     out = Path(out_dir)
     json_path, csv_path = out / "plan.json", out / "plan.csv"
     check_out_folder(out, force)
-    payload = {json_path: plan.to_json().encode("utf-8"), csv_path: plan.to_csv().encode("utf-8")}
+    payload = {csv_path: plan.to_csv().encode("utf-8")}
+    payload.update({out / name: data for name, data in (extra or {}).items()})
+    payload[json_path] = plan.to_json().encode("utf-8")  # last: its presence marks a set
+    own_lock = None
     try:
         out.mkdir(parents=True, exist_ok=True)
-        temporaries = {}
+        if lock is None:
+            lock = own_lock = OutLock(out)
+        lock.acquire()
+        check_out_folder(out, force)  # again under the lock: another run may have written
+        names = [final.name for final in payload]
+        _clean_stale(out, set(PLAN_FILES) | set(names))  # left by a killed writer
+        temporaries, committed = {}, False
         try:
             for final, data in payload.items():
                 temporaries[final] = _write_temporary(final, data)
-        except BaseException:
-            for tmp in temporaries.values():
-                with contextlib.suppress(OSError):
-                    os.unlink(tmp)
-            raise
-        for final, tmp in temporaries.items():
-            os.replace(tmp, final)
+            with deferred_interrupts():
+                for final, tmp in temporaries.items():
+                    os.replace(tmp, final)
+                committed = True
+                if on_commit is not None:
+                    on_commit()
+        finally:
+            if not committed:  # by pattern: an interrupt may come before a name is kept
+                _clean_stale(out, names)
     except OSError as exc:
         raise PlanError(f"cannot write the plan into {out} ({exc.strerror or exc}); choose "
                         "another folder with --out.") from None
+    finally:
+        if own_lock is not None:
+            own_lock.release()
     return json_path, csv_path
 
 

@@ -33,7 +33,7 @@ from planner.workflow.outputs import check_out_folder
 from planner.workflow.plan_file import build_plan_file, exact_marginals
 from planner.workflow.prepared import PreparedRun, prepare
 from planner.workflow.rungrid import RunGrid, physical_setup, run_grid
-from planner.workflow.saved_curves import load_curves, save_curves
+from planner.workflow.saved_curves import curves_bytes, load_curves, save_curves
 from planner.workflow.scenario import Scenario, load_scenario
 
 #: The joint strategy first solves the problem reduced to the best starts per (star, night,
@@ -55,6 +55,7 @@ __all__ = [
     "cache_folder",
     "check_out_folder",
     "compare",
+    "curves_bytes",
     "demo_scenario_path",
     "exact_marginals",
     "fit_jobs",
