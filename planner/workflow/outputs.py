@@ -502,10 +502,40 @@ def read_plan(path: str | Path) -> PlanFile:
                    for i, n in enumerate(_list(raw, "nights", where)))
     visits = tuple(_record(ScheduledVisit, v, f"{where}: visits[{i}]")
                    for i, v in enumerate(_list(raw, "visits", where)))
+    if not isinstance(top["target_bits"], dict):
+        raise PlanError(f"{where}: target_bits must be an object; write the plan again.")
+    if top.get("provenance") is not None and not isinstance(top["provenance"], dict):
+        raise PlanError(f"{where}: provenance must be an object; write the plan again.")
     for i, visit in enumerate(visits):
-        for key in ("start_utc", "end_utc"):
-            parse_utc(getattr(visit, key), f"{where}: visits[{i}].{key}")
+        _check_visit(visit, f"{where}: visits[{i}]", top["target_bits"])
     return PlanFile(**top, nights=nights, visits=visits)
+
+
+#: What a visit's status may be: planned, executed (``done``), or executed with its velocity
+#: folded in (``measured``).
+VISIT_STATUSES = ("planned", "done", "measured")
+
+
+def _check_visit(visit: ScheduledVisit, where: str, targets: dict) -> None:
+    """Refuse a visit a plan writer could not have written (a hand-edited plan file)."""
+    start = parse_utc(visit.start_utc, f"{where}.start_utc")
+    end = parse_utc(visit.end_utc, f"{where}.end_utc")
+    if visit.target not in targets:
+        raise PlanError(f"{where}.target: {visit.target!r} is not one of the plan's targets "
+                        f"({', '.join(map(str, targets))}); write the plan again.")
+    if visit.status not in VISIT_STATUSES:
+        raise PlanError(f"{where}.status: {visit.status!r} is not one of "
+                        f"{', '.join(VISIT_STATUSES)}; write the plan again.")
+    checks = (("ra_deg", visit.ra_deg, 0.0, 360.0), ("dec_deg", visit.dec_deg, -90.0, 90.0),
+              ("exposure_s", visit.exposure_s, 1e-9, 86400.0), ("slew_s", visit.slew_s, 0.0,
+                                                                   86400.0))
+    for name, value, lo, hi in checks:
+        if not lo <= value <= hi:
+            raise PlanError(f"{where}.{name}: {value!r} is outside {lo:g} to {hi:g}; write the "
+                            "plan again.")
+    if end <= start:
+        raise PlanError(f"{where}: it ends ({visit.end_utc}) before it starts "
+                        f"({visit.start_utc}); write the plan again.")
 
 
 def _list(raw: dict, key: str, where: str) -> list:
@@ -532,5 +562,8 @@ def _record(cls, raw: Any, where: str, skip=(), pairs=()) -> Any:
         number = isinstance(value, int | float) and not isinstance(value, bool)
         if f.type == "float" and not (number and math.isfinite(value)):
             raise PlanError(f"{where}: {f.name} must be a finite number, got {value!r}.")
+        if f.type == "str" and not isinstance(value, str):
+            raise PlanError(f"{where}: {f.name} must be text, got {value!r}; write the plan "
+                            "again.")
         values[f.name] = value
     return cls(**values) if cls is not PlanFile else values

@@ -3,9 +3,10 @@
 A scenario names the site, the telescope and instrument, the run's nights, the observing limits,
 the targets with their past-velocity files, and the settings of the sampler and the solver.
 Every section has defaults except ``site``, ``run`` and ``targets``. The file is read with
-``yaml.safe_load`` only; every value is checked against the schema below, and a problem is
-reported as one :class:`~planner.errors.ScenarioError` sentence naming the file, the key path
-(for example ``targets[3].v_mag``), what was expected, and a did-you-mean for misspelt keys.
+the safe YAML loader only (a key named twice in one mapping is refused); every value is checked
+against the schema below, and a problem is reported as one
+:class:`~planner.errors.ScenarioError` sentence naming the file, the key path (for example
+``targets[3].v_mag``), what was expected, and a did-you-mean for misspelt keys.
 Relative paths (RV files, the cache folder) are taken relative to the scenario file.
 
 The complete reference, with a commented example, is ``docs/scenario.md``.
@@ -308,10 +309,31 @@ def parse_scenario(text: str, path: str | Path) -> Scenario:
         raise ScenarioError(" ".join(str(exc).split())) from None
 
 
+class _UniqueKeyLoader(yaml.SafeLoader):
+    """The safe loader, refusing a mapping that names one key twice (YAML 1.2 forbids it)."""
+
+    def construct_mapping(self, node, deep=False):
+        seen = {}
+        for key_node, _ in node.value:
+            key = self.construct_object(key_node, deep=True)
+            try:
+                first = seen.setdefault(key, key_node.start_mark.line + 1)
+            except TypeError:  # an unhashable key: the safe loader's own error follows
+                continue
+            if first != key_node.start_mark.line + 1:
+                raise ScenarioError(
+                    f"the key {key!r} appears twice, at lines {first} and "
+                    f"{key_node.start_mark.line + 1}; keep one of them (YAML keeps only the "
+                    "last, silently).")
+        return super().construct_mapping(node, deep=deep)
+
+
 def _parse(text: str, path: Path) -> Scenario:
     where = path.name
     try:
-        raw = yaml.safe_load(text)
+        raw = yaml.load(text, Loader=_UniqueKeyLoader)  # noqa: S506 - a SafeLoader subclass
+    except ScenarioError as exc:
+        raise ScenarioError(f"{where}: {exc}") from None
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         line = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
