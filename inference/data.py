@@ -17,6 +17,7 @@ from .errors import RVDataError
 __all__ = [
     "DEFAULT_INSTRUMENT",
     "EARLIEST_BJD",
+    "MAX_VELOCITY_MS",
     "REQUIRED_COLUMNS",
     "RVData",
     "check_bjd",
@@ -32,6 +33,11 @@ REQUIRED_COLUMNS = ("time", "rv", "rv_err")
 #: Times before this are refused in files: BJD 2,400,000 is 1858-11-16, before any precise
 #: velocity; smaller values are times with an offset taken off (MJD, JD - 2450000).
 EARLIEST_BJD = 2_400_000.0
+
+
+#: Velocities and errors beyond this are refused in files [m/s]: the fastest stars known move
+#: at a few hundred km/s (common practice), so 1000 km/s is a unit mistake.
+MAX_VELOCITY_MS = 1.0e6
 
 
 def check_bjd(time, where):
@@ -279,9 +285,13 @@ def read_rv_csv(path):
     frame.columns = [str(c).strip().lower() for c in frame.columns]
     for column in REQUIRED_COLUMNS:
         if column not in frame.columns:
+            header = ",".join(frame.columns)
+            seps = [name for sep, name in ((";", "semicolon"), ("\t", "tab")) if sep in header]
+            hint = (f" (the header looks {seps[0]}-separated: save the file with commas between "
+                    "the columns and points as decimal marks)") if seps else ""
             raise RVDataError(
                 f"{path}, line 1 (header) has no column '{column}': the header must name the "
-                "columns time, rv, rv_err (and optionally instrument)."
+                f"columns time, rv, rv_err (and optionally instrument){hint}."
             )
     frame = frame.astype(object)
     blank = frame.apply(lambda row: all(str(x).strip() == "" for x in row), axis=1)
@@ -302,4 +312,14 @@ def read_rv_csv(path):
         _where=lambda i, column: f"{path}, line {int(lines[i])}, column '{column}'",
     )
     check_bjd(values["time"], lambda i: f"{path}, line {int(lines[i])}, column 'time'")
+    for column in ("rv", "rv_err"):
+        big = np.flatnonzero(np.abs(values[column]) > MAX_VELOCITY_MS)
+        if big.size:
+            i = int(big[0])
+            value = float(values[column][i])
+            raise RVDataError(
+                f"{path}, line {int(lines[i])}, column '{column}' holds {value!r}: "
+                f"more than {MAX_VELOCITY_MS:g} m/s (1000 km/s), beyond any star's velocity; "
+                "give velocities and errors in m/s."
+            )
     return data

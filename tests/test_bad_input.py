@@ -28,6 +28,15 @@ def planned(tmp_path_factory):
     return scenario, posteriors, json_path, cache
 
 
+def _edited_tiny(tmp_path, old: str, new: str, name: str) -> Path:
+    """A copy of the tiny run whose scenario text has ``old`` replaced by ``new``."""
+    shutil.copytree(TINY.parent, tmp_path / "run")
+    text = (tmp_path / "run" / "tiny.yaml").read_text()
+    assert old in text
+    (tmp_path / "run" / name).write_text(text.replace(old, new))
+    return tmp_path / "run" / name
+
+
 def _one_sentence(capsys, argv) -> str:
     assert main(argv) == 2
     lines = capsys.readouterr().err.strip().splitlines()
@@ -90,12 +99,10 @@ def test_a_velocity_far_outside_its_prediction_is_refused(planned):
 
 
 def test_a_duplicate_yaml_key_is_refused(tmp_path, capsys):
-    shutil.copytree(TINY.parent, tmp_path / "run")
-    text = (tmp_path / "run" / "tiny.yaml").read_text()
-    text = text.replace("  max_airmass: 2.0\n", "  max_airmass: 2.0\n  max_airmass: 1.2\n")
-    (tmp_path / "run" / "dup.yaml").write_text(text)
-    line = _one_sentence(capsys, ["fit", str(tmp_path / "run" / "dup.yaml")])
-    first = text.splitlines().index("  max_airmass: 2.0") + 1
+    path = _edited_tiny(tmp_path, "  max_airmass: 2.0\n",
+                        "  max_airmass: 2.0\n  max_airmass: 1.2\n", "dup.yaml")
+    line = _one_sentence(capsys, ["fit", str(path)])
+    first = path.read_text().splitlines().index("  max_airmass: 2.0") + 1
     assert (f"dup.yaml: the key 'max_airmass' appears twice, at lines {first} and "
             f"{first + 1}; keep one of them") in line
 
@@ -126,3 +133,41 @@ def test_a_tampered_plan_file_is_refused(planned, tmp_path, capsys, change, mess
                                   "--out", str(tmp_path / "o")])
     assert "plan.json: visits[0]" in line and message in line
     assert not (tmp_path / "o").exists()
+
+
+def test_a_semicolon_separated_rv_file_gets_a_hint(tmp_path):
+    path = tmp_path / "star.csv"
+    path.write_text("time;rv;rv_err\n2461288,5;1,0;0,5\n")
+    with pytest.raises(RVDataError, match="the header looks semicolon-separated: save the file "
+                                          "with commas between the columns"):
+        read_rv_csv(path)
+
+
+def test_velocities_beyond_any_star_are_refused(tmp_path):
+    path = tmp_path / "star.csv"
+    path.write_text("time,rv,rv_err\n2461288.5,1e300,0.5\n")
+    with pytest.raises(RVDataError, match=r"line 2, column 'rv' holds 1e\+300: more than 1e\+06"):
+        read_rv_csv(path)
+
+
+def test_a_bad_item_of_a_list_is_named_by_its_index(tmp_path, capsys):
+    path = _edited_tiny(tmp_path, "  options_s: [600, 1200]\n", "  options_s: [-300, 600]\n",
+                        "neg.yaml")
+    line = _one_sentence(capsys, ["fit", str(path)])
+    assert ("neg.yaml: exposures.options_s[0]: expected a number from 10 to 14400 (exposure "
+            "times [s]), got -300") in line
+
+
+def test_now_before_the_run_is_named_in_utc(planned, tmp_path, capsys):
+    _, _, plan, _ = planned
+    line = _one_sentence(capsys, ["replan", "--plan", str(plan), "--now", "2027-09-01T00:00Z",
+                                  "--out", str(tmp_path / "o")])
+    assert "--now 2027-09-01T00:00Z: 2027-09-01T00:00:00Z is before the run's first sunset" in line
+
+
+def test_a_time_zone_from_the_other_side_of_the_world_is_named(tmp_path, capsys):
+    # The site lies at 69.95 deg W: solar time UTC-4.7 h; Asia/Tokyo is UTC+9 (zoneinfo).
+    path = _edited_tiny(tmp_path, "America/Santiago", "Asia/Tokyo", "tz.yaml")
+    line = _one_sentence(capsys, ["fit", str(path)])
+    assert "site.timezone: 'Asia/Tokyo' is UTC+9 h on the first night" in line
+    assert "check the sign of longitude_deg (east is positive)" in line

@@ -140,9 +140,12 @@ def test_replan_with_a_bad_lost_night(capsys, tmp_path):
     assert "plan file" in line and "does not exist" in line
 
 
-def test_debug_shows_the_traceback(capsys):
-    with pytest.raises(ValueError):
-        main(["--debug", "fit", "/nonexistent/run.yaml"])
+def test_debug_shows_the_traceback_and_keeps_exit_2(capsys):
+    # The docs: exit 2 for a user mistake, with or without --debug.
+    assert main(["--debug", "fit", "/nonexistent/run.yaml"]) == 2
+    err = capsys.readouterr().err
+    assert "Traceback (most recent call last)" in err
+    assert err.strip().splitlines()[-1].startswith("nightbits fit: scenario file")
 
 
 def test_outputs_and_cache_entries_get_the_umask_mode(tmp_path, monkeypatch, capsys):

@@ -333,8 +333,10 @@ def main(argv: list[str] | None = None) -> int:
     try:
         return args.func(args)
     except (PlannerError, InferenceError) as exc:  # user errors: one sentence each
-        if args.debug:
-            raise
+        if args.debug:  # the traceback too, but still the exit code of a user error
+            import traceback
+
+            traceback.print_exc(file=sys.stderr)
         sys.stderr.write(f"nightbits {args.command}: {exc}\n")
         return EXIT_USER
     except KeyboardInterrupt:

@@ -334,6 +334,10 @@ def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=
     """
     spans, labels = _lost_items(old, lost)
     now_jd = None if now is None else parse_utc(now, "--now")
+    if now_jd is not None and now_jd < parse_utc(old.nights[0].sunset_utc):
+        raise PlanError(f"--now {now}: {format_utc(now_jd)} is before the run's first sunset "
+                        f"({old.nights[0].sunset_utc}), so nothing can have been executed; "
+                        "check the date, or leave out --now.")
     done = [v for v in old.visits if v.status != "planned"]
     if done_file:
         done += _done_rows(Path(done_file), old)

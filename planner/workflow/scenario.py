@@ -328,6 +328,26 @@ class _UniqueKeyLoader(yaml.SafeLoader):
         return super().construct_mapping(node, deep=deep)
 
 
+#: Largest gap allowed between a site's UTC offset and its longitude / 15 deg per hour [h].
+#: Civil time zones stray from solar time by up to about 3.5 h (common practice: western
+#: China on UTC+8); a larger gap is a zone from the other side of the world.
+ZONE_SLACK_H = 5.0
+
+
+def _check_zone_fits_longitude(site, first_night: str, where: str) -> None:
+    """Refuse a time zone whose UTC offset is hours away from the site's solar time."""
+    moment = _dt.datetime.fromisoformat(first_night).replace(hour=21)
+    offset = moment.replace(tzinfo=ZoneInfo(site.timezone)).utcoffset().total_seconds() / 3600
+    solar = site.longitude_deg / 15.0
+    gap = (offset - solar + 12.0) % 24.0 - 12.0  # across the date line, the short way round
+    if abs(gap) > ZONE_SLACK_H:
+        raise ScenarioError(
+            f"{where}: site.timezone: {site.timezone!r} is UTC{offset:+g} h on the first night, "
+            f"{abs(gap):.1f} h from the solar time of longitude {site.longitude_deg:g} deg "
+            f"(UTC{solar:+.1f} h); give the site's own IANA zone, or check the sign of "
+            "longitude_deg (east is positive).")
+
+
 def _parse(text: str, path: Path) -> Scenario:
     where = path.name
     try:
@@ -375,6 +395,7 @@ def _parse(text: str, path: Path) -> Scenario:
     if site.min_altitude_deg >= site.max_altitude_deg:
         raise ScenarioError(f"{where}: site.min_altitude_deg ({site.min_altitude_deg}) must be "
                             f"below site.max_altitude_deg ({site.max_altitude_deg}).")
+    _check_zone_fits_longitude(site, sections["run"].first_night, where)
     if sampler.walkers % 2:
         raise ScenarioError(f"{where}: sampler.walkers: expected an even number of walkers, "
                             f"got {sampler.walkers}.")
@@ -469,8 +490,14 @@ def _coerce(kind: str, value: Any, where: str, key_path: str, meta: dict, base: 
         items = [value] if isinstance(value, int | float) and not isinstance(value, bool) else value
         if not isinstance(items, list):
             raise bad()
-        numbers = sorted({_number(v, meta, bad, integer=False) for v in items})
-        return tuple(numbers)
+        numbers = set()
+        for i, item in enumerate(items):
+            def bad_item(note: str = "", i=i, item=item) -> ScenarioError:
+                return ScenarioError(f"{where}: {key_path}[{i}]: expected "
+                                     f"{_expected(meta, 'float')}, got {_describe(item)}{note}.")
+
+            numbers.add(_number(item, meta, bad_item, integer=False))
+        return tuple(sorted(numbers))
     if kind.startswith("choice:"):
         choices = kind.split(":", 1)[1].split(",")
         if not isinstance(value, str) or value not in choices:

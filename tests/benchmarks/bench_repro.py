@@ -32,6 +32,8 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[2]
 TINY = ROOT / "tests" / "data" / "tiny" / "tiny.yaml"
+#: This tree's demo (``pipeline.load(None)`` would take the installed package's).
+DEMO = ROOT / "scenarios" / "demo" / "demo.yaml"
 
 
 def _cpu_s() -> float:
@@ -69,7 +71,7 @@ def main() -> None:
     parser.add_argument("--repeats", type=int, default=None)
     parser.add_argument("--cache", default=None, help="posterior cache folder")
     args = parser.parse_args()
-    scenario = pipeline.load(TINY if args.quick else None)
+    scenario = pipeline.load(TINY if args.quick else DEMO)
     repeats = args.repeats or (1 if args.quick else 3)
     cache = pipeline.cache_folder(scenario, args.cache, False)
     posteriors = pipeline.fit_posteriors(scenario, cache=cache)
