@@ -145,6 +145,16 @@ def fit_posteriors(scenario: Scenario, cache: Path | None = None, jobs: int | No
     executor = ThreadPoolExecutor(1) if workers == 1 else ProcessPoolExecutor(workers)
     try:
         results = fit_many(work, executor=executor, cache=store, progress=progress)
+    except KeyboardInterrupt:
+        # Ctrl-C or SIGTERM: end the running fits now instead of waiting for them (the worker
+        # processes do not get a SIGTERM sent to this process; the cache is written only here).
+        executor.shutdown(wait=False, cancel_futures=True)
+        if workers > 1:
+            import multiprocessing
+
+            for child in multiprocessing.active_children():
+                child.kill()
+        raise
     finally:
         executor.shutdown(cancel_futures=True)
     failed = [(name, r) for name, r in results.items() if isinstance(r, FitFailure)]
