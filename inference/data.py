@@ -1,7 +1,8 @@
 """Radial-velocity input: the validated :class:`RVData` record and its CSV reader.
 
-A CSV file has a header line and the columns ``time`` (BJD_TDB [d]), ``rv`` [m/s], ``rv_err``
-[m/s] and, optionally, ``instrument``; other columns are ignored. Every problem is reported as
+A CSV file has a header line and the columns ``time`` (BJD_TDB [d], full Julian dates: an MJD
+or a JD - 2450000 is refused), ``rv`` [m/s], ``rv_err`` [m/s] and, optionally, ``instrument``;
+other columns are ignored. UTF-8 with or without a byte-order mark. Every problem is reported as
 one sentence naming the file, the line (1-based, the header is line 1) and the column.
 """
 
@@ -13,12 +14,54 @@ import numpy as np
 
 from .errors import RVDataError
 
-__all__ = ["DEFAULT_INSTRUMENT", "REQUIRED_COLUMNS", "RVData", "read_rv_csv"]
+__all__ = [
+    "DEFAULT_INSTRUMENT",
+    "EARLIEST_BJD",
+    "MAX_VELOCITY_MS",
+    "REQUIRED_COLUMNS",
+    "RVData",
+    "check_bjd",
+    "read_rv_csv",
+]
 
 #: Instrument name given to every row of a file without an ``instrument`` column.
 DEFAULT_INSTRUMENT = "default"
 #: Columns every RV file must have.
 REQUIRED_COLUMNS = ("time", "rv", "rv_err")
+
+
+#: Times before this are refused in files: BJD 2,400,000 is 1858-11-16, before any precise
+#: velocity; smaller values are times with an offset taken off (MJD, JD - 2450000).
+EARLIEST_BJD = 2_400_000.0
+
+
+#: Velocities and errors beyond this are refused in files [m/s]: the fastest stars known move
+#: at a few hundred km/s (common practice), so 1000 km/s is a unit mistake.
+MAX_VELOCITY_MS = 1.0e6
+
+
+def check_bjd(time, where):
+    """Refuse times that are not full Julian dates (MJD or JD - 2450000 given by mistake).
+
+    Parameters
+    ----------
+    time : ndarray, shape (n,)
+        Times [d].
+    where : callable
+        ``where(i)`` names row ``i`` (file, line, column) for the sentence.
+
+    Raises
+    ------
+    RVDataError
+        At the first time before :data:`EARLIEST_BJD`.
+    """
+    low = np.flatnonzero(np.asarray(time, dtype=float) < EARLIEST_BJD)
+    if low.size:
+        i = int(low[0])
+        raise RVDataError(
+            f"{where(i)} holds {float(time[i])!r}, not a full Julian date: times must be BJD_TDB "
+            "(about 2460000 in 2023); add 2400000.5 to an MJD or 2450000 to a JD-2450000."
+        )
 
 
 def _frozen(values, dtype):
@@ -223,7 +266,8 @@ def read_rv_csv(path):
     path = Path(path)
     try:
         frame = pd.read_csv(
-            path, dtype=str, keep_default_na=False, skip_blank_lines=False, skipinitialspace=True
+            path, dtype=str, keep_default_na=False, skip_blank_lines=False, skipinitialspace=True,
+            encoding="utf-8-sig",  # a spreadsheet's byte-order mark is not part of the header
         )
     except FileNotFoundError:
         raise RVDataError(f"{path} does not exist: check the file name and folder.") from None
@@ -241,9 +285,13 @@ def read_rv_csv(path):
     frame.columns = [str(c).strip().lower() for c in frame.columns]
     for column in REQUIRED_COLUMNS:
         if column not in frame.columns:
+            header = ",".join(frame.columns)
+            seps = [name for sep, name in ((";", "semicolon"), ("\t", "tab")) if sep in header]
+            hint = (f" (the header looks {seps[0]}-separated: save the file with commas between "
+                    "the columns and points as decimal marks)") if seps else ""
             raise RVDataError(
                 f"{path}, line 1 (header) has no column '{column}': the header must name the "
-                "columns time, rv, rv_err (and optionally instrument)."
+                f"columns time, rv, rv_err (and optionally instrument){hint}."
             )
     frame = frame.astype(object)
     blank = frame.apply(lambda row: all(str(x).strip() == "" for x in row), axis=1)
@@ -255,7 +303,7 @@ def read_rv_csv(path):
     if "instrument" in frame.columns:
         instrument = [str(x).strip() for x in frame["instrument"]]
     lines = frame.index.to_numpy() + 2
-    return RVData.from_arrays(
+    data = RVData.from_arrays(
         values["time"],
         values["rv"],
         values["rv_err"],
@@ -263,3 +311,15 @@ def read_rv_csv(path):
         source=str(path),
         _where=lambda i, column: f"{path}, line {int(lines[i])}, column '{column}'",
     )
+    check_bjd(values["time"], lambda i: f"{path}, line {int(lines[i])}, column 'time'")
+    for column in ("rv", "rv_err"):
+        big = np.flatnonzero(np.abs(values[column]) > MAX_VELOCITY_MS)
+        if big.size:
+            i = int(big[0])
+            value = float(values[column][i])
+            raise RVDataError(
+                f"{path}, line {int(lines[i])}, column '{column}' holds {value!r}: "
+                f"more than {MAX_VELOCITY_MS:g} m/s (1000 km/s), beyond any star's velocity; "
+                "give velocities and errors in m/s."
+            )
+    return data

@@ -23,7 +23,7 @@ from .errors import InferenceError, ModelError
 from .keplerian import radial_velocity
 from .model import ModelSpec
 
-__all__ = ["FORMAT_VERSION", "Posterior", "predict_matrix"]
+__all__ = ["FORMAT_VERSION", "Posterior", "current_umask", "predict_matrix"]
 
 #: Version of the on-disk format; readers refuse files with another major version.
 #: 1.1 added the optional ``cache_key`` entry of the metadata; 2.0 has the diagnostics of the
@@ -195,6 +195,8 @@ class Posterior:
         )
         fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
         try:
+            # mkstemp makes the file 0600; a cache entry gets the umask's mode, like any file.
+            os.fchmod(fd, 0o666 & ~current_umask())
             with os.fdopen(fd, "wb") as fh:
                 fh.write(buf.getvalue())
                 fh.flush()
@@ -280,6 +282,20 @@ class Posterior:
                 f"{path} is not a readable posterior file ({type(exc).__name__}: {exc}): delete "
                 "it and refit."
             ) from None
+
+
+def current_umask() -> int:
+    """Return the process's file-creation mask (read from /proc where possible, else set back)."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except (OSError, ValueError):
+        pass
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
 
 
 def _fsync_folder(folder):

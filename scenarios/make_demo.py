@@ -204,7 +204,6 @@ sampler:
   min_period_d: 1.0
   max_period_d: 3000
 solver:
-  time_limit_s: 25
   seed: 0
   workers: 2
 targets:

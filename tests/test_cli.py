@@ -1,5 +1,6 @@
 """The nightbits command: help, exit codes, one sentence per user error, nothing written."""
 
+import os
 import shutil
 import subprocess
 import sys
@@ -139,6 +140,58 @@ def test_replan_with_a_bad_lost_night(capsys, tmp_path):
     assert "plan file" in line and "does not exist" in line
 
 
-def test_debug_shows_the_traceback(capsys):
-    with pytest.raises(ValueError):
-        main(["--debug", "fit", "/nonexistent/run.yaml"])
+def test_debug_shows_the_traceback_and_keeps_exit_2(capsys):
+    # The docs: exit 2 for a user mistake, with or without --debug.
+    assert main(["--debug", "fit", "/nonexistent/run.yaml"]) == 2
+    err = capsys.readouterr().err
+    assert "Traceback (most recent call last)" in err
+    assert err.strip().splitlines()[-1].startswith("nightbits fit: scenario file")
+
+
+def test_outputs_and_cache_entries_get_the_umask_mode(tmp_path, monkeypatch, capsys):
+    # POSIX: a new file's mode is 0666 less the umask (common practice: 022 gives 0644);
+    # mkstemp's 0600 must not leak into plan files or cache entries.
+    import stat
+
+    monkeypatch.setenv("NIGHTBITS_CACHE", str(tmp_path / "cache"))
+    old = os.umask(0o022)
+    try:
+        assert main(["plan", str(TINY), "--out", str(tmp_path / "p")]) == 0
+    finally:
+        os.umask(old)
+    capsys.readouterr()
+    files = [tmp_path / "p" / n for n in ("plan.json", "plan.csv", "curves.npz")]
+    files += sorted((tmp_path / "cache").glob("*.npz"))
+    assert len(files) == 6
+    for path in files:
+        assert stat.S_IMODE(path.stat().st_mode) == 0o644, path
+
+
+def test_a_cache_or_out_path_that_is_a_file_is_one_sentence(tmp_path, capsys):
+    taken = tmp_path / "taken"
+    taken.write_text("not a folder\n")
+    line = _user_error(capsys, ["fit", str(TINY), "--cache", str(taken)])
+    assert line == (f"nightbits fit: --cache {taken}: {taken} is a file, not a folder; give a "
+                    "folder for the posterior cache (or --no-cache).")
+    line = _user_error(capsys, ["compare", str(TINY), "--out", str(taken)])
+    assert line == (f"nightbits compare: --out {taken}: {taken} is a file, not a folder; choose "
+                    "a folder with --out.")
+    line = _user_error(capsys, ["plan", str(TINY), "--out", str(taken / "sub")])
+    assert f"{taken} is a file, not a folder" in line
+    assert taken.read_text() == "not a folder\n"
+
+
+def test_plot_and_jobs_problems_fail_before_any_fitting(tmp_path, capsys, monkeypatch):
+    cache = tmp_path / "cache"
+    monkeypatch.setenv("NIGHTBITS_CACHE", str(cache))
+    line = _user_error(capsys, ["plan", str(TINY), "--out", str(tmp_path / "p"),
+                                "--plot", str(tmp_path / "nights.gif")])
+    assert "--plot" in line and "use a .png, .pdf or .svg file name" in line
+    line = _user_error(capsys, ["curves", str(TINY), "--plot",
+                                str(tmp_path / "missing" / "c.png")])
+    assert f"the folder {tmp_path / 'missing'} does not exist" in line
+    line = _user_error(capsys, ["compare", str(TINY), "--plot", str(tmp_path)])
+    assert "that is a folder; give a file name" in line
+    assert main(["fit", str(TINY), "--jobs", "0"]) == 2
+    assert "--jobs: 0 is not at least 1" in capsys.readouterr().err
+    assert not cache.exists() and not (tmp_path / "p").exists()  # nothing fitted or written

@@ -28,9 +28,9 @@ def test_reads_published_file():
 
 
 def test_missing_instrument_column_gives_default(tmp_path):
-    data = read_rv_csv(_write(tmp_path, "time,rv,rv_err\n1.0,2.0,0.5\n3.0,4.0,0.5\n"))
+    data = read_rv_csv(_write(tmp_path, "time,rv,rv_err\n2460001.0,2.0,0.5\n2460003.0,4.0,0.5\n"))
     assert data.instruments == ("default",)
-    np.testing.assert_array_equal(data.time, [1.0, 3.0])
+    np.testing.assert_array_equal(data.time, [2460001.0, 2460003.0])
     np.testing.assert_array_equal(data.instrument_index, [0, 0])
     with pytest.raises(ValueError):
         data.rv[0] = 3.0  # the record's arrays are read-only
@@ -65,7 +65,8 @@ def test_bad_input_sentence_names_file_line_column(tmp_path, text, line, column,
 
 
 def test_same_time_on_two_instruments_is_allowed(tmp_path):
-    data = read_rv_csv(_write(tmp_path, "time,rv,rv_err,instrument\n1,2,0.5,a\n1,3,0.5,b\n"))
+    data = read_rv_csv(_write(tmp_path, "time,rv,rv_err,instrument\n2460001,2,0.5,a\n"
+                                        "2460001,3,0.5,b\n"))
     assert data.instruments == ("a", "b")
 
 

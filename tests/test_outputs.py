@@ -112,7 +112,7 @@ def test_crash_between_temporary_and_rename_keeps_old_file(tmp_path, monkeypatch
 def test_unwritable_folder_is_a_sentence(tmp_path):
     blocker = tmp_path / "file"
     blocker.write_text("x")
-    with pytest.raises(PlanError, match="cannot write the plan into"):
+    with pytest.raises(PlanError, match="file is a file, not a folder; choose a folder"):
         write_plan(blocker / "sub", make_plan())
 
 

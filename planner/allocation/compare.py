@@ -127,7 +127,7 @@ def compare_strategies(
     predictors: Sequence,
     *,
     rng: np.random.Generator,
-    time_limit_s: float = 60.0,
+    time_limit_s: float | None = None,
     seed: int = 0,
     workers: int = 2,
     exact_greedy: bool = True,
@@ -135,6 +135,8 @@ def compare_strategies(
     verify: Callable[[Plan], object] | None = None,
     focus_per_group: int | None = None,
     pack: Callable[[Plan], object] | None = None,
+    streams=None,
+    limit=None,
 ) -> Comparison:
     """Run cadence, greedy and joint on one problem and score them exactly.
 
@@ -145,9 +147,10 @@ def compare_strategies(
     predictors : sequence, length n_targets
         Posterior predictors per target (problem order).
     rng : numpy.random.Generator
-        Source of the Monte Carlo outcomes (greedy's exact gains and the scores).
-    time_limit_s, seed, workers
-        Joint solver limits.
+        Source of the Monte Carlo outcomes of greedy's exact gains, and of the scores unless
+        ``streams`` is given.
+    time_limit_s, seed, workers, limit
+        Joint solver limits (:func:`~planner.allocation.joint.joint_plan`).
     exact_greedy : bool
         Greedy by exact conditional gains (True) or by the surrogate's marginal gains.
     n_outcomes : int
@@ -159,6 +162,10 @@ def compare_strategies(
     pack : callable, optional
         ``plan -> Packing`` (:func:`planner.allocation.packing.pack_plan`), applied to every
         strategy's plan alike before it is verified and scored on the packing's problem.
+    streams : planner.information.streams.Streams, optional
+        Score every plan with one stream per target
+        (:func:`~planner.allocation.score.score_plan`), so a plan's score is the same here as
+        wherever else it is scored with these streams.
 
     Returns
     -------
@@ -170,14 +177,15 @@ def compare_strategies(
     hint = greedy if not exact_greedy else greedy_plan(problem, surrogate)
     best_hint = max((hint, greedy), key=lambda p: p.objective)
     joint = joint_plan(problem, surrogate, time_limit_s=time_limit_s, seed=seed, workers=workers,
-                       hint=best_hint, focus_per_group=focus_per_group)
+                       hint=best_hint, focus_per_group=focus_per_group, limit=limit)
     rows, bits, visits, plans = [], {}, {}, {}
     for plan in (cadence, greedy, joint):
         scored = problem
         if pack is not None:
             packing = pack(plan)
             plan, scored = packing.plan, packing.problem
-        score = score_plan(plan, scored, predictors, rng=rng, n_outcomes=n_outcomes)
+        score = score_plan(plan, scored, predictors, rng=None if streams else rng,
+                           streams=streams, n_outcomes=n_outcomes)
         verified = None if verify is None else bool(verify(plan).ok)
         rows.append(_row(plan, score, problem, verified))
         bits[plan.strategy] = score.per_target_bits

@@ -19,7 +19,9 @@ search found nothing in time).
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
+import os
 import time
 from dataclasses import dataclass
 
@@ -33,7 +35,15 @@ from planner.allocation.problem import Problem
 from planner.allocation.surrogate import Surrogate
 from planner.errors import PlanError
 
-__all__ = ["FOCUS_GAP_LIMIT", "JointHandles", "build_model", "joint_plan", "solve"]
+__all__ = [
+    "DEFAULT_WORK_LIMIT",
+    "FOCUS_GAP_LIMIT",
+    "JointHandles",
+    "SearchLimit",
+    "build_model",
+    "joint_plan",
+    "solve",
+]
 
 #: Relative gap at which the first (reduced) stage of a two-stage solve stops; the second stage
 #: searches on from its plan. On the demo the reduced model reached 0.5 % in 5.3 s (114.88
@@ -41,6 +51,92 @@ __all__ = ["FOCUS_GAP_LIMIT", "JointHandles", "build_model", "joint_plan", "solv
 #: left made `nightbits plan` 16 % slower than with the previous surrogate (54.3 s against
 #: 46.9 s) for no measurable gain (113.46 and 113.92 exact bits against 113.05 and 113.78).
 FOCUS_GAP_LIMIT = 0.005
+
+#: Work limit used when neither a work limit nor a wall-clock limit is given, in CP-SAT's
+#: deterministic time units (the scenario's ``solver.work_limit`` is the calibrated default).
+DEFAULT_WORK_LIMIT = 10.0
+
+
+@dataclass(frozen=True)
+class SearchLimit:
+    """How long CP-SAT searches: a work limit (reproducible) or a wall-clock limit.
+
+    Attributes
+    ----------
+    work : float or None
+        CP-SAT deterministic time [its own units, about seconds of one core's work]. Given a
+        model, seed and worker count, a search stopped by work alone returns the same solution
+        on every run and machine load (the parallel search is interleaved in fixed batches).
+    seconds : float or None
+        Wall-clock limit [s]: the search stops wherever the machine's load has let it get, so
+        the plan may differ between runs. Used only when ``work`` is None.
+    """
+
+    work: float | None = None
+    seconds: float | None = None
+
+    def __post_init__(self) -> None:
+        if (self.work is None) == (self.seconds is None):
+            raise ValueError("give exactly one of a work limit and a wall-clock limit.")
+        value = self.work if self.work is not None else self.seconds
+        if not value > 0:
+            raise ValueError(f"a search limit must be positive, got {value}.")
+
+    @property
+    def deterministic(self) -> bool:
+        """True for a work limit (the search is reproducible)."""
+        return self.work is not None
+
+    def share(self, fraction: float) -> SearchLimit:
+        """Return the same kind of limit, ``fraction`` of this one."""
+        if self.work is not None:
+            return SearchLimit(work=self.work * fraction)
+        return SearchLimit(seconds=self.seconds * fraction)
+
+    def describe(self) -> str:
+        """``work 12`` or ``wall-clock 25 s``, for messages."""
+        return f"work {self.work:g}" if self.work is not None else f"wall-clock {self.seconds:g} s"
+
+
+def _limit(limit: SearchLimit | None, time_limit_s: float | None) -> SearchLimit:
+    """Return ``limit``, else a wall-clock ``time_limit_s``, else the default work limit."""
+    if limit is not None:
+        if time_limit_s is not None:
+            raise ValueError("give either limit or time_limit_s, not both.")
+        return limit
+    if time_limit_s is not None:
+        return SearchLimit(seconds=float(time_limit_s))
+    return SearchLimit(work=DEFAULT_WORK_LIMIT)
+
+
+def _set_parameters(solver: cp_model.CpSolver, limit: SearchLimit, seed: int, workers: int,
+                    gap_limit: float) -> None:
+    """Set CP-SAT's limit, seed, workers and the search settings these models need."""
+    params = solver.parameters
+    if limit.deterministic:
+        params.max_deterministic_time = float(limit.work)
+        # Interleaved search runs the workers' subsolvers in fixed batches of deterministic
+        # time and shares solutions only between batches, so the result depends on the model,
+        # the seed and the worker count, not on thread timing.
+        params.interleave_search = workers > 1
+    else:
+        params.max_time_in_seconds = float(limit.seconds)
+    params.random_seed = int(seed)
+    params.num_workers = int(workers)
+    # CP-SAT would catch Ctrl-C itself and return its best plan as if the limit were reached;
+    # _search lets the interrupt reach Python instead.
+    params.catch_sigint_signal = False
+    # Probing in presolve adds about a million implications between the visit-pattern
+    # Booleans and took the whole demo limit; without it the demo's reduced model reached a
+    # 0.3 % gap in 12.5 s (docs/allocation.md).
+    params.cp_model_probing_level = 0
+    params.relative_gap_limit = float(gap_limit)
+    if workers == 1:
+        params.linearization_level = 2
+    elif workers == 2:
+        # CP-SAT's own two-worker portfolio leaves the bound at a weak value on these models;
+        # two LP-based workers (full and default linearisation) close it (docs/allocation.md).
+        params.subsolvers.extend(["max_lp", "default_lp"])
 
 
 @dataclass(frozen=True, eq=False)
@@ -162,10 +258,11 @@ def solve(
     model: cp_model.CpModel,
     handles: JointHandles,
     *,
-    time_limit_s: float = 60.0,
+    time_limit_s: float | None = None,
     seed: int = 0,
     workers: int = 2,
     gap_limit: float = 0.0,
+    limit: SearchLimit | None = None,
 ) -> Plan:
     """Solve a joint model and read the plan back.
 
@@ -175,8 +272,8 @@ def solve(
         From :func:`build_model`.
     handles : JointHandles
         Its variables.
-    time_limit_s : float
-        Wall-clock limit of the search [s].
+    time_limit_s : float, optional
+        Wall-clock limit of the search [s] (the plan may then differ between runs).
     seed : int
         CP-SAT random seed.
     workers : int
@@ -184,6 +281,9 @@ def solve(
     gap_limit : float
         Stop once the relative gap is at most this (0: search to the optimum or the limit); a
         plan stopped so has status ``WITHIN_GAP``.
+    limit : SearchLimit, optional
+        The search limit; default: wall clock ``time_limit_s`` if given, else the work limit
+        ``DEFAULT_WORK_LIMIT`` (reproducible).
 
     Returns
     -------
@@ -197,23 +297,11 @@ def solve(
         If the rules cannot all be met, or no plan was found and no hint was given.
     """
     problem, surrogate = handles.problem, handles.surrogate
+    limit = _limit(limit, time_limit_s)
     solver = cp_model.CpSolver()
-    solver.parameters.max_time_in_seconds = float(time_limit_s)
-    solver.parameters.random_seed = int(seed)
-    solver.parameters.num_workers = int(workers)
-    # Probing in presolve adds about a million implications between the visit-pattern
-    # Booleans and took the whole demo limit; without it the demo's reduced model reached a
-    # 0.3 % gap in 12.5 s (docs/allocation.md).
-    solver.parameters.cp_model_probing_level = 0
-    solver.parameters.relative_gap_limit = float(gap_limit)
-    if workers == 1:
-        solver.parameters.linearization_level = 2
-    elif workers == 2:
-        # CP-SAT's own two-worker portfolio leaves the bound at a weak value on these models;
-        # two LP-based workers (full and default linearisation) close it (docs/allocation.md).
-        solver.parameters.subsolvers.extend(["max_lp", "default_lp"])
+    _set_parameters(solver, limit, seed, workers, gap_limit)
     t0 = time.perf_counter()
-    status = solver.Solve(model)
+    status = _search(solver, model)
     runtime = time.perf_counter() - t0
     name = solver.StatusName(status)
     if status == cp_model.INFEASIBLE:
@@ -225,7 +313,7 @@ def solve(
         chosen, name = handles.hint, "HINT_ONLY"  # nothing proven either: no bound
     else:
         raise PlanError(
-            f"The solver found no plan within {time_limit_s:g} s; raise the time limit."
+            f"The solver found no plan within its limit ({limit.describe()}); raise it."
         )
     value = surrogate.value(problem, chosen)
     bound = (max(solver.BestObjectiveBound(), value) / surrogate.scale
@@ -237,6 +325,7 @@ def solve(
         ("branches", solver.NumBranches()),
         ("conflicts", solver.NumConflicts()),
         ("wall_time_s", solver.WallTime()),
+        ("deterministic_time", solver.ResponseProto().deterministic_time),
     )
     return assemble_plan(
         problem, chosen, strategy="joint", objective=value / surrogate.scale,
@@ -286,6 +375,50 @@ def _infeasible_rule(problem: Problem, surrogate: Surrogate) -> str:
     return (f"No plan meets every rule: the required visits of {', '.join(map(repr, needy))} "
             "can each be met alone but not together (they need the same time); relax "
             "min_visits or must_windows of one of them.")
+def _search(solver: cp_model.CpSolver, model: cp_model.CpModel):
+    """Run the search in a worker thread, so that Ctrl-C stops it and is raised, not swallowed.
+
+    The calling thread waits in short joins, where Python's signal handlers run; on an
+    exception there (KeyboardInterrupt from SIGINT, or SIGTERM turned into one by the CLI) the
+    search is stopped and the exception re-raised, so no plan is made from a cut search.
+    """
+    import threading
+
+    outcome = {}
+
+    def work() -> None:
+        try:
+            outcome["status"] = solver.Solve(model)
+        except BaseException as exc:  # handed to the calling thread
+            outcome["error"] = exc
+
+    before = _threads()
+    thread = threading.Thread(target=work, name="cp-sat-search", daemon=True)
+    thread.start()
+    try:
+        while thread.is_alive():
+            thread.join(0.05)
+    except BaseException:
+        solver.StopSearch()
+        thread.join()
+        # The search's own worker threads end shortly after Solve returns; a process that
+        # exits before they have ended is aborted by the C++ runtime, so wait for them.
+        with contextlib.suppress(KeyboardInterrupt):
+            deadline = time.monotonic() + 2.0
+            while _threads() > before and time.monotonic() < deadline:
+                time.sleep(0.01)
+        raise
+    if "error" in outcome:
+        raise outcome["error"]
+    return outcome["status"]
+
+
+def _threads() -> int:
+    """Threads of this process (Linux ``/proc``; elsewhere 0, and the wait above is skipped)."""
+    try:
+        return len(os.listdir("/proc/self/task"))
+    except OSError:
+        return 0
 
 
 def _marginals(problem: Problem, surrogate: Surrogate, chosen: np.ndarray) -> np.ndarray:
@@ -331,7 +464,7 @@ def joint_plan(
     problem: Problem,
     surrogate: Surrogate,
     *,
-    time_limit_s: float = 60.0,
+    time_limit_s: float | None = None,
     seed: int = 0,
     workers: int = 2,
     hint: Plan | None = None,
@@ -339,6 +472,7 @@ def joint_plan(
     focus_per_group: int | None = None,
     focus_share: float = 0.5,
     gap_limit: float = 0.0,
+    limit: SearchLimit | None = None,
 ) -> Plan:
     """Build and solve the joint model, hinted with ``hint`` (default: the greedy plan).
 
@@ -348,8 +482,8 @@ def joint_plan(
         Candidate visits and rules.
     surrogate : Surrogate
         Integer objective.
-    time_limit_s, seed, workers
-        Solver limits (see :func:`solve`); the time limit covers the search only.
+    time_limit_s, seed, workers, limit
+        Solver limits (see :func:`solve`); the limit covers the search only.
     hint : Plan, optional
         A feasible plan of this problem to start from; default: :func:`greedy_plan` on the
         surrogate.
@@ -358,12 +492,12 @@ def joint_plan(
         by value, plus the hint's; the bound then holds for that reduced problem only.
     focus_per_group : int, optional
         Solve in two stages: first the problem reduced to the best ``focus_per_group``
-        candidates per group (plus the hint's) for at most ``focus_share`` of the time limit
+        candidates per group (plus the hint's) for at most ``focus_share`` of the limit
         (stopping at a gap of ``FOCUS_GAP_LIMIT``), then the whole problem, hinted with the
         first stage's plan, for the other share. The plan is at least the first stage's; the
         bound is the second stage's, so it holds for the whole problem.
     focus_share : float
-        Share of ``time_limit_s`` given to the first stage, in (0, 1).
+        Share of the limit given to the first stage, in (0, 1).
     gap_limit : float
         Relative gap at which the search stops (see :func:`solve`); the first of two stages
         stops at ``FOCUS_GAP_LIMIT`` or less.
@@ -374,12 +508,13 @@ def joint_plan(
         The joint plan; its ``runtime_s`` includes building the hint and the model.
     """
     t0 = time.perf_counter()
+    limit = _limit(limit, time_limit_s)
     hint = greedy_plan(problem, surrogate) if hint is None else hint
     if focus_per_group is not None:
         if not 0.0 < focus_share < 1.0:
             raise ValueError(f"focus_share must lie strictly between 0 and 1, got {focus_share}.")
         try:
-            first = joint_plan(problem, surrogate, time_limit_s=focus_share * time_limit_s,
+            first = joint_plan(problem, surrogate, limit=limit.share(focus_share),
                                seed=seed, workers=workers, hint=hint,
                                keep_per_group=focus_per_group,
                                gap_limit=max(gap_limit, FOCUS_GAP_LIMIT))
@@ -387,14 +522,16 @@ def joint_plan(
             # The reduced model can lack starts a rule needs (the whole problem may still
             # have a plan): go on from the hint; the second stage decides, or names the rule.
             first = dataclasses.replace(hint, status="HINT_KEPT")
-        plan = joint_plan(problem, surrogate, time_limit_s=(1.0 - focus_share) * time_limit_s,
+        plan = joint_plan(problem, surrogate, limit=limit.share(1.0 - focus_share),
                           seed=seed, workers=workers, hint=first, keep_per_group=keep_per_group,
                           gap_limit=gap_limit)
         status = plan.status
         if status == "HINT_KEPT" and first.status != "HINT_KEPT":
             status = "FOCUSED"  # the first stage's solution, unimproved by the second
         stats = plan.stats + (("focus_objective", float(first.objective)),
-                              ("focus_optimal", float(first.status == "OPTIMAL")))
+                              ("focus_optimal", float(first.status == "OPTIMAL")),
+                              ("focus_deterministic_time",
+                               float(dict(first.stats).get("deterministic_time", 0.0))))
         return Plan(**{**plan.__dict__, "status": status, "stats": stats,
                        "runtime_s": time.perf_counter() - t0})
     keep = np.arange(problem.n_candidates)
@@ -404,8 +541,7 @@ def joint_plan(
     position = {int(c): k for k, c in enumerate(keep)}
     model, handles = build_model(sub, sub_surrogate,
                                  hint=np.array([position[int(c)] for c in hint.candidates]))
-    found = solve(model, handles, time_limit_s=time_limit_s, seed=seed, workers=workers,
-                  gap_limit=gap_limit)
+    found = solve(model, handles, limit=limit, seed=seed, workers=workers, gap_limit=gap_limit)
     chosen = keep[found.candidates]
     plan = assemble_plan(
         problem, chosen, strategy="joint", objective=surrogate.bits(problem, chosen),

@@ -53,7 +53,8 @@ def score_plan(
     problem: Problem,
     predictors: Sequence,
     *,
-    rng: np.random.Generator,
+    rng: np.random.Generator | None = None,
+    streams=None,
     n_outcomes: int = 512,
 ) -> PlanScore:
     """Score a plan by the exact joint information of each target's visits.
@@ -67,8 +68,13 @@ def score_plan(
     predictors : sequence, length n_targets
         Per target, ``velocities(bjd) -> (n_samples, n)`` [m/s] and ``jitter (n_samples,)``
         [m/s], e.g. :class:`planner.information.predict.Predictor`.
-    rng : numpy.random.Generator
-        Source of the simulated outcomes.
+    rng : numpy.random.Generator, optional
+        Source of the simulated outcomes, drawn target after target (so one target's value
+        depends on the others' visits).
+    streams : planner.information.streams.Streams, optional
+        Instead of ``rng``: each target draws from its own stream (stage ``score``, keyed by
+        its name), so its value depends only on the seed and its own visits, whatever else the
+        plan holds and in whatever order the targets come. Give exactly one of the two.
     n_outcomes : int
         Simulated outcomes per target.
 
@@ -78,6 +84,8 @@ def score_plan(
     """
     from planner.information.gain import joint_bits
 
+    if (rng is None) == (streams is None):
+        raise ValueError("give exactly one of rng and streams.")
     cand = plan.candidates
     weights = problem.weights
     bits = np.zeros(problem.n_targets)
@@ -92,7 +100,8 @@ def score_plan(
         pred = np.asarray(predictor.velocities(problem.bjd_mid[mine]), dtype=float)
         jitter = np.asarray(predictor.jitter, dtype=float)
         sigma = np.sqrt(problem.sigma[mine][None, :] ** 2 + jitter[:, None] ** 2)
-        est = joint_bits(pred, sigma, rng, n_outcomes)
+        here = rng if streams is None else streams.star("score", problem.target_names[s])
+        est = joint_bits(pred, sigma, here, n_outcomes)
         bits[s] = weights[s] * est.bits
         err[s] = weights[s] * est.stderr
     return PlanScore(

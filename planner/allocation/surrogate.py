@@ -329,7 +329,7 @@ def _caps(problem: Problem) -> list:
 
 def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000,
                     rng: np.random.Generator | None = None, n_outcomes: int = 256,
-                    workers: int | None = None) -> Surrogate:
+                    workers: int | None = None, streams=None) -> Surrogate:
     """Build the visit-pattern surrogate from each target's posterior predictions.
 
     Parameters
@@ -349,6 +349,9 @@ def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000
         without it, by the rescaled Gaussian information.
     n_outcomes : int
         Simulated outcomes per target (each target draws from its own child of ``rng``).
+    streams : planner.information.streams.Streams, optional
+        Instead of ``rng``: each target draws from its own stream (stage ``surrogate``, keyed
+        by its name), so its values do not depend on the order or number of targets.
     workers : int, optional
         Threads for the exact pattern values (None: one per core). The result does not
         depend on it.
@@ -367,7 +370,12 @@ def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000
     caps = _caps(problem)
     slots = np.zeros((problem.n_targets, n_n, max(caps, default=1)))
     rho = np.ones(problem.n_targets)
-    streams = [None] * problem.n_targets if rng is None else rng.spawn(problem.n_targets)
+    if rng is not None and streams is not None:
+        raise ValueError("give at most one of rng and streams.")
+    if streams is not None:
+        streams = [streams.star("surrogate", name) for name in problem.target_names]
+    else:
+        streams = [None] * problem.n_targets if rng is None else rng.spawn(problem.n_targets)
     jobs, layout = [], []
     for s in range(problem.n_targets):
         rule = problem.rules[s]

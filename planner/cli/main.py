@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import argparse
 import logging
+import signal
 import sys
 from pathlib import Path
 
@@ -60,12 +61,19 @@ def _add_curves(sub) -> None:
                         "from equal-count period intervals) or 'alias' (which period mode)")
 
 
+def _limit_options(p, default: str) -> None:
+    p.add_argument("--work-limit", type=float, default=None, metavar="W",
+                   help="search work in CP-SAT deterministic time units; the same input gives "
+                        f"the same plan (default: {default})")
+    p.add_argument("--time-limit", type=float, default=None, metavar="S",
+                   help="search for S seconds of wall clock instead (at the telescope); the "
+                        "plan may then differ between runs")
+
+
 def _plan_options(p, out_default: str | None) -> None:
     p.add_argument("--strategy", choices=("joint", "greedy", "cadence"), default=None,
                    help="allocation strategy (default: the scenario's solver.strategy, joint)")
-    p.add_argument("--time-limit", type=float, default=None, metavar="S",
-                   help="solver wall-clock limit in seconds (default: solver.time_limit_s, "
-                        "for replan solver.replan_time_limit_s)")
+    _limit_options(p, "solver.work_limit, for replan solver.replan_work_limit")
     p.add_argument("--out", metavar="DIR", default=out_default,
                    help="folder for plan.json, plan.csv and the queue table plan.ecsv "
                         "(default: %(default)s)")
@@ -86,8 +94,7 @@ def _add_compare(sub) -> None:
     p = _command(sub, "compare", "joint, greedy and cadence plans on one exact score",
                  "Plan the run with every strategy and compare them on the exact joint "
                  "information score.", _run_compare)
-    p.add_argument("--time-limit", type=float, default=None, metavar="S",
-                   help="solver wall-clock limit in seconds (default: solver.time_limit_s)")
+    _limit_options(p, "solver.work_limit")
     p.add_argument("--out", metavar="DIR", default=None,
                    help="also write DIR/compare.json (one record per strategy)")
     p.add_argument("--force", action="store_true", help="replace an existing DIR/compare.json")
@@ -150,6 +157,7 @@ def _run_curves(args) -> int:
     pipeline, scenario, cache = open_session(args)
     for target in args.target or ():
         scenario.target(target)
+    _check_plot(args)
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
     run = pipeline.prepare(scenario, posteriors)
     from planner.workflow.report import curves_summary
@@ -174,19 +182,20 @@ def _run_curves(args) -> int:
 
 
 def _run_plan(args) -> int:
-    from planner.workflow.outputs import write_plan
+    from planner.workflow.outputs import OutLock, write_plan
     from planner.workflow.report import render_schedule
 
     pipeline, scenario, cache = open_session(args)
     pipeline.check_out_folder(args.out, args.force)
+    lock = OutLock(args.out)
+    args.locks.append(lock)
+    _check_plot(args)
+    limit = pipeline.search_limit(scenario, args.time_limit, args.work_limit)
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
     run = pipeline.prepare(scenario, posteriors, strict=args.strict)
-    result = pipeline.make_plan(run, strategy=args.strategy, time_limit_s=args.time_limit)
+    result = pipeline.make_plan(run, strategy=args.strategy, time_limit_s=limit)
     sys.stdout.write(render_schedule(result.plan_file))
-    paths = write_plan(args.out, result.plan_file, force=args.force,
-                       extra=_queue(scenario, result.plan_file))
-    pipeline.save_curves(run, paths[0].parent / "curves.npz")
-    sys.stderr.write(f"wrote {paths[0]}, {paths[1]} and {paths[0].parent / 'plan.ecsv'}\n")
+    _write_plan_set(args, pipeline, write_plan, result, run, lock, scenario)
     _maybe_night_plot(args, run, result)
     return EXIT_OK
 
@@ -198,11 +207,28 @@ def _queue(scenario, plan_file) -> dict:
     return {"plan.ecsv": queue_text(plan_file, {t.id: t.v_mag for t in scenario.targets})}
 
 
+def _write_plan_set(args, pipeline, write_plan, result, run, lock, scenario) -> None:
+    """Write plan.json, plan.csv, plan.ecsv and curves.npz as one set and say so."""
+    extra = {**_queue(scenario, result.plan_file), "curves.npz": pipeline.curves_bytes(run)}
+    paths = write_plan(args.out, result.plan_file, force=args.force, extra=extra, lock=lock,
+                       on_commit=lambda: args.written.append(f"the new plan in {args.out}"))
+    sys.stderr.write(f"wrote {paths[0]}, {paths[1]} and {paths[0].parent / 'plan.ecsv'}\n")
+
+
+def _check_plot(args) -> None:
+    """Check ``--plot`` (its folder, suffix and matplotlib) before any work."""
+    if getattr(args, "plot", None):
+        from planner.workflow.plots import check_plot_path
+
+        check_plot_path(args.plot)
+
+
 def _maybe_night_plot(args, run, result) -> None:
     if args.plot:
         from planner.workflow.plots import plot_nights
 
         plot_nights(run, result.plan_file, args.plot)
+        args.written.append(args.plot)
         sys.stderr.write(f"wrote {args.plot}\n")
 
 
@@ -212,30 +238,56 @@ def _run_compare(args) -> int:
     if args.out is not None:
         target = Path(args.out) / "compare.json"
         pipeline.check_out_folder(args.out, args.force, names=(target.name,))
+    _check_plot(args)
+    limit = pipeline.search_limit(scenario, args.time_limit, args.work_limit)
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
     run = pipeline.prepare(scenario, posteriors, strict=args.strict)
-    comparison = pipeline.compare(run, time_limit_s=args.time_limit)
+    comparison = pipeline.compare(run, time_limit_s=limit)
     sys.stdout.write(comparison.text)
     if target is not None:
         from planner.workflow.outputs import write_compare_json
 
+        _earlier_settings(target.parent, comparison.provenance)
         target.parent.mkdir(parents=True, exist_ok=True)
-        write_compare_json(comparison, target)
+        write_compare_json(comparison, target, comparison.provenance)
+        args.written.append(str(target))
         sys.stderr.write(f"wrote {target}\n")
     if args.plot:
         from planner.workflow.plots import plot_comparison
 
         plot_comparison(comparison, args.plot)
+        args.written.append(args.plot)
         sys.stderr.write(f"wrote {args.plot}\n")
     return EXIT_OK
 
 
+def _earlier_settings(folder: Path, current: dict) -> None:
+    """Say on stderr when a plan or comparison in ``folder`` was made under other settings."""
+    import json
+
+    from planner.workflow.provenance import other_settings_note
+
+    for name in ("plan.json", "compare.json"):
+        try:
+            recorded = json.loads((folder / name).read_text(encoding="utf-8"))
+        except (OSError, UnicodeDecodeError, ValueError):
+            continue  # nothing readable there: nothing to say
+        if not isinstance(recorded, dict):
+            continue
+        skip = ("solver strategy",) if name == "plan.json" else ()
+        sys.stderr.write(other_settings_note(str(folder / name), recorded.get("provenance"),
+                                             current, skip=skip))
+
+
 def _run_replan(args) -> int:
     from planner.workflow import pipeline, replan
-    from planner.workflow.outputs import read_plan, write_plan
+    from planner.workflow.outputs import OutLock, read_plan, write_plan
     from planner.workflow.report import render_schedule
 
     pipeline.check_out_folder(args.out, args.force)
+    lock = OutLock(args.out)
+    args.locks.append(lock)
+    _check_plot(args)
     old = read_plan(args.plan)
     path = args.scenario if args.scenario is not None else replan.recorded_scenario(old, args.plan)
     scenario = pipeline.load(path)
@@ -243,16 +295,14 @@ def _run_replan(args) -> int:
     cache = pipeline.cache_folder(scenario, args.cache, args.no_cache)
     request = replan.parse_request(old, scenario, lost=args.lost, done_file=args.done,
                                    rv_files=args.rvs, now=args.now)
+    limit = pipeline.search_limit(scenario, args.time_limit, args.work_limit, replan=True)
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
     saved = pipeline.load_curves(Path(args.plan).parent / "curves.npz")
     result = replan.replan(scenario, posteriors, old, request, strategy=args.strategy,
-                           time_limit_s=args.time_limit, reuse=saved)
+                           time_limit_s=limit, reuse=saved)
     sys.stdout.write(render_schedule(result.plan_file))
     sys.stdout.write(result.changes)
-    paths = write_plan(args.out, result.plan_file, force=args.force,
-                       extra=_queue(scenario, result.plan_file))
-    pipeline.save_curves(result.run, paths[0].parent / "curves.npz")
-    sys.stderr.write(f"wrote {paths[0]}, {paths[1]} and {paths[0].parent / 'plan.ecsv'}\n")
+    _write_plan_set(args, pipeline, write_plan, result, result.run, lock, scenario)
     _maybe_night_plot(args, result.run, result)
     return EXIT_OK
 
@@ -290,19 +340,42 @@ def main(argv: list[str] | None = None) -> int:
     from inference.errors import InferenceError
     from planner.errors import PlannerError
 
+    args.written, args.locks = [], []
+    import threading
+
+    main_thread = threading.current_thread() is threading.main_thread()
+    previous = signal.signal(signal.SIGTERM, _terminated) if main_thread else None
     try:
         return args.func(args)
     except (PlannerError, InferenceError) as exc:  # user errors: one sentence each
-        if args.debug:
-            raise
+        if args.debug:  # the traceback too, but still the exit code of a user error
+            import traceback
+
+            traceback.print_exc(file=sys.stderr)
         sys.stderr.write(f"nightbits {args.command}: {exc}\n")
         return EXIT_USER
     except KeyboardInterrupt:
-        sys.stderr.write(f"nightbits {args.command}: interrupted; nothing was written.\n")
-        return 130
+        done = (f"only {', '.join(args.written)} had been written" if args.written
+                else "nothing was written and earlier outputs are as they were")
+        sys.stderr.write(f"nightbits {args.command}: interrupted; {done}.\n")
+        return EXIT_INTERRUPTED
     except Exception as exc:
         if args.debug:
             raise
         sys.stderr.write(f"nightbits {args.command}: internal error ({type(exc).__name__}: "
                          f"{exc}); rerun with --debug for the traceback and report it.\n")
         return EXIT_INTERNAL
+    finally:
+        for lock in args.locks:
+            lock.release()
+        if main_thread:
+            signal.signal(signal.SIGTERM, previous)
+
+
+#: Exit code after SIGINT or SIGTERM (the shell's 128 + SIGINT).
+EXIT_INTERRUPTED = 130
+
+
+def _terminated(number, frame):
+    """SIGTERM handler: end like Ctrl-C (temporaries removed, the old outputs kept)."""
+    raise KeyboardInterrupt

@@ -75,6 +75,12 @@ def _check(args, scenario):
     from planner.workflow.outputs import check_out_folder
 
     check_out_folder(args.out, args.force, ("simulate.json",))
+    from planner.workflow.plots import check_plot_path, require_matplotlib
+
+    if args.plot:
+        check_plot_path(args.plot)
+    if args.plot_star:
+        require_matplotlib("--plot-star")
     return Path(args.out) / "simulate.json"
 
 

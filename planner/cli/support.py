@@ -56,6 +56,17 @@ class ProgressBar:
 SCENARIO_HELP = "scenario YAML file (default: the bundled invented demo run)"
 
 
+def _positive_int(text: str) -> int:
+    """Argparse type: a whole number of at least 1."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"{value} is not at least 1")
+    return value
+
+
 def add_common_options(parser: argparse.ArgumentParser,
                        scenario_help: str = SCENARIO_HELP) -> None:
     """Add the options every command shares: SCENARIO, --cache, --no-cache, --jobs, --scheduler."""
@@ -65,7 +76,7 @@ def add_common_options(parser: argparse.ArgumentParser,
                         help="posterior cache folder (default: the scenario's 'cache:', else "
                              "$NIGHTBITS_CACHE or ~/.cache/nightbits)")
     parser.add_argument("--no-cache", action="store_true", help="fit again, keep nothing")
-    parser.add_argument("--jobs", type=int, default=None, metavar="N",
+    parser.add_argument("--jobs", type=_positive_int, default=None, metavar="N",
                         help="processes for fitting (default: all cores)")
     parser.add_argument("--scheduler", metavar="ADDRESS", default=None,
                         help="run the fits on a Dask distributed cluster, e.g. "

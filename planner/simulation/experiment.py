@@ -161,7 +161,9 @@ def expected_bits(setup, conditions, seed=0, return_stderr=False):
     conditions : planner.simulation.simulate.Conditions
         The visits with their mid-exposure times and noise.
     seed : int
-        Seed of the simulated outcomes (fixed, so one set of visits has one value).
+        Seed of the simulated outcomes (fixed, so one set of visits has one value); each
+        target draws from its own stream (:class:`planner.information.streams.Streams`, stage
+        ``expected``), so its value does not depend on the other targets' visits.
     return_stderr : bool
         Also return the Monte Carlo standard error.
 
@@ -173,7 +175,9 @@ def expected_bits(setup, conditions, seed=0, return_stderr=False):
     stderr : float
         Only with `return_stderr`: its standard error [bits].
     """
-    rng = np.random.default_rng(seed)
+    from planner.information.streams import Streams
+
+    streams = Streams(seed)
     total, var = 0.0, 0.0
     for target in dict.fromkeys(v.target for v in conditions.visits):
         rows = [k for k, v in enumerate(conditions.visits) if v.target == target]
@@ -181,7 +185,7 @@ def expected_bits(setup, conditions, seed=0, return_stderr=False):
         pred = post.predict(conditions.bjd_tdb[rows], setup.instrument_name)
         jit = post.jitter(setup.instrument_name)
         sigma = np.sqrt(conditions.sigma_ms[rows][None, :] ** 2 + jit[:, None] ** 2)
-        est = joint_bits(pred, sigma, rng, EXPECTED_OUTCOMES)
+        est = joint_bits(pred, sigma, streams.star("expected", target), EXPECTED_OUTCOMES)
         total += setup.weight(target) * est.bits
         var += (setup.weight(target) * est.stderr) ** 2
     return (float(total), float(np.sqrt(var))) if return_stderr else float(total)

@@ -18,6 +18,7 @@ __all__ = [
     "cache_folder",
     "fit_jobs",
     "fit_posteriors",
+    "posterior_keys",
     "sampler_settings",
     "scheduler_address",
 ]
@@ -41,14 +42,25 @@ def cache_folder(scenario: Scenario, override: str | None, disabled: bool) -> Pa
     if disabled:
         return None
     if override:
-        return Path(override).expanduser().resolve()
+        return _usable(Path(override).expanduser().resolve(), "--cache")
     if scenario.cache_dir is not None:
-        return scenario.cache_dir
+        return _usable(scenario.cache_dir, f"{scenario.path.name}: cache")
     env = os.environ.get("NIGHTBITS_CACHE")
     if env:
-        return Path(env).expanduser().resolve()
+        return _usable(Path(env).expanduser().resolve(), "$NIGHTBITS_CACHE")
     base = os.environ.get("XDG_CACHE_HOME") or str(Path.home() / ".cache")
-    return Path(base).expanduser().resolve() / "nightbits"
+    return _usable(Path(base).expanduser().resolve() / "nightbits", "the user cache")
+
+
+def _usable(folder: Path, where: str) -> Path:
+    """Return ``folder`` if it is, or could become, a folder: not a file nor under one."""
+    from planner.workflow.outputs import nearest_existing
+
+    probe = nearest_existing(folder)
+    if probe.exists() and not probe.is_dir():
+        raise PlanError(f"{where} {folder}: {probe} is a file, not a folder; give a folder for "
+                        "the posterior cache (or --no-cache).")
+    return folder
 
 
 def fit_jobs(scenario: Scenario) -> list:
@@ -79,6 +91,22 @@ def fit_jobs(scenario: Scenario) -> list:
         jobs.append(FitJob(target=target.id, data=data, model=model, settings=settings,
                            seed=seed))
     return jobs
+
+
+def posterior_keys(scenario: Scenario, jobs=None) -> dict:
+    """Return the posterior cache key of every target (:func:`inference.cache.cache_key`), by id.
+
+    The key is a digest of the target's data, model, sampler settings, seed and the sampler
+    version, so equal keys mean equal posteriors whether they were fitted or loaded.
+    """
+    from inference.cache import cache_key
+
+    keys = {}
+    for job in (fit_jobs(scenario) if jobs is None else jobs):
+        job = job.resolved()
+        keys[job.target] = cache_key(job.data.digest, job.model, job.settings, job.seed,
+                                     target=job.target)
+    return keys
 
 
 def sampler_settings(scenario: Scenario):
@@ -143,6 +171,16 @@ def fit_posteriors(scenario: Scenario, cache: Path | None = None, jobs: int | No
         executor = ProcessPoolExecutor(workers)
     try:
         results = fit_many(work, executor=executor, cache=store, progress=progress)
+    except KeyboardInterrupt:
+        # Ctrl-C or SIGTERM: end the running fits now instead of waiting for them (the worker
+        # processes do not get a SIGTERM sent to this process; the cache is written only here).
+        executor.shutdown(wait=False, cancel_futures=True)
+        if workers > 1:
+            import multiprocessing
+
+            for child in multiprocessing.active_children():
+                child.kill()
+        raise
     finally:
         executor.shutdown(cancel_futures=True)
     failed = [(name, r) for name, r in results.items() if isinstance(r, FitFailure)]

@@ -21,6 +21,7 @@ import io
 import json
 import math
 import os
+import signal
 import tempfile
 from dataclasses import MISSING, asdict, dataclass, fields
 from pathlib import Path
@@ -32,12 +33,15 @@ from planner.workflow.accounting import LeftOut, TargetAccount
 __all__ = [
     "FORMAT_VERSION",
     "NightSummary",
+    "OutLock",
+    "deferred_interrupts",
     "PlanFile",
     "ScheduledVisit",
     "atomic_write_bytes",
     "atomic_write_text",
     "check_out_folder",
     "format_utc",
+    "nearest_existing",
     "parse_utc",
     "read_plan",
     "write_compare_json",
@@ -172,6 +176,11 @@ class PlanFile:
     target_summary : tuple of planner.workflow.accounting.TargetAccount
         Every target's visits, nights, expected bits and what bound it, in scenario order
         (plan.json key ``target_summary``).
+    provenance : dict or None
+        What reproduces the plan: solver settings and limit, seeds, posterior cache keys, the
+        nightbits version and the input files' digests
+        (:func:`planner.workflow.provenance.plan_provenance`); None in plans written before it
+        was recorded.
     """
 
     strategy: str
@@ -190,6 +199,7 @@ class PlanFile:
     objective_bits: float | None = None
     left_out: tuple = ()
     target_summary: tuple = ()
+    provenance: dict | None = None
 
     def to_json(self) -> str:
         """Return the plan.json text (UTF-8, indented, with a format version)."""
@@ -244,7 +254,7 @@ def atomic_write_text(path: str | Path, text: str) -> None:
     atomic_write_bytes(path, text.encode("utf-8"))
 
 
-def write_compare_json(comparison, path: str | Path) -> Path:
+def write_compare_json(comparison, path: str | Path, provenance: dict | None = None) -> Path:
     """Write ``compare.json`` (one record per strategy, plus per-target figures) atomically.
 
     Parameters
@@ -253,6 +263,9 @@ def write_compare_json(comparison, path: str | Path) -> Path:
         Anything with a ``document()`` (the report's adds the targets left out).
     path : str or Path
         Output file; written to a temporary file in the same folder, then renamed over it.
+    provenance : dict, optional
+        What reproduces it (:func:`planner.workflow.provenance.plan_provenance`), stored under
+        ``provenance``.
 
     Returns
     -------
@@ -260,13 +273,20 @@ def write_compare_json(comparison, path: str | Path) -> Path:
         The written file.
     """
     path = Path(path)
-    atomic_write_text(path, json.dumps(comparison.document(), indent=2) + "\n")
+    document = comparison.document()
+    if provenance is not None:
+        document["provenance"] = provenance
+    atomic_write_text(path, json.dumps(document, indent=2, allow_nan=False) + "\n")
     return path
 
 
 def _write_temporary(path: Path, data: bytes) -> Path:
+    from inference.posterior import current_umask
+
     fd, name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
+        # mkstemp makes the file 0600; an output gets the umask's mode, like any new file.
+        os.fchmod(fd, 0o666 & ~current_umask())
         with os.fdopen(fd, "wb") as handle:
             handle.write(data)
             handle.flush()
@@ -278,18 +298,140 @@ def _write_temporary(path: Path, data: bytes) -> Path:
     return Path(name)
 
 
+def nearest_existing(path: str | Path) -> Path:
+    """Return ``path`` if it exists, else its nearest existing parent (a file or a folder)."""
+    path = Path(path)
+    while not path.exists() and path != path.parent:
+        path = path.parent
+    return path
+
+
 def check_out_folder(out: str | Path, force: bool,
                      names: tuple[str, ...] = ("plan.json", "plan.csv", "plan.ecsv")) -> None:
-    """Fail at once, before any work, if ``out`` holds one of ``names`` and ``force`` is off."""
-    existing = [Path(out) / name for name in names if (Path(out) / name).exists()]
+    """Fail at once, before any work, if the outputs ``names`` could not be written into ``out``.
+
+    Raises
+    ------
+    PlanError
+        If ``out`` or one of its parents is a file, the nearest existing folder cannot be
+        written, one of ``names`` is a folder, or one of them exists and ``force`` is off.
+    """
+    out = Path(out)
+    existing_parent = nearest_existing(out)
+    if existing_parent.exists() and not existing_parent.is_dir():
+        raise PlanError(f"--out {out}: {existing_parent} is a file, not a folder; choose a "
+                        "folder with --out.")
+    if existing_parent.is_dir() and not os.access(existing_parent, os.W_OK | os.X_OK):
+        raise PlanError(f"--out {out}: the folder {existing_parent} cannot be written; choose "
+                        "another folder with --out.")
+    for name in names:
+        if (out / name).is_dir():
+            raise PlanError(f"{out / name} is a folder, so it cannot be written; choose another "
+                            "folder with --out.")
+    existing = [out / name for name in names if (out / name).exists()]
     if existing and not force:
         raise PlanError(f"{existing[0]} already exists; pass --force to replace it or choose "
                         "another folder with --out.")
 
 
-def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False,
-               extra: dict[str, str] | None = None) -> tuple[Path, Path]:
-    """Write ``plan.json`` and ``plan.csv`` (and ``extra`` files) into ``out_dir`` atomically.
+@contextlib.contextmanager
+def deferred_interrupts():
+    """Hold SIGINT and SIGTERM back inside the block, then act on them as usual.
+
+    Python runs signal handlers in the main thread between bytecodes, so replacing the
+    handlers for the block defers an interrupt whichever thread the kernel delivers it to.
+    Outside the main thread (where handlers cannot be set) the block runs unprotected.
+    """
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    caught = []
+    kinds = [signal.SIGINT, signal.SIGTERM]
+    previous = {kind: signal.signal(kind, lambda number, frame: caught.append(number))
+                for kind in kinds}
+    try:
+        yield
+    finally:
+        for kind, handler in previous.items():
+            signal.signal(kind, handler)
+    for number in caught[:1]:
+        handler = previous[number]
+        if callable(handler):
+            handler(number, None)
+        elif handler == signal.SIG_DFL:
+            signal.raise_signal(number)
+
+
+class OutLock:
+    """An exclusive lock on an output folder, held until the process ends or :meth:`release`.
+
+    Two commands writing into one folder (two ``--force`` runs) would otherwise mix their
+    files; the second is refused at once with one sentence. The lock is ``flock`` on the
+    folder itself, so nothing is written to take it, and the system drops it when the process
+    ends, however it ends.
+
+    Parameters
+    ----------
+    folder : str or Path
+        The output folder; locked now if it exists, else by :meth:`acquire` once it does.
+    """
+
+    def __init__(self, folder: str | Path) -> None:
+        self.folder, self._fd = Path(folder), None
+        if self.folder.is_dir():
+            self.acquire()
+
+    def acquire(self) -> None:
+        """Take the lock (a no-op if held).
+
+        Raises
+        ------
+        PlanError
+            If another process holds it.
+        """
+        import fcntl
+
+        if self._fd is not None:
+            return
+        fd = os.open(self.folder, os.O_RDONLY)
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            os.close(fd)
+            raise PlanError(f"another nightbits command is writing into {self.folder}; wait "
+                            "for it to finish or choose another folder with --out.") from None
+        self._fd = fd
+
+    def release(self) -> None:
+        """Release the lock."""
+        if self._fd is not None:
+            os.close(self._fd)
+            self._fd = None
+
+
+#: The names of the files a plan folder holds, in the order they are renamed into place.
+PLAN_FILES = ("plan.csv", "plan.ecsv", "curves.npz", "plan.json")
+
+
+def _clean_stale(out: Path, names=PLAN_FILES) -> None:
+    """Remove the temporaries of ``names`` in ``out`` (call only with the folder's lock held)."""
+    for name in names:
+        for stale in out.glob(f".{name}.*.tmp"):
+            with contextlib.suppress(OSError):
+                stale.unlink()
+
+
+def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False, *,
+               extra: dict | None = None, lock: OutLock | None = None,
+               on_commit=None) -> tuple[Path, Path]:
+    """Write ``plan.json``, ``plan.csv`` and any extra files into ``out_dir``, all or nothing.
+
+    Every file is first written to a temporary file in the folder; then all are renamed into
+    place with SIGINT and SIGTERM held back (:func:`deferred_interrupts`), so an interrupt
+    leaves either the old set or the new one, never a mix. The folder is locked
+    (:class:`OutLock`) while it is written, and temporaries left by a killed writer are removed.
 
     Parameters
     ----------
@@ -298,9 +440,14 @@ def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False,
     plan : PlanFile
     force : bool
         Replace an existing plan in that folder.
-    extra : dict of str to str, optional
-        More files of the plan by name and text (``{"plan.ecsv": ...}``), written and renamed
-        with the other two, so a crash leaves all of them as they were.
+    extra : dict of str to bytes or str, optional
+        More files of the set by name (``plan.ecsv``, ``curves.npz``); text is written as
+        UTF-8.
+    lock : OutLock, optional
+        The folder's lock if the command took it already; else it is taken here.
+    on_commit : callable, optional
+        Called with no argument once every file is in place, before a held-back interrupt is
+        acted on (so the caller knows the new set was written).
 
     Returns
     -------
@@ -310,29 +457,44 @@ def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False,
     Raises
     ------
     PlanError
-        If a plan already exists there and ``force`` is false, or the folder cannot be written.
+        If a plan already exists there and ``force`` is false, another command is writing
+        there, or the folder cannot be written.
     """
     out = Path(out_dir)
     json_path, csv_path = out / "plan.json", out / "plan.csv"
     check_out_folder(out, force)
-    payload = {json_path: plan.to_json().encode("utf-8"), csv_path: plan.to_csv().encode("utf-8")}
-    payload.update({out / name: text.encode("utf-8") for name, text in (extra or {}).items()})
+    payload = {csv_path: plan.to_csv().encode("utf-8")}
+    payload.update({out / name: data.encode("utf-8") if isinstance(data, str) else data
+                    for name, data in (extra or {}).items()})
+    payload[json_path] = plan.to_json().encode("utf-8")  # last: its presence marks a set
+    own_lock = None
     try:
         out.mkdir(parents=True, exist_ok=True)
-        temporaries = {}
+        if lock is None:
+            lock = own_lock = OutLock(out)
+        lock.acquire()
+        check_out_folder(out, force)  # again under the lock: another run may have written
+        names = [final.name for final in payload]
+        _clean_stale(out, set(PLAN_FILES) | set(names))  # left by a killed writer
+        temporaries, committed = {}, False
         try:
             for final, data in payload.items():
                 temporaries[final] = _write_temporary(final, data)
-        except BaseException:
-            for tmp in temporaries.values():
-                with contextlib.suppress(OSError):
-                    os.unlink(tmp)
-            raise
-        for final, tmp in temporaries.items():
-            os.replace(tmp, final)
+            with deferred_interrupts():
+                for final, tmp in temporaries.items():
+                    os.replace(tmp, final)
+                committed = True
+                if on_commit is not None:
+                    on_commit()
+        finally:
+            if not committed:  # by pattern: an interrupt may come before a name is kept
+                _clean_stale(out, names)
     except OSError as exc:
         raise PlanError(f"cannot write the plan into {out} ({exc.strerror or exc}); choose "
                         "another folder with --out.") from None
+    finally:
+        if own_lock is not None:
+            own_lock.release()
     return json_path, csv_path
 
 
@@ -367,10 +529,40 @@ def read_plan(path: str | Path) -> PlanFile:
                    for i, n in enumerate(_list(raw, "nights", where)))
     visits = tuple(_record(ScheduledVisit, v, f"{where}: visits[{i}]")
                    for i, v in enumerate(_list(raw, "visits", where)))
+    if not isinstance(top["target_bits"], dict):
+        raise PlanError(f"{where}: target_bits must be an object; write the plan again.")
+    if top.get("provenance") is not None and not isinstance(top["provenance"], dict):
+        raise PlanError(f"{where}: provenance must be an object; write the plan again.")
     for i, visit in enumerate(visits):
-        for key in ("start_utc", "end_utc"):
-            parse_utc(getattr(visit, key), f"{where}: visits[{i}].{key}")
+        _check_visit(visit, f"{where}: visits[{i}]", top["target_bits"])
     return PlanFile(**top, nights=nights, visits=visits)
+
+
+#: What a visit's status may be: planned, executed (``done``), or executed with its velocity
+#: folded in (``measured``).
+VISIT_STATUSES = ("planned", "done", "measured")
+
+
+def _check_visit(visit: ScheduledVisit, where: str, targets: dict) -> None:
+    """Refuse a visit a plan writer could not have written (a hand-edited plan file)."""
+    start = parse_utc(visit.start_utc, f"{where}.start_utc")
+    end = parse_utc(visit.end_utc, f"{where}.end_utc")
+    if visit.target not in targets:
+        raise PlanError(f"{where}.target: {visit.target!r} is not one of the plan's targets "
+                        f"({', '.join(map(str, targets))}); write the plan again.")
+    if visit.status not in VISIT_STATUSES:
+        raise PlanError(f"{where}.status: {visit.status!r} is not one of "
+                        f"{', '.join(VISIT_STATUSES)}; write the plan again.")
+    checks = (("ra_deg", visit.ra_deg, 0.0, 360.0), ("dec_deg", visit.dec_deg, -90.0, 90.0),
+              ("exposure_s", visit.exposure_s, 1e-9, 86400.0), ("slew_s", visit.slew_s, 0.0,
+                                                                   86400.0))
+    for name, value, lo, hi in checks:
+        if not lo <= value <= hi:
+            raise PlanError(f"{where}.{name}: {value!r} is outside {lo:g} to {hi:g}; write the "
+                            "plan again.")
+    if end <= start:
+        raise PlanError(f"{where}: it ends ({visit.end_utc}) before it starts "
+                        f"({visit.start_utc}); write the plan again.")
 
 
 def _list(raw: dict, key: str, where: str) -> list:
@@ -397,5 +589,8 @@ def _record(cls, raw: Any, where: str, skip=(), pairs=()) -> Any:
         number = isinstance(value, int | float) and not isinstance(value, bool)
         if f.type == "float" and not (number and math.isfinite(value)):
             raise PlanError(f"{where}: {f.name} must be a finite number, got {value!r}.")
+        if f.type == "str" and not isinstance(value, str):
+            raise PlanError(f"{where}: {f.name} must be text, got {value!r}; write the plan "
+                            "again.")
         values[f.name] = value
     return cls(**values) if cls is not PlanFile else values

@@ -22,6 +22,7 @@ The curves saved beside a plan for re-planning are in :mod:`planner.workflow.sav
 from __future__ import annotations
 
 import dataclasses
+import math
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -39,7 +40,7 @@ from planner.workflow.outputs import check_out_folder
 from planner.workflow.plan_file import build_plan_file, exact_marginals
 from planner.workflow.prepared import PreparedRun, prepare
 from planner.workflow.rungrid import RunGrid, physical_setup, run_grid
-from planner.workflow.saved_curves import load_curves, save_curves
+from planner.workflow.saved_curves import curves_bytes, load_curves, save_curves
 from planner.workflow.scenario import Scenario, load_scenario
 
 #: The joint strategy first solves the problem reduced to the best starts per (star, night,
@@ -48,6 +49,9 @@ from planner.workflow.scenario import Scenario, load_scenario
 #: 25 s): the reduced model with 12 starts per group solved to optimality in 11 s with 109.22
 #: exact bits, where the whole model alone kept greedy's plan (108.49) at a 20-24 % gap.
 JOINT_FOCUS_PER_GROUP = 12
+
+#: Simulated outcomes per target of the exact score of a plan (plan.json and compare alike).
+EXACT_OUTCOMES = 2048
 
 __all__ = [
     "ComparisonReport",
@@ -58,11 +62,13 @@ __all__ = [
     "cache_folder",
     "check_out_folder",
     "compare",
+    "curves_bytes",
     "demo_scenario_path",
     "exact_marginals",
     "fit_jobs",
     "fit_posteriors",
     "load",
+    "limit_note",
     "load_curves",
     "make_plan",
     "pack",
@@ -72,6 +78,7 @@ __all__ = [
     "run_grid",
     "run_strategy",
     "sampler_settings",
+    "search_limit",
     "save_curves",
     "scheduler_address",
     "uncovered_d",
@@ -111,19 +118,67 @@ class PlanResult:
     run: PreparedRun
 
 
-def run_strategy(run: PreparedRun, strategy: str, time_limit_s: float | None = None):
-    """Solve the run's problem with one strategy (``joint``, ``greedy`` or ``cadence``)."""
+def search_limit(scenario: Scenario, time_limit_s: float | None = None,
+                 work_limit: float | None = None, replan: bool = False):
+    """Return the joint search limit of a command: work, unless wall-clock time is asked for.
+
+    ``time_limit_s`` (``--time-limit``) asks for wall-clock mode, ``work_limit``
+    (``--work-limit``) for another work limit; without either, the scenario's
+    ``solver.time_limit_s`` (``replan_time_limit_s`` when re-planning) if it sets one, else its
+    ``solver.work_limit`` (``replan_work_limit``).
+
+    Returns
+    -------
+    planner.allocation.joint.SearchLimit
+
+    Raises
+    ------
+    PlanError
+        If both limits are given or one is not a positive number.
+    """
+    from planner.allocation.joint import SearchLimit
+
+    if time_limit_s is not None and work_limit is not None:
+        raise PlanError("give either --time-limit (wall clock) or --work-limit (reproducible), "
+                        "not both.")
+    for name, value in (("--time-limit", time_limit_s), ("--work-limit", work_limit)):
+        if value is not None and not (math.isfinite(value) and value > 0):
+            raise PlanError(f"{name} {value:g}: the solver limit must be a positive number.")
+    solver = scenario.solver
+    if work_limit is not None:
+        return SearchLimit(work=float(work_limit))
+    if time_limit_s is not None:
+        return SearchLimit(seconds=float(time_limit_s))
+    seconds = solver.replan_time_limit_s if replan else solver.time_limit_s
+    if seconds is not None:
+        return SearchLimit(seconds=float(seconds))
+    return SearchLimit(work=float(solver.replan_work_limit if replan else solver.work_limit))
+
+
+def _as_limit(scenario: Scenario, limit):
+    """Return a SearchLimit from a SearchLimit, wall-clock seconds or None (the default)."""
+    from planner.allocation.joint import SearchLimit
+
+    if isinstance(limit, SearchLimit):
+        return limit
+    return search_limit(scenario, time_limit_s=limit)
+
+
+def run_strategy(run: PreparedRun, strategy: str, time_limit_s=None):
+    """Solve the run's problem with one strategy (``joint``, ``greedy`` or ``cadence``).
+
+    ``time_limit_s`` is a :class:`planner.allocation.joint.SearchLimit`, a wall-clock limit in
+    seconds, or None for the scenario's default (:func:`search_limit`).
+    """
     from planner.allocation.cadence import cadence_plan
     from planner.allocation.greedy import greedy_plan
     from planner.allocation.joint import joint_plan
 
     solver = run.scenario.solver
     if strategy == "joint":
-        limit = solver.time_limit_s if time_limit_s is None else float(time_limit_s)
-        if not limit > 0:
-            raise PlanError(f"the solver time limit must be positive seconds, got {limit}.")
-        return joint_plan(run.problem, run.surrogate, time_limit_s=limit, seed=solver.seed,
-                          workers=solver.workers, focus_per_group=JOINT_FOCUS_PER_GROUP)
+        return joint_plan(run.problem, run.surrogate, limit=_as_limit(run.scenario, time_limit_s),
+                          seed=solver.seed, workers=solver.workers,
+                          focus_per_group=JOINT_FOCUS_PER_GROUP)
     if strategy == "greedy":
         return greedy_plan(run.problem, run.surrogate)
     if strategy == "cadence":
@@ -213,12 +268,16 @@ def require_room(run: PreparedRun) -> None:
 
 
 def make_plan(run: PreparedRun, strategy: str | None = None,
-              time_limit_s: float | None = None, notes=(), now_jd: float | None = None
-              ) -> PlanResult:
+              time_limit_s=None, notes=(), now_jd: float | None = None) -> PlanResult:
     """Plan the run with one strategy, pack it, verify it, score it exactly, build its file.
 
     ``now_jd`` (a re-plan at the telescope) marks the part of each night already past in the
     plan file, so the schedule counts it as executed or idle rather than lost.
+
+    ``time_limit_s`` is the joint search limit: a
+    :class:`planner.allocation.joint.SearchLimit`, a wall-clock limit in seconds, or None for
+    the scenario's default (:func:`search_limit`). The plan file records what reproduces the
+    plan (:func:`planner.workflow.provenance.plan_provenance`).
 
     Raises
     ------
@@ -227,10 +286,13 @@ def make_plan(run: PreparedRun, strategy: str | None = None,
         feasibility check.
     """
     from planner.allocation.verify import require_valid
+    from planner.workflow.fitting import posterior_keys
+    from planner.workflow.provenance import plan_provenance
 
     require_room(run)
     strategy = strategy or run.scenario.solver.strategy
-    packing = pack(run, run_strategy(run, strategy, time_limit_s))
+    limit = _as_limit(run.scenario, time_limit_s)
+    packing = pack(run, run_strategy(run, strategy, limit))
     run = dataclasses.replace(run, problem=packing.problem, surrogate=packing.surrogate)
     plan = packing.plan
     verification = verify(run, plan)
@@ -240,9 +302,23 @@ def make_plan(run: PreparedRun, strategy: str | None = None,
     status = [f"strategy {strategy}: {len(plan.visits)} exposures, status {plan.status}, "
               f"{plan.runtime_s:.1f} s; independent feasibility check passed "
               f"({verification.n_checked} exposures)."]
+    if strategy == "joint":
+        status.append(limit_note(limit))
+    provenance = plan_provenance(run.scenario, posterior_keys(run.scenario), strategy, limit,
+                                 focus_per_group=JOINT_FOCUS_PER_GROUP)
     plan_file = build_plan_file(run, plan, marginals, target_bits, total,
-                                notes=tuple(status) + tuple(notes), now_jd=now_jd)
+                                notes=tuple(status) + tuple(notes), now_jd=now_jd,
+                                provenance=provenance)
     return PlanResult(plan=plan, plan_file=plan_file, verification=verification, run=run)
+
+
+def limit_note(limit) -> str:
+    """Return one line: how the joint search was limited, whether a rerun gives the same plan."""
+    if limit.deterministic:
+        return (f"search limited by work ({limit.work:g} units of CP-SAT deterministic time): "
+                "the same inputs, seed and workers give the same plan.")
+    return (f"search limited by wall clock ({limit.seconds:g} s): the plan may differ between "
+            "runs; leave out --time-limit for a reproducible plan.")
 
 
 @dataclass(frozen=True)
@@ -255,11 +331,18 @@ class ComparisonReport:
         Rows per strategy (cadence, greedy, joint), per-target bits and the plans.
     text : str
         The printed table.
+    limit : planner.allocation.joint.SearchLimit
+        The joint search limit it was made with.
+    provenance : dict
+        What reproduces it (:func:`planner.workflow.provenance.plan_provenance` of the joint
+        strategy).
     """
 
     comparison: object
     text: str
     left_out: tuple = ()
+    limit: object = None
+    provenance: dict | None = None
 
     def document(self) -> dict:
         """Return the ``compare.json`` document: the comparison and the targets left out."""
@@ -268,23 +351,30 @@ class ComparisonReport:
         return {**self.comparison.document(), "left_out": [asdict(e) for e in self.left_out]}
 
 
-def compare(run: PreparedRun, time_limit_s: float | None = None) -> ComparisonReport:
+def compare(run: PreparedRun, time_limit_s=None) -> ComparisonReport:
     """Plan with cadence, greedy and joint, verify each and score them on the exact score.
 
     Greedy here is the same strategy as ``nightbits plan --strategy greedy`` (gains from the
-    surrogate), so a row of the table is the plan that command would print.
+    surrogate), so a row of the table is the plan that command would print; with the same
+    limit, the joint row is the plan ``nightbits plan`` makes, with the same exact bits
+    (each target's score has its own Monte Carlo stream of the solver seed).
+    ``time_limit_s`` is as in :func:`make_plan`.
     """
     from planner.allocation.compare import compare_strategies
+    from planner.information.streams import Streams
     from planner.workflow.accounting import left_out
+    from planner.workflow.fitting import posterior_keys
+    from planner.workflow.provenance import plan_provenance
     from planner.workflow.report import left_out_lines
 
     require_room(run)
     solver = run.scenario.solver
-    limit = solver.time_limit_s if time_limit_s is None else float(time_limit_s)
+    limit = _as_limit(run.scenario, time_limit_s)
     comparison = compare_strategies(
         run.problem, run.surrogate, run.predictors, rng=np.random.default_rng(solver.seed),
-        time_limit_s=limit, seed=solver.seed, workers=solver.workers, exact_greedy=False,
-        focus_per_group=JOINT_FOCUS_PER_GROUP, pack=lambda plan: pack(run, plan),
+        limit=limit, seed=solver.seed, workers=solver.workers, exact_greedy=False,
+        focus_per_group=JOINT_FOCUS_PER_GROUP, streams=Streams(solver.seed),
+        n_outcomes=EXACT_OUTCOMES, pack=lambda plan: pack(run, plan),
         verify=lambda plan: verify(run, plan))
     excluded = left_out(run)
     lines = left_out_lines(excluded)
@@ -302,5 +392,8 @@ def compare(run: PreparedRun, time_limit_s: float | None = None) -> ComparisonRe
         lines.append(f"joint against {name}: {bits['joint'] - base:+.2f} bits{share}")
     lines.append("exact bits: per target the joint expected information of all its visits")
     lines.append("(not a sum of single visits), weighted and summed over targets.")
+    lines.append(limit_note(limit))
+    provenance = plan_provenance(run.scenario, posterior_keys(run.scenario), "joint", limit,
+                                 focus_per_group=JOINT_FOCUS_PER_GROUP)
     return ComparisonReport(comparison=comparison, text="\n".join(lines) + "\n",
-                            left_out=excluded)
+                            left_out=excluded, limit=limit, provenance=provenance)

@@ -25,7 +25,9 @@ def exact_marginals(run: PreparedRun, plan, n_outcomes: int = 2048):
     (:func:`planner.allocation.score.score_plan`). Where executed visits without velocities precede
     them,
     the chain starts after those visits, so the new visits add up to ``I(new | executed)``.
-    Values are multiplied by the target's weight.
+    Values are multiplied by the target's weight. Each target's outcomes come from its own
+    streams of the solver seed (:class:`planner.information.streams.Streams`), so the values
+    are the same on every run, whatever the other targets' visits.
 
     Returns
     -------
@@ -36,11 +38,12 @@ def exact_marginals(run: PreparedRun, plan, n_outcomes: int = 2048):
     """
     from planner.allocation.score import score_plan
     from planner.information.gain import joint_bits
+    from planner.information.streams import Streams
     from planner.workflow.outputs import parse_utc
 
     problem, scenario = run.problem, run.scenario
-    rng = np.random.default_rng(scenario.solver.seed)
-    score = score_plan(plan, problem, run.predictors, rng=rng, n_outcomes=n_outcomes)
+    streams = Streams(scenario.solver.seed)
+    score = score_plan(plan, problem, run.predictors, streams=streams, n_outcomes=n_outcomes)
     marginals = np.zeros(len(plan.visits))
     target_bits = {}
     for s, target in enumerate(scenario.targets):
@@ -58,6 +61,7 @@ def exact_marginals(run: PreparedRun, plan, n_outcomes: int = 2048):
                                         pending, parse_utc)
             pred, sig = np.hstack([p0, pred]), np.hstack([s0, sig])
         first, last = len(pending), pred.shape[1]
+        rng = streams.star("marginals", target.id)
         prefix = [joint_bits(pred[:, :j], sig[:, :j], rng, n_outcomes).bits
                   for j in range(first, last + (1 if pending else 0))]
         if not pending:
@@ -118,12 +122,13 @@ def _idle_by_night(run: PreparedRun, plan, idle_gaps) -> dict:
 
 
 def build_plan_file(run: PreparedRun, plan, marginals, target_bits, total_bits, notes=(),
-                    now_jd=None):
+                    now_jd=None, provenance=None):
     """Turn a plan into the plan file, with the exact pointing at start and end.
 
     The record is :class:`planner.workflow.outputs.PlanFile`; each night carries its idle
     stretches with their reasons (:func:`planner.allocation.idle.idle_gaps`, on the planned
-    part of the night) and, after a re-plan at ``now_jd``, the part already past.
+    part of the night) and, after a re-plan at ``now_jd``, the part already past;
+    ``provenance`` is what reproduces it (:func:`planner.workflow.provenance.plan_provenance`).
     """
     from planner.allocation.idle import idle_gaps
     from planner.sky.tracks import pointing_at
@@ -180,4 +185,5 @@ def build_plan_file(run: PreparedRun, plan, marginals, target_bits, total_bits, 
         moon_table=tuple(tuple(map(float, r)) for r in run.moon_table),
         target_bits=per_target, nights=nights, visits=tuple(all_visits), notes=tuple(notes),
         objective_bits=round(float(plan.objective), 5), left_out=left_out(run),
-        target_summary=account_targets(run, plan, marginals, target_bits))
+        target_summary=account_targets(run, plan, marginals, target_bits),
+        provenance=provenance)

@@ -19,6 +19,7 @@ from planner.workflow.outputs import atomic_write_bytes
 
 __all__ = [
     "airmass_altitude_deg",
+    "check_plot_path",
     "comparison_figure",
     "curves_figure",
     "jd_to_datetime64",
@@ -27,7 +28,11 @@ __all__ = [
     "plot_comparison",
     "plot_curves",
     "plot_nights",
+    "require_matplotlib",
 ]
+
+#: Figure formats by file suffix.
+PLOT_FORMATS = ("png", "pdf", "svg")
 
 
 def new_figure(**kwargs):
@@ -46,11 +51,46 @@ def new_figure(**kwargs):
     return Figure(**kwargs)
 
 
+def _format(path: Path) -> str:
+    suffix = path.suffix.lower().lstrip(".") or "png"
+    if suffix not in PLOT_FORMATS:
+        raise PlanError(f"--plot {path}: use a .png, .pdf or .svg file name.")
+    return suffix
+
+
+def require_matplotlib(option: str = "--plot") -> None:
+    """Fail at once, before any work, if matplotlib cannot be imported."""
+    import importlib.util
+
+    if importlib.util.find_spec("matplotlib") is None:
+        raise PlanError("plots need matplotlib; install it with `pip install "
+                        f"nightbits[plot]` or leave out {option}.")
+
+
+def check_plot_path(path: str | Path, option: str = "--plot") -> None:
+    """Fail at once, before any work, if a figure could not be written to ``path``.
+
+    Raises
+    ------
+    PlanError
+        If matplotlib is missing, the suffix is not .png, .pdf or .svg, ``path`` is a folder,
+        or its folder does not exist.
+    """
+    path = Path(path)
+    require_matplotlib(option)
+    _format(path)
+    if path.is_dir():
+        raise PlanError(f"{option} {path}: that is a folder; give a file name such as "
+                        f"{path / 'plot.png'}.")
+    parent = path.parent if str(path.parent) else Path(".")
+    if not parent.is_dir():
+        raise PlanError(f"{option} {path}: the folder {parent} does not exist; create it or "
+                        "choose another file.")
+
+
 def _save(fig, path: str | Path) -> Path:
     path = Path(path)
-    suffix = path.suffix.lower().lstrip(".") or "png"
-    if suffix not in ("png", "pdf", "svg"):
-        raise PlanError(f"--plot {path}: use a .png, .pdf or .svg file name.")
+    suffix = _format(path)
     buffer = io.BytesIO()
     fig.savefig(buffer, format=suffix, dpi=110)
     atomic_write_bytes(path, buffer.getvalue())

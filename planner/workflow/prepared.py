@@ -118,7 +118,8 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
         command line's ``--strict``); by default such targets are left out, listed in
         ``PreparedRun.excluded`` with the limit that keeps them out.
     seed : int, optional
-        Seed of the simulated outcomes behind conditional values (default: the solver seed).
+        Seed of the Monte Carlo streams behind conditional values and the surrogate
+        (:class:`planner.information.streams.Streams`; default: the solver seed).
     jobs : int, optional
         Worker processes for the information curves (None: every core; 1: this process).
     reuse : dict, optional
@@ -134,6 +135,7 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
     from planner.allocation.rules import TargetRules
     from planner.allocation.surrogate import build_surrogate
     from planner.information.predict import Predictor
+    from planner.information.streams import Streams
     from planner.sky.exposure import grid_sigma
     from planner.sky.observability import Constraints, observable_starts
     from planner.sky.tracks import compute_sky
@@ -159,10 +161,10 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
     sigma = np.moveaxis(grid_sigma(instrument, sky, v_mag, exposures), 1, 0)
     predictors = tuple(Predictor.from_posterior(posteriors[t.id], scenario.instrument.name)
                        for t in targets)
-    rng = np.random.default_rng(scenario.solver.seed if seed is None else seed)
+    streams = Streams(scenario.solver.seed if seed is None else seed)
     saved = reusable_curves(reuse, scenario, sky, exposures, observable, posteriors)
-    bits = _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, done, rng,
-                 jobs, saved)
+    bits = _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, done,
+                 streams, jobs, saved)
     rules = tuple(TargetRules(
         min_visits=t.min_visits, max_visits=t.max_visits, max_per_night=t.max_visits_per_night,
         min_spacing_min=int(round(t.min_gap_h * 60.0)), weight=t.weight,
@@ -180,9 +182,7 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
         slew=mount_slew(mount),
         overhead_s=mount.overhead_s(), default_option=exposures.index(default),
         keep_per_night=CANDIDATE_STARTS, thin_spacing_min=CANDIDATE_SPACING_MIN)
-    surrogate_rng = np.random.default_rng(
-        np.random.SeedSequence(scenario.solver.seed if seed is None else seed).spawn(1)[0])
-    surrogate = build_surrogate(problem, predictors, rng=surrogate_rng)
+    surrogate = build_surrogate(problem, predictors, streams=streams)
     log.info("prepared %d targets, %d nights, %d candidate visits", len(targets), len(aligned),
              problem.n_candidates)
     return PreparedRun(scenario=scenario, site=site, nights=nights, aligned=aligned, sky=sky,
@@ -221,7 +221,7 @@ def _curve_bits(args) -> np.ndarray:
 
 
 def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, done,
-          rng, jobs=None, saved=None) -> np.ndarray:
+          streams, jobs=None, saved=None) -> np.ndarray:
     """One-visit expected bits on the sky grid, conditional on executed visits without data.
 
     The unconditional curves of the targets are independent and computed in ``jobs`` worker
@@ -257,6 +257,7 @@ def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, d
             continue
         predictor = predictors[s]
         jitter2 = predictor.jitter[:, None] ** 2
+        rng = streams.star("conditional", target.id)
         for o, e in enumerate(exposures):
             cols = np.flatnonzero(observable[o, s])
             if cols.size == 0:

@@ -187,6 +187,12 @@ def _lost_items(old: PlanFile, lost) -> tuple[list, list]:
             if b <= a:
                 raise PlanError(f"--lost {text}: the interval ends before it starts; give "
                                 "START/END with the start first.")
+            if not any(a < parse_utc(n.sunrise_utc) and b > parse_utc(n.sunset_utc)
+                       for n in old.nights):
+                raise PlanError(f"--lost {text}: the interval overlaps no night of this plan "
+                                f"({old.nights[0].sunset_utc} to {old.nights[-1].sunrise_utc}, "
+                                "UTC), so it would change nothing; check the date and the UTC "
+                                "time.")
             spans.append((a, b))
             labels.append(f"{format_utc(a)} to {format_utc(b)}")
         elif text in nights:
@@ -208,11 +214,7 @@ def _in_lost(visit: ScheduledVisit, spans) -> bool:
 
 
 def _done_rows(path: Path, old: PlanFile) -> list[ScheduledVisit]:
-    try:
-        with path.open(newline="", encoding="utf-8") as handle:
-            rows = list(csv.DictReader(handle))
-    except OSError as exc:
-        raise PlanError(f"--done {path}: cannot be read ({exc.strerror or exc}).") from None
+    rows = _csv_rows(path, "--done")
     if rows and not {"target", "start_utc"} <= set(rows[0]):
         raise PlanError(f"--done {path}: needs the columns target and start_utc (copy the rows "
                         "of plan.csv that were observed).")
@@ -237,14 +239,10 @@ def read_new_velocities(path: str | Path, scenario) -> dict:
     PlanError
         If the file is unreadable, lacks a column, or names an unknown target.
     """
-    from inference.data import RVData
+    from inference.data import RVData, check_bjd
 
     path = Path(path)
-    try:
-        with path.open(newline="", encoding="utf-8") as handle:
-            rows = list(csv.DictReader(handle))
-    except OSError as exc:
-        raise PlanError(f"--rvs {path}: cannot be read ({exc.strerror or exc}).") from None
+    rows = _csv_rows(path, "--rvs")
     need = {"target", "time", "rv", "rv_err"}
     if not rows or not need <= set(rows[0]):
         raise PlanError(f"--rvs {path}: needs a header with the columns target, time (BJD_TDB), "
@@ -262,10 +260,66 @@ def read_new_velocities(path: str | Path, scenario) -> dict:
     data = {}
     for target, items in groups.items():
         time, rv, err, inst = zip(*items, strict=True)
+        check_bjd(np.array(time), lambda i, t=target, n=groups[target]: (
+            f"--rvs {path} ({t}, row {i + 1})"))
         data[target] = RVData.from_arrays(np.array(time), np.array(rv), np.array(err),
                                           np.array(inst, dtype=object),
                                           source=f"{path} ({target})")
     return data
+
+
+def _csv_rows(path: Path, option: str) -> list:
+    """Return the rows of a CSV given on the command line (UTF-8, a byte-order mark allowed)."""
+    try:
+        with path.open(newline="", encoding="utf-8-sig") as handle:
+            return list(csv.DictReader(handle))
+    except OSError as exc:
+        raise PlanError(f"{option} {path}: cannot be read ({exc.strerror or exc}).") from None
+    except UnicodeDecodeError:
+        raise PlanError(f"{option} {path}: is not UTF-8 text; save it as a plain UTF-8 CSV "
+                        "file.") from None
+
+
+#: A new velocity further than this many standard deviations from its posterior prediction
+#: (the prediction's spread, the measurement error and the jitter added in quadrature) is
+#: refused as a unit or zero-point mistake. A Gaussian tail past 20 sigma has a probability
+#: below 1e-80 (scipy.stats.norm.sf(20) = 2.8e-89), so no real measurement of a model that
+#: fits is refused.
+OUTLIER_SIGMA = 20.0
+
+
+def check_new_velocities(posteriors: dict, new_data: dict) -> None:
+    """Refuse a new velocity that its target's posterior puts out of all reach.
+
+    Raises
+    ------
+    PlanError
+        Naming the file, the target, the time and how far off it is, for the first velocity
+        more than :data:`OUTLIER_SIGMA` standard deviations from its prediction. Velocities of
+        an instrument the posterior does not know are not checked (their offset is unknown).
+    """
+    from planner.information.predict import Predictor
+
+    for target, data in new_data.items():
+        posterior = posteriors[target]
+        for name in data.instruments:
+            if f"offset_{name}" not in posterior.names:
+                continue
+            rows = np.flatnonzero(data.instrument == name)
+            predictor = Predictor.from_posterior(posterior, name)
+            predicted, jitter = predictor.velocities(data.time[rows]), predictor.jitter
+            centre = predicted.mean(axis=0)
+            spread = np.sqrt(predicted.var(axis=0) + data.rv_err[rows] ** 2
+                             + np.mean(jitter ** 2))
+            z = np.abs(data.rv[rows] - centre) / spread
+            if np.any(z > OUTLIER_SIGMA):
+                k = int(np.argmax(z))
+                raise PlanError(
+                    f"--rvs {data.source}: the velocity {data.rv[rows][k]:g} m/s at BJD "
+                    f"{data.time[rows][k]:.5f} is {z[k]:.0f} standard deviations from the "
+                    f"{centre[k]:.1f} +- {spread[k]:.1f} m/s its orbit predicts; check its units "
+                    "(m/s) and its zero point (the RV file's instrument offset), or leave the "
+                    "row out.")
 
 
 def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=(),
@@ -280,6 +334,10 @@ def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=
     """
     spans, labels = _lost_items(old, lost)
     now_jd = None if now is None else parse_utc(now, "--now")
+    if now_jd is not None and now_jd < parse_utc(old.nights[0].sunset_utc):
+        raise PlanError(f"--now {now}: {format_utc(now_jd)} is before the run's first sunset "
+                        f"({old.nights[0].sunset_utc}), so nothing can have been executed; "
+                        "check the date, or leave out --now.")
     done = [v for v in old.visits if v.status != "planned"]
     if done_file:
         done += _done_rows(Path(done_file), old)
@@ -327,32 +385,38 @@ def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
         Curves saved with the old plan (:func:`planner.workflow.pipeline.load_curves`), reused for
         the
         targets they still describe.
-    time_limit_s : float, optional
-        Solver limit (default: the scenario's ``solver.replan_time_limit_s``, shorter than the
-        planning limit because observers re-plan at the telescope).
+    time_limit_s : float or planner.allocation.joint.SearchLimit, optional
+        Solver limit: wall-clock seconds or a SearchLimit (default: the scenario's re-plan
+        limit, :func:`planner.workflow.pipeline.search_limit` with ``replan=True``, shorter
+        than the planning limit because observers re-plan at the telescope).
 
     Returns
     -------
     ReplanResult
     """
     from inference.data import read_rv_csv
+    from planner.information.streams import Streams
     from planner.information.update import update_posterior
     from planner.workflow import pipeline
 
-    rng = np.random.default_rng(scenario.solver.seed)
+    check_new_velocities(posteriors, request.new_data)
+    streams = Streams(scenario.solver.seed)
     posteriors, updates = dict(posteriors), {}
     for target_id, data in request.new_data.items():
         target = scenario.target(target_id)
-        update = update_posterior(posteriors[target_id], read_rv_csv(target.rv_file), data, rng,
+        update = update_posterior(posteriors[target_id], read_rv_csv(target.rv_file), data,
+                                  streams.star("update", target_id),
                                   settings=pipeline.sampler_settings(scenario))
         posteriors[target_id], updates[target_id] = update.posterior, update
     done = tuple(dataclasses.replace(v, status="measured") if v.target in request.new_data
                  else v for v in request.done)
     run = pipeline.prepare(scenario, posteriors, lost_jd=request.lost_jd, done=done,
                            strict=False, reuse=reuse)
-    limit = scenario.solver.replan_time_limit_s if time_limit_s is None else time_limit_s
+    limit = (pipeline.search_limit(scenario, replan=True) if time_limit_s is None
+             else time_limit_s)
     result = pipeline.make_plan(run, strategy or old.strategy, limit, now_jd=request.now_jd)
     changes = describe_changes(old, result.plan_file, request, updates)
+    changes += settings_note(old, result.plan_file)
     return ReplanResult(plan_file=result.plan_file, changes=changes, plan=result.plan, run=run,
                         updates=updates)
 
@@ -387,3 +451,15 @@ def describe_changes(old: PlanFile, new: PlanFile, request: ReplanRequest, updat
     if rows:
         lines += ["changed targets:", header, *rows]
     return "\n".join(lines) + "\n"
+
+
+def settings_note(old: PlanFile, new: PlanFile) -> str:
+    """Return a line naming what differs between the old and the new plan's settings and inputs.
+
+    The limits are left out (a re-plan uses its own, shorter one on purpose), and so are the
+    posteriors of targets with new velocities. Empty when nothing else differs.
+    """
+    from planner.workflow.provenance import other_settings_note
+
+    return other_settings_note("the old plan", old.provenance, new.provenance,
+                               skip=("work limit", "wall-clock limit [s]", "posteriors"))

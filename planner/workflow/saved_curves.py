@@ -15,18 +15,16 @@ import numpy as np
 if TYPE_CHECKING:
     from planner.workflow.prepared import PreparedRun
 
-__all__ = ["load_curves", "reusable_curves", "save_curves"]
+__all__ = ["curves_bytes", "load_curves", "reusable_curves", "save_curves"]
 
 
 def _posterior_key(posterior) -> str:
     return f"{posterior.data_digest}:{posterior.seed}:{posterior.samples.shape[0]}"
 
 
-def save_curves(run: PreparedRun, path: str | Path) -> None:
-    """Keep a run's one-visit bits beside its plan (atomic ``curves.npz``) for re-planning."""
+def curves_bytes(run: PreparedRun) -> bytes:
+    """Return the ``curves.npz`` content of a run: its one-visit bits, for re-planning."""
     import io
-
-    from planner.workflow.outputs import atomic_write_bytes
 
     buffer = io.BytesIO()
     np.savez_compressed(
@@ -34,7 +32,14 @@ def save_curves(run: PreparedRun, path: str | Path) -> None:
         targets=np.array([t.id for t in run.scenario.targets]),
         keys=np.array([_posterior_key(run.posteriors[t.id]) for t in run.scenario.targets]),
         observable=run.observable, bits=run.bits)
-    atomic_write_bytes(path, buffer.getvalue())
+    return buffer.getvalue()
+
+
+def save_curves(run: PreparedRun, path: str | Path) -> None:
+    """Keep a run's one-visit bits beside its plan (atomic ``curves.npz``) for re-planning."""
+    from planner.workflow.outputs import atomic_write_bytes
+
+    atomic_write_bytes(path, curves_bytes(run))
 
 
 def load_curves(path: str | Path) -> dict | None:

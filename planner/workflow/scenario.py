@@ -3,9 +3,10 @@
 A scenario names the site, the telescope and instrument, the run's nights, the observing limits,
 the targets with their past-velocity files, and the settings of the sampler and the solver.
 Every section has defaults except ``site``, ``run`` and ``targets``. The file is read with
-``yaml.safe_load`` only; every value is checked against the schema below, and a problem is
-reported as one :class:`~planner.errors.ScenarioError` sentence naming the file, the key path
-(for example ``targets[3].v_mag``), what was expected, and a did-you-mean for misspelt keys.
+the safe YAML loader only (a key named twice in one mapping is refused); every value is checked
+against the schema below, and a problem is reported as one
+:class:`~planner.errors.ScenarioError` sentence naming the file, the key path (for example
+``targets[3].v_mag``), what was expected, and a did-you-mean for misspelt keys.
 Relative paths (RV files, the cache folder) are taken relative to the scenario file.
 
 The complete reference, with a commented example, is ``docs/scenario.md``.
@@ -155,13 +156,24 @@ class SamplerConfig:
     max_period_d: float = _spec("float", 5000.0, lo=0.02, hi=1e7, what="longest period [d]")
 
 
+#: Default search work of a plan and of a re-plan, in CP-SAT deterministic time units,
+#: calibrated on the demo so that a quiet 2-core machine takes about the former wall-clock
+#: limits (25 s and 8 s of search; docs/decisions.md).
+WORK_LIMIT, REPLAN_WORK_LIMIT = 24.0, 8.0
+
+
 @dataclass(frozen=True)
 class SolverConfig:
     """Settings of the allocation (CP-SAT) solver."""
 
-    time_limit_s: float = _spec("float", 25.0, lo=0.1, hi=86400.0, what="wall-clock limit [s]")
-    replan_time_limit_s: float = _spec("float", 8.0, lo=0.1, hi=86400.0,
-                                       what="limit when re-planning at the telescope [s]")
+    work_limit: float = _spec("float", WORK_LIMIT, lo=0.01, hi=1e6,
+                              what="search work, CP-SAT deterministic time (reproducible)")
+    replan_work_limit: float = _spec("float", REPLAN_WORK_LIMIT, lo=0.01, hi=1e6,
+                                     what="search work when re-planning at the telescope")
+    time_limit_s: float | None = _spec("optfloat", None, lo=0.1, hi=86400.0,
+                                       what="wall-clock limit [s] instead of the work limit")
+    replan_time_limit_s: float | None = _spec("optfloat", None, lo=0.1, hi=86400.0,
+                                              what="wall-clock limit when re-planning [s]")
     seed: int = _spec("int", 0, lo=0, hi=2**31 - 1, what="solver seed")
     workers: int = _spec("int", 2, lo=1, hi=64, what="search workers")
     strategy: str = _spec("choice:joint,greedy,cadence", "joint", what="default strategy")
@@ -297,10 +309,51 @@ def parse_scenario(text: str, path: str | Path) -> Scenario:
         raise ScenarioError(" ".join(str(exc).split())) from None
 
 
+class _UniqueKeyLoader(yaml.SafeLoader):
+    """The safe loader, refusing a mapping that names one key twice (YAML 1.2 forbids it)."""
+
+    def construct_mapping(self, node, deep=False):
+        seen = {}
+        for key_node, _ in node.value:
+            key = self.construct_object(key_node, deep=True)
+            try:
+                first = seen.setdefault(key, key_node.start_mark.line + 1)
+            except TypeError:  # an unhashable key: the safe loader's own error follows
+                continue
+            if first != key_node.start_mark.line + 1:
+                raise ScenarioError(
+                    f"the key {key!r} appears twice, at lines {first} and "
+                    f"{key_node.start_mark.line + 1}; keep one of them (YAML keeps only the "
+                    "last, silently).")
+        return super().construct_mapping(node, deep=deep)
+
+
+#: Largest gap allowed between a site's UTC offset and its longitude / 15 deg per hour [h].
+#: Civil time zones stray from solar time by up to about 3.5 h (common practice: western
+#: China on UTC+8); a larger gap is a zone from the other side of the world.
+ZONE_SLACK_H = 5.0
+
+
+def _check_zone_fits_longitude(site, first_night: str, where: str) -> None:
+    """Refuse a time zone whose UTC offset is hours away from the site's solar time."""
+    moment = _dt.datetime.fromisoformat(first_night).replace(hour=21)
+    offset = moment.replace(tzinfo=ZoneInfo(site.timezone)).utcoffset().total_seconds() / 3600
+    solar = site.longitude_deg / 15.0
+    gap = (offset - solar + 12.0) % 24.0 - 12.0  # across the date line, the short way round
+    if abs(gap) > ZONE_SLACK_H:
+        raise ScenarioError(
+            f"{where}: site.timezone: {site.timezone!r} is UTC{offset:+g} h on the first night, "
+            f"{abs(gap):.1f} h from the solar time of longitude {site.longitude_deg:g} deg "
+            f"(UTC{solar:+.1f} h); give the site's own IANA zone, or check the sign of "
+            "longitude_deg (east is positive).")
+
+
 def _parse(text: str, path: Path) -> Scenario:
     where = path.name
     try:
-        raw = yaml.safe_load(text)
+        raw = yaml.load(text, Loader=_UniqueKeyLoader)  # noqa: S506 - a SafeLoader subclass
+    except ScenarioError as exc:
+        raise ScenarioError(f"{where}: {exc}") from None
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         line = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
@@ -342,6 +395,7 @@ def _parse(text: str, path: Path) -> Scenario:
     if site.min_altitude_deg >= site.max_altitude_deg:
         raise ScenarioError(f"{where}: site.min_altitude_deg ({site.min_altitude_deg}) must be "
                             f"below site.max_altitude_deg ({site.max_altitude_deg}).")
+    _check_zone_fits_longitude(site, sections["run"].first_night, where)
     if sampler.min_period_d >= sampler.max_period_d:
         raise ScenarioError(f"{where}: sampler.min_period_d ({sampler.min_period_d}) must be "
                             f"below sampler.max_period_d ({sampler.max_period_d}).")
@@ -446,8 +500,14 @@ def _coerce(kind: str, value: Any, where: str, key_path: str, meta: dict, base: 
         items = [value] if isinstance(value, int | float) and not isinstance(value, bool) else value
         if not isinstance(items, list):
             raise bad()
-        numbers = sorted({_number(v, meta, bad, integer=False) for v in items})
-        return tuple(numbers)
+        numbers = set()
+        for i, item in enumerate(items):
+            def bad_item(note: str = "", i=i, item=item) -> ScenarioError:
+                return ScenarioError(f"{where}: {key_path}[{i}]: expected "
+                                     f"{_expected(meta, 'float')}, got {_describe(item)}{note}.")
+
+            numbers.add(_number(item, meta, bad_item, integer=False))
+        return tuple(sorted(numbers))
     if kind.startswith("choice:"):
         choices = kind.split(":", 1)[1].split(",")
         if not isinstance(value, str) or value not in choices:
