@@ -88,7 +88,7 @@ def test_an_interrupt_between_the_renames_still_completes_the_new_set(old_plan, 
     assert result.stderr.strip().splitlines()[-1] == (
         f"nightbits plan: interrupted; only the new plan in {out} had been written.")
     names = sorted(p.name for p in out.iterdir())
-    assert names == ["curves.npz", "plan.csv", "plan.json"]
+    assert names == ["curves.npz", "plan.csv", "plan.ecsv", "plan.json"]
     plan = json.loads((out / "plan.json").read_text())
     assert plan["provenance"]["solver"]["work_limit"] == 2.0  # the new plan.json ...
     rows = (out / "plan.csv").read_text().strip().splitlines()[1:]
@@ -105,7 +105,8 @@ def test_stale_temporaries_of_a_killed_writer_are_removed(old_plan, tmp_path):
                              str(out), "--force"], cwd=ROOT, env=env, capture_output=True,
                             text=True, timeout=600)
     assert result.returncode == 0, result.stderr
-    assert sorted(p.name for p in out.iterdir()) == ["curves.npz", "plan.csv", "plan.json"]
+    names = sorted(p.name for p in out.iterdir())
+    assert names == ["curves.npz", "plan.csv", "plan.ecsv", "plan.json"]
 
 
 def test_a_second_writer_into_a_locked_folder_is_refused(old_plan, tmp_path, capsys):
