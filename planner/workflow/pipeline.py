@@ -102,24 +102,47 @@ class PlanResult:
     run: PreparedRun
 
 
-def run_strategy(run: PreparedRun, strategy: str, time_limit_s: float | None = None):
-    """Solve the run's problem with one strategy (``joint``, ``greedy`` or ``cadence``)."""
+def run_strategy(run: PreparedRun, strategy: str, time_limit_s: float | None = None,
+                 candidates=None):
+    """Solve the run's problem with one strategy (``joint``, ``greedy`` or ``cadence``).
+
+    ``candidates`` (indices into ``run.problem``) restricts the search to those candidate
+    visits, for the re-plan at the telescope (:func:`planner.workflow.replan.focus_candidates`);
+    the returned plan indexes the whole problem, and it has no bound, since the solver's bound
+    would hold for the restricted problem only.
+    """
     from planner.allocation.cadence import cadence_plan
     from planner.allocation.greedy import greedy_plan
-    from planner.allocation.joint import joint_plan
+    from planner.allocation.joint import FOCUS_GAP_LIMIT, joint_plan
+    from planner.allocation.plan import assemble_plan
 
     solver = run.scenario.solver
+    if strategy not in ("joint", "greedy", "cadence"):
+        raise PlanError(f"unknown strategy {strategy!r}; use joint, greedy or cadence.")
+    limit = solver.time_limit_s if time_limit_s is None else float(time_limit_s)
+    if strategy == "joint" and not limit > 0:
+        raise PlanError(f"the solver time limit must be positive seconds, got {limit}.")
+    problem, surrogate = run.problem, run.surrogate
+    keep = None
+    if candidates is not None:
+        keep = np.unique(np.asarray(candidates, dtype=np.int64))
+        problem, surrogate = problem.subset(keep), surrogate.subset(keep)
     if strategy == "joint":
-        limit = solver.time_limit_s if time_limit_s is None else float(time_limit_s)
-        if not limit > 0:
-            raise PlanError(f"the solver time limit must be positive seconds, got {limit}.")
-        return joint_plan(run.problem, run.surrogate, time_limit_s=limit, seed=solver.seed,
-                          workers=solver.workers, focus_per_group=JOINT_FOCUS_PER_GROUP)
-    if strategy == "greedy":
-        return greedy_plan(run.problem, run.surrogate)
-    if strategy == "cadence":
-        return cadence_plan(run.problem, run.surrogate)
-    raise PlanError(f"unknown strategy {strategy!r}; use joint, greedy or cadence.")
+        focus = JOINT_FOCUS_PER_GROUP if keep is None else None
+        plan = joint_plan(problem, surrogate, time_limit_s=limit, seed=solver.seed,
+                          workers=solver.workers, focus_per_group=focus,
+                          gap_limit=0.0 if keep is None else FOCUS_GAP_LIMIT)
+    elif strategy == "greedy":
+        plan = greedy_plan(problem, surrogate)
+    else:
+        plan = cadence_plan(problem, surrogate)
+    if keep is None:
+        return plan
+    return assemble_plan(
+        run.problem, keep[plan.candidates], strategy=plan.strategy, objective=plan.objective,
+        marginal_bits=[v.bits for v in plan.visits], bound=None, status=plan.status,
+        runtime_s=plan.runtime_s, seed=plan.seed,
+        stats=plan.stats + (("restricted_candidates", float(keep.size)),))
 
 
 def verify(run: PreparedRun, plan):
@@ -168,8 +191,11 @@ def require_room(run: PreparedRun) -> None:
 
 
 def make_plan(run: PreparedRun, strategy: str | None = None,
-              time_limit_s: float | None = None, notes=()) -> PlanResult:
+              time_limit_s: float | None = None, notes=(), candidates=None) -> PlanResult:
     """Plan the run with one strategy, verify it, score it exactly and build its plan file.
+
+    ``candidates`` restricts the strategy to those candidate visits (see :func:`run_strategy`);
+    the plan is still verified and scored on the whole run.
 
     Raises
     ------
@@ -181,7 +207,7 @@ def make_plan(run: PreparedRun, strategy: str | None = None,
 
     require_room(run)
     strategy = strategy or run.scenario.solver.strategy
-    plan = run_strategy(run, strategy, time_limit_s)
+    plan = run_strategy(run, strategy, time_limit_s, candidates=candidates)
     verification = verify(run, plan)
     require_valid(verification)
     marginals, target_bits = exact_marginals(run, plan)

@@ -58,14 +58,19 @@ class PreparedRun:
     exposures : tuple of float
         The exposure options of the run [s] (union of every target's).
     observable, bits, sigma : ndarray, shape (n_options, n_targets, n_sky)
-        On the sky grid: observable starts, one-visit expected bits (conditional on executed
-        visits without velocities), measurement noise [m/s].
+        On the sky grid: observable starts, one-visit expected bits (given executed visits
+        without velocities, by the linear-Gaussian share, :mod:`planner.information.pending`),
+        measurement noise [m/s].
     problem : planner.allocation.problem.Problem
     surrogate : planner.allocation.surrogate.Surrogate
     lost_jd : tuple of (float, float)
         Time given up (JD UTC pairs).
     done : tuple of planner.workflow.outputs.ScheduledVisit
         Executed visits kept from an earlier plan.
+    exact_bits : ndarray, shape (n_options, n_targets, n_sky), optional
+        The exact one-visit bits ignoring executed visits (``bits`` before their share is
+        taken off; what :func:`planner.workflow.saved_curves.save_curves` keeps). None: as
+        ``bits``.
     """
 
     scenario: Scenario
@@ -88,6 +93,7 @@ class PreparedRun:
     surrogate: object
     lost_jd: tuple = ()
     done: tuple = ()
+    exact_bits: np.ndarray | None = None
 
 
 def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict: bool = True,
@@ -152,8 +158,8 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
                        for t in targets)
     rng = np.random.default_rng(scenario.solver.seed if seed is None else seed)
     saved = reusable_curves(reuse, scenario, sky, exposures, observable, posteriors)
-    bits = _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, done, rng,
-                 jobs, saved)
+    bits, exact_bits = _bits(scenario, sky, instrument, predictors, exposures, observable, sigma,
+                             done, rng, jobs, saved)
     rules = tuple(TargetRules(
         min_visits=t.min_visits, max_visits=t.max_visits, max_per_night=t.max_visits_per_night,
         min_spacing_min=int(round(t.min_gap_h * 60.0)), weight=t.weight,
@@ -181,7 +187,7 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
                        instrument=instrument, mount=mount, posteriors=dict(posteriors),
                        predictors=predictors, exposures=exposures, observable=observable,
                        bits=bits, sigma=sigma, problem=problem, surrogate=surrogate,
-                       lost_jd=tuple(lost_jd), done=tuple(done))
+                       lost_jd=tuple(lost_jd), done=tuple(done), exact_bits=exact_bits)
 
 
 def _check_observable(scenario, sky, constraints, observable) -> None:
@@ -208,16 +214,21 @@ def _curve_bits(args) -> np.ndarray:
 
 def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, done,
           rng, jobs=None, saved=None) -> np.ndarray:
-    """One-visit expected bits on the sky grid, conditional on executed visits without data.
+    """One-visit expected bits on the sky grid, given executed visits without data.
 
-    The unconditional curves of the targets are independent and computed in ``jobs`` worker
-    processes (None: every core).
+    The exact curves of the targets are independent and computed in ``jobs`` worker processes
+    (None: every core), or taken from ``saved``. For a target with executed visits whose
+    velocities are not yet in its posterior, the curve is scaled by the linear-Gaussian share
+    of it those visits leave (:mod:`planner.information.pending`): measured on the demo, the
+    exact Monte Carlo conditional curves took 240 s of a 270 s re-plan (docs/decisions.md).
+    ``rng`` is kept for callers; the scaling draws nothing.
     """
     from concurrent.futures import ProcessPoolExecutor
 
-    from planner.information.gain import conditional_bits
+    from planner.information.pending import pending_bits
     from planner.workflow.outputs import parse_utc
 
+    del rng
     bits = np.zeros(observable.shape)
     pending = {}
     for visit in done:
@@ -225,9 +236,8 @@ def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, d
             pending.setdefault(visit.target, []).append(visit)
     saved = saved or {}
     for s, target_bits in saved.items():
-        if scenario.targets[s].id not in pending:
-            bits[:, s] = np.where(observable[:, s], target_bits, 0.0)
-    plain = [s for s, t in enumerate(scenario.targets) if t.id not in pending and s not in saved]
+        bits[:, s] = np.where(observable[:, s], target_bits, 0.0)
+    plain = [s for s in range(len(scenario.targets)) if s not in saved]
     work = [(predictors[s], sky.bjd_tdb[s], sigma[:, s], observable[:, s], exposures,
              sky.times_jd, scenario.targets[s].id) for s in plain]
     workers = max(1, min(jobs or os.cpu_count() or 1, len(work)))
@@ -238,22 +248,24 @@ def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, d
         curves = [_curve_bits(item) for item in work]
     for s, curve in zip(plain, curves, strict=True):
         bits[:, s] = curve
+    exact = bits.copy()
     for s, target in enumerate(scenario.targets):
         if target.id not in pending:
             continue
         predictor = predictors[s]
-        jitter2 = predictor.jitter[:, None] ** 2
+        jitter2 = float(np.mean(predictor.jitter ** 2))
+        set_pred, set_sigma = visit_predictions(scenario, sky, instrument, predictor, s,
+                                                 pending[target.id], parse_utc)
+        set_var = np.mean(set_sigma ** 2, axis=0)
         for o, e in enumerate(exposures):
             cols = np.flatnonzero(observable[o, s])
             if cols.size == 0:
                 continue
             mid = mid_exposure_columns(sky, e)[cols]
             predicted = predictor.velocities(sky.bjd_tdb[s, mid])
-            total = np.sqrt(sigma[o, s, mid][None, :] ** 2 + jitter2)
-            set_pred, set_sigma = visit_predictions(scenario, sky, instrument, predictor, s,
-                                                     pending[target.id], parse_utc)
-            bits[o, s, cols] = conditional_bits(set_pred, set_sigma, predicted, total, rng)
-    return bits
+            bits[o, s, cols] = pending_bits(bits[o, s, cols], set_pred, set_var, predicted,
+                                            sigma[o, s, mid] ** 2 + jitter2)
+    return bits, exact
 
 
 def visit_predictions(scenario, sky, instrument, predictor, s, visits, parse_utc):

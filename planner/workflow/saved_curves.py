@@ -33,7 +33,8 @@ def save_curves(run: PreparedRun, path: str | Path) -> None:
         buffer, times_jd=run.sky.times_jd, exposures=np.asarray(run.exposures),
         targets=np.array([t.id for t in run.scenario.targets]),
         keys=np.array([_posterior_key(run.posteriors[t.id]) for t in run.scenario.targets]),
-        observable=run.observable, bits=run.bits)
+        observable=run.observable,
+        bits=run.bits if run.exact_bits is None else run.exact_bits)
     atomic_write_bytes(path, buffer.getvalue())
 
 
