@@ -5,6 +5,7 @@ import re
 from dataclasses import replace
 from zoneinfo import ZoneInfo
 
+import pytest
 from test_outputs import make_plan
 
 from planner.workflow.outputs import parse_utc
@@ -118,10 +119,22 @@ def test_run_total_and_notes():
     text = " ".join(render_schedule(plan).split())
     assert "run total: 3 exposures over 2 nights (1 executed)" in text
     assert "exact joint score 2.00 bits" in text
-    assert "this plan has 2.20 bits and no plan can exceed 2.50" in text
+    # objective 2.20, bound 2.50: (2.50 - 2.20) / 2.20 = 13.6 % (the share, never a bound
+    # in bits that could read as below the plan's exact value).
+    assert "no plan is more than 13.6% better on its own objective" in text
     assert "solver status OPTIMAL" in text
     text = " ".join(render_schedule(replace(plan, bound_bits=None)).split())
-    assert "no plan can exceed" not in text
+    assert "the solver proved no bound on how much better another plan could be" in text
+
+
+@pytest.mark.parametrize("bound, words", [
+    (2.20, "proved this plan the best"),
+    (155.14, "too weak to say how close"),  # a trivial bound, far above the objective
+])
+def test_bound_sentence_extremes(bound, words):
+    from planner.workflow.report import bound_sentence
+
+    assert words in bound_sentence(replace(make_plan(), bound_bits=bound))
 
 
 def test_moon_rule_in_header():

@@ -160,8 +160,15 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
     saved = reusable_curves(reuse, scenario, sky, exposures, observable, posteriors)
     bits, exact_bits = _bits(scenario, sky, instrument, predictors, exposures, observable, sigma,
                              done, rng, jobs, saved)
+    # Executed visits count against a star's visits in the run (not against its visits per
+    # night: the rule has one limit for every night).
+    kept = {t.id: 0 for t in targets}
+    for visit in done:
+        kept[visit.target] = kept.get(visit.target, 0) + 1
     rules = tuple(TargetRules(
-        min_visits=t.min_visits, max_visits=t.max_visits, max_per_night=t.max_visits_per_night,
+        min_visits=max(0, t.min_visits - kept[t.id]),
+        max_visits=None if t.max_visits is None else max(0, t.max_visits - kept[t.id]),
+        max_per_night=t.max_visits_per_night,
         min_spacing_min=int(round(t.min_gap_h * 60.0)), weight=t.weight,
         windows_jd=tuple(t.windows), must_windows_jd=tuple(t.must_windows)) for t in targets)
     default = scenario.exposures.options_s[0]

@@ -22,7 +22,8 @@ import numpy as np
 
 from planner.workflow.outputs import PlanFile, ScheduledVisit, parse_utc
 
-__all__ = ["CAUTION", "WIDTH", "curves_summary", "fit_summary", "render_schedule"]
+__all__ = ["CAUTION", "WIDTH", "bound_sentence", "curves_summary", "fit_summary",
+           "render_schedule"]
 
 #: Widest line of the schedule [characters].
 WIDTH = 100
@@ -136,19 +137,40 @@ def render_schedule(plan: PlanFile) -> str:
         out.extend(body)
         out.append("")
     done = sum(v.status != "planned" for v in plan.visits)
-    bound = ""
-    if plan.bound_bits is not None and plan.objective_bits is not None:
-        bound = (f"; on the solver's own surrogate objective this plan has "
-                 f"{plan.objective_bits:.2f} bits and no plan can exceed {plan.bound_bits:.2f}")
+    bound = f"; {bound_sentence(plan)}"
     summary = (f"run total: {len(plan.visits)} exposures over {n_nights} nights"
                f"{f' ({done} executed)' if done else ''}, {running:.2f} bits by the visit "
-               f"marginals; exact joint score {plan.total_bits:.2f} bits{bound}.")
+               f"marginals; exact joint score {plan.total_bits:.2f} bits{bound}")
     out.extend(_wrap(summary, "  "))
     if done:
         out.append("lines marked * were executed and are kept as they were observed.")
     for note in plan.notes:
         out.extend(_wrap(note, "  "))
     return "\n".join(line.rstrip() for line in out) + "\n"
+
+
+def bound_sentence(plan: PlanFile) -> str:
+    """Say in one sentence what the solver proved about how far the plan is from the best.
+
+    The solver's bound is on its own objective (the redundancy-aware surrogate of the new
+    visits), not on the exact score, so it is given as a share of that objective: never a
+    number that could read as below the plan's value.
+    """
+    bound, objective = plan.bound_bits, plan.objective_bits
+    if bound is None or objective is None:
+        return ("the solver proved no bound on how much better another plan could be (it "
+                "stopped before proving one, searched part of the candidates only, or does "
+                "not search).")
+    if objective <= 0:
+        return "the solver's objective is zero for this plan, so no share can be given."
+    gain = max(bound - objective, 0.0) / objective
+    if gain < 0.0005:
+        return "the solver proved this plan the best on its own objective."
+    if gain > 1.0:
+        return ("the solver's bound is too weak to say how close this plan is to the best "
+                f"(it allows a plan {gain:.0%} better on its own objective).")
+    return (f"the solver proved that no plan is more than {gain:.1%} better on its own "
+            "objective (the surrogate it optimises).")
 
 
 def _night_body(night, visits, running, zone):
