@@ -156,6 +156,9 @@ class PlanFile:
     objective_bits : float or None
         The strategy's own objective (the solver's redundancy-aware surrogate of the bits), the
         quantity ``bound_bits`` bounds.
+    now_utc : str or None
+        The present of a re-plan (ISO 8601 UTC): nights before it are past and their visits
+        executed; None for a plan made before the run.
     """
 
     strategy: str
@@ -172,6 +175,7 @@ class PlanFile:
     visits: tuple[ScheduledVisit, ...]
     notes: tuple[str, ...] = ()
     objective_bits: float | None = None
+    now_utc: str | None = None
 
     def to_json(self) -> str:
         """Return the plan.json text (UTF-8, indented, with a format version)."""

@@ -182,7 +182,10 @@ def require_room(run: PreparedRun) -> None:
                         "nothing to plan; give at least one target max_visits: 1 or more.")
     if run.problem.n_candidates > 0:
         return
-    left = sum(uncovered_d(n.dark_start_jd, n.dark_end_jd, run.lost_jd) for n in run.aligned)
+    closed = tuple(run.lost_jd)
+    if run.now_jd is not None:
+        closed += ((min(n.dark_start_jd for n in run.aligned), run.now_jd),)
+    left = sum(uncovered_d(n.dark_start_jd, n.dark_end_jd, closed) for n in run.aligned)
     if left <= 0.0:
         raise PlanError("nothing left to plan: every night of the run is lost or already past "
                         "(--lost, --now), so no new plan was made and the old plan stands.")
@@ -191,11 +194,13 @@ def require_room(run: PreparedRun) -> None:
 
 
 def make_plan(run: PreparedRun, strategy: str | None = None,
-              time_limit_s: float | None = None, notes=(), candidates=None) -> PlanResult:
+              time_limit_s: float | None = None, notes=(), candidates=None,
+              progress=None) -> PlanResult:
     """Plan the run with one strategy, verify it, score it exactly and build its plan file.
 
     ``candidates`` restricts the strategy to those candidate visits (see :func:`run_strategy`);
-    the plan is still verified and scored on the whole run.
+    the plan is still verified and scored on the whole run. ``progress(label)`` is called
+    once the strategy is done, before the check and the exact score.
 
     Raises
     ------
@@ -208,6 +213,8 @@ def make_plan(run: PreparedRun, strategy: str | None = None,
     require_room(run)
     strategy = strategy or run.scenario.solver.strategy
     plan = run_strategy(run, strategy, time_limit_s, candidates=candidates)
+    if progress is not None:
+        progress("checking and scoring")
     verification = verify(run, plan)
     require_valid(verification)
     marginals, target_bits = exact_marginals(run, plan)

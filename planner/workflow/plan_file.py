@@ -121,4 +121,5 @@ def build_plan_file(run: PreparedRun, plan, marginals, target_bits, total_bits, 
         max_airmass=float(scenario.constraints.max_airmass),
         moon_table=tuple(tuple(map(float, r)) for r in run.moon_table),
         target_bits=per_target, nights=nights, visits=tuple(all_visits), notes=tuple(notes),
-        objective_bits=round(float(plan.objective), 5))
+        objective_bits=round(float(plan.objective), 5),
+        now_utc=None if run.now_jd is None else format_utc(run.now_jd))

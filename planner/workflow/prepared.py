@@ -71,6 +71,9 @@ class PreparedRun:
         The exact one-visit bits ignoring executed visits (``bits`` before their share is
         taken off; what :func:`planner.workflow.saved_curves.save_curves` keeps). None: as
         ``bits``.
+    now_jd : float or None
+        The present of a re-plan, JD UTC: time before it is past (executed or idle), closed
+        but not lost.
     """
 
     scenario: Scenario
@@ -94,10 +97,12 @@ class PreparedRun:
     lost_jd: tuple = ()
     done: tuple = ()
     exact_bits: np.ndarray | None = None
+    now_jd: float | None = None
 
 
 def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict: bool = True,
-            seed: int | None = None, jobs: int | None = None, reuse=None) -> PreparedRun:
+            seed: int | None = None, jobs: int | None = None, reuse=None,
+            now_jd: float | None = None, progress=None) -> PreparedRun:
     """Compute the sky, limits, noise, information and candidate visits of a run.
 
     Parameters
@@ -117,6 +122,10 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
         Seed of the simulated outcomes behind conditional values (default: the solver seed).
     jobs : int, optional
         Worker processes for the information curves (None: every core; 1: this process).
+    now_jd : float, optional
+        The present (a re-plan): nothing may start before it; the past is not lost time.
+    progress : callable, optional
+        ``progress(done, total, label)`` before each step.
     reuse : dict, optional
         Curves saved with an earlier plan (:func:`planner.workflow.saved_curves.load_curves`): a
         target whose posterior and grid are unchanged, and whose observable starts are a subset
@@ -135,13 +144,16 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
     from planner.sky.tracks import compute_sky
     from planner.workflow.outputs import parse_utc
 
+    report = progress or (lambda done, total, label: None)
+    report(0, 4, "sky and limits")
     site, nights, aligned, moon_table, instrument, mount = physical_setup(scenario)
     targets = scenario.targets
     sky = compute_sky(site, aligned, [t.ra_deg for t in targets], [t.dec_deg for t in targets],
                       step_s=scenario.sky.step_s, names=[t.id for t in targets])
     grid = run_grid(sky, aligned)
     busy = [(parse_utc(v.start_utc) - v.slew_s / 86400.0, parse_utc(v.end_utc)) for v in done]
-    closed = tuple(scenario.constraints.blackouts) + tuple(lost_jd) + tuple(busy)
+    past = () if now_jd is None else ((min(n.sunset_jd for n in nights) - 1.0, float(now_jd)),)
+    closed = tuple(scenario.constraints.blackouts) + tuple(lost_jd) + past + tuple(busy)
     airmass_limits = tuple(t.max_airmass or scenario.constraints.max_airmass for t in targets)
     constraints = Constraints(max_airmass=airmass_limits, moon_table=moon_table,
                               blackouts=closed,
@@ -157,6 +169,7 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
     predictors = tuple(Predictor.from_posterior(posteriors[t.id], scenario.instrument.name)
                        for t in targets)
     rng = np.random.default_rng(scenario.solver.seed if seed is None else seed)
+    report(1, 4, "information curves")
     saved = reusable_curves(reuse, scenario, sky, exposures, observable, posteriors)
     bits, exact_bits = _bits(scenario, sky, instrument, predictors, exposures, observable, sigma,
                              done, rng, jobs, saved)
@@ -171,6 +184,7 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
         max_per_night=t.max_visits_per_night,
         min_spacing_min=int(round(t.min_gap_h * 60.0)), weight=t.weight,
         windows_jd=tuple(t.windows), must_windows_jd=tuple(t.must_windows)) for t in targets)
+    report(2, 4, "candidate visits")
     default = scenario.exposures.options_s[0]
     problem = build_problem(
         times_jd=grid.times_jd, night_index=grid.night_index,
@@ -184,6 +198,7 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
         slew=mount_slew(mount),
         overhead_s=mount.overhead_s(), default_option=exposures.index(default),
         keep_per_night=CANDIDATE_STARTS, thin_spacing_min=CANDIDATE_SPACING_MIN)
+    report(3, 4, "the solver's objective")
     surrogate_rng = np.random.default_rng(
         np.random.SeedSequence(scenario.solver.seed if seed is None else seed).spawn(1)[0])
     surrogate = build_surrogate(problem, predictors, rng=surrogate_rng)
@@ -194,7 +209,8 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
                        instrument=instrument, mount=mount, posteriors=dict(posteriors),
                        predictors=predictors, exposures=exposures, observable=observable,
                        bits=bits, sigma=sigma, problem=problem, surrogate=surrogate,
-                       lost_jd=tuple(lost_jd), done=tuple(done), exact_bits=exact_bits)
+                       lost_jd=tuple(lost_jd), done=tuple(done), exact_bits=exact_bits,
+                       now_jd=None if now_jd is None else float(now_jd))
 
 
 def _check_observable(scenario, sky, constraints, observable) -> None:

@@ -62,9 +62,12 @@ class ReplanRequest:
     done : tuple of ScheduledVisit
         Executed visits (status ``done``), in time order.
     now_jd : float or None
-        The present, JD UTC; nothing may be planned before it.
+        The present, JD UTC; nothing may be planned before it (:func:`parse_request` says
+        what it is when ``--now`` is not given).
     new_data : dict of str to inference.data.RVData
         New velocities per target.
+    now_from_clock : bool
+        True when ``now_jd`` is the time the command ran, not a ``--now``.
     """
 
     lost_jd: tuple
@@ -72,6 +75,7 @@ class ReplanRequest:
     done: tuple
     now_jd: float | None
     new_data: dict
+    now_from_clock: bool = False
 
 
 @dataclass(frozen=True)
@@ -184,14 +188,17 @@ def check_scenario_matches(old: PlanFile, scenario, plan_path: str | Path) -> No
 
 
 def _lost_items(old: PlanFile, lost) -> tuple[list, list]:
+    from planner.workflow.moments import parse_moment
+
     nights = {n.date: n for n in old.nights}
+    zone = (old.site or {}).get("timezone") or "UTC"
     spans, labels = [], []
     for item in lost:
         text = str(item).strip()
         if "/" in text:
             start_text, end_text = text.split("/", 1)
-            a = parse_utc(start_text, f"--lost {text}")
-            b = parse_utc(end_text, f"--lost {text}")
+            a = parse_moment(start_text, zone, f"--lost {text}: the start")
+            b = parse_moment(end_text, zone, f"--lost {text}: the end")
             if b <= a:
                 raise PlanError(f"--lost {text}: the interval ends before it starts; give "
                                 "START/END with the start first.")
@@ -203,8 +210,9 @@ def _lost_items(old: PlanFile, lost) -> tuple[list, list]:
             labels.append(f"the night of {text}")
         else:
             dates = ", ".join(nights)
-            raise PlanError(f"--lost {text}: not a night of this plan ({dates}) nor a UTC "
-                            "interval START/END such as 2027-10-06T02:00Z/2027-10-06T04:30Z.")
+            raise PlanError(f"--lost {text}: not a night of this plan ({dates}) nor an interval "
+                            "START/END such as 2027-10-06T02:00Z/2027-10-06T04:30Z or "
+                            "'2027-10-05 23:00 local/2027-10-06 01:30 local'.")
     for night in old.nights:  # what the plan file already gave up
         spans.extend((parse_utc(a), parse_utc(b)) for a, b in night.lost)
     return spans, labels
@@ -277,8 +285,15 @@ def read_new_velocities(path: str | Path, scenario) -> dict:
 
 
 def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=(),
-                  now=None) -> ReplanRequest:
+                  now=None, clock_jd: float | None = None) -> ReplanRequest:
     """Turn the command's options into a :class:`ReplanRequest` (checked against the old plan).
+
+    What "now" is: the ``now`` given (``--now``: UTC, an offset or the site's local time,
+    :mod:`planner.workflow.moments`); else ``clock_jd``, the time the command runs (the CLI
+    passes the system clock), when it falls after the run's first sunset; else there is no
+    past. The plan's own ``now_utc`` (an earlier re-plan) is the earliest now allowed. Planned
+    visits that started before now outside lost time count as executed, and nothing new starts
+    before it; the past is not lost time.
 
     Raises
     ------
@@ -286,8 +301,21 @@ def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=
         If an option is malformed or does not fit the plan, if nothing is asked, or if the
         lost and past time leave no dark time to plan.
     """
+    from planner.workflow.moments import parse_moment
+
     spans, labels = _lost_items(old, lost)
-    now_jd = None if now is None else parse_utc(now, "--now")
+    zone = (old.site or {}).get("timezone") or "UTC"
+    first_sunset = min(parse_utc(n.sunset_utc) for n in old.nights)
+    now_jd = None if now is None else parse_moment(now, zone, "--now")
+    from_clock = now_jd is None and clock_jd is not None and clock_jd > first_sunset
+    if from_clock:
+        now_jd = float(clock_jd)
+    if old.now_utc:
+        before = parse_utc(old.now_utc)
+        if now_jd is not None and now_jd < before - _MATCH_D and not from_clock:
+            raise PlanError(f"--now {now}: the plan was already re-planned as of "
+                            f"{old.now_utc}; give a later time.")
+        now_jd = before if now_jd is None else max(now_jd, before)
     done = [v for v in old.visits if v.status != "planned"]
     if done_file:
         done += _done_rows(Path(done_file), old)
@@ -298,28 +326,30 @@ def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=
                   key=lambda v: v.start_utc)
     kept = tuple(dataclasses.replace(v, status="done") if v.status == "planned" else v
                  for v in kept)
-    if now_jd is not None:  # the past is closed
-        spans.append((min(parse_utc(n.sunset_utc) for n in old.nights), now_jd))
     new_data = {}
     for path in rv_files:
         for target, data in read_new_velocities(path, scenario).items():
             new_data[target] = data if target not in new_data else new_data[target].concat(data)
-    if not (spans or kept or new_data):
+    if not (spans or kept or new_data or now_jd is not None):
         raise PlanError("nothing to re-plan: give lost time (--lost), executed visits (--done "
                         "or --now) or new velocities (--rvs).")
     from planner.workflow.pipeline import uncovered_d
 
-    if not any(uncovered_d(parse_utc(n.dark_start_utc), parse_utc(n.dark_end_utc), spans) > 0
+    closed = list(spans) + ([] if now_jd is None else [(first_sunset, now_jd)])
+    if not any(uncovered_d(parse_utc(n.dark_start_utc), parse_utc(n.dark_end_utc), closed) > 0
                for n in old.nights):
+        clock = (f" (now is {format_utc(now_jd)}, the time of this command; give --now to "
+                 "re-plan as of another time)") if from_clock else ""
         raise PlanError("nothing left to plan: every night of the run is lost or already past "
-                        "(--lost, --now), so no new plan was made and the old plan stands.")
+                        f"(--lost, --now){clock}, so no new plan was made and the old plan "
+                        "stands.")
     return ReplanRequest(lost_jd=tuple(spans), lost_labels=tuple(labels), done=kept,
-                         now_jd=now_jd, new_data=new_data)
+                         now_jd=now_jd, new_data=new_data, now_from_clock=from_clock)
 
 
 def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
            strategy: str | None = None, time_limit_s: float | None = None,
-           reuse=None) -> ReplanResult:
+           reuse=None, progress=None) -> ReplanResult:
     """Plan the rest of the run after lost time, executed visits and new velocities.
 
     Parameters
@@ -338,6 +368,8 @@ def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
     time_limit_s : float, optional
         Solver limit (default: the scenario's ``solver.replan_time_limit_s``, shorter than the
         planning limit because observers re-plan at the telescope).
+    progress : callable, optional
+        ``progress(done, total, label)`` before each step (7 steps).
 
     Returns
     -------
@@ -347,6 +379,9 @@ def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
     from planner.information.update import update_posterior
     from planner.workflow import pipeline
 
+    report = progress or (lambda done, total, label: None)
+    steps = 7
+    report(0, steps, "new velocities" if request.new_data else "executed visits")
     rng = np.random.default_rng(scenario.solver.seed)
     posteriors, updates = dict(posteriors), {}
     for target_id, data in request.new_data.items():
@@ -357,11 +392,15 @@ def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
     done = tuple(dataclasses.replace(v, status="measured") if v.target in request.new_data
                  else v for v in request.done)
     run = pipeline.prepare(scenario, posteriors, lost_jd=request.lost_jd, done=done,
-                           strict=False, reuse=reuse)
+                           strict=False, reuse=reuse, now_jd=request.now_jd,
+                           progress=lambda done, total, label: report(1 + done, steps, label))
     limit = scenario.solver.replan_time_limit_s if time_limit_s is None else time_limit_s
     pipeline.require_room(run)
     focus = focus_candidates(run, old, request.now_jd)
-    result = pipeline.make_plan(run, strategy or old.strategy, limit, candidates=focus)
+    report(5, steps, f"solving (at most {limit:g} s)")
+    result = pipeline.make_plan(run, strategy or old.strategy, limit, candidates=focus,
+                                progress=lambda label: report(6, steps, label))
+    report(steps, steps, "done")
     changes = describe_changes(old, result.plan_file, request, updates)
     return ReplanResult(plan_file=result.plan_file, changes=changes, plan=result.plan, run=run,
                         updates=updates)
@@ -431,7 +470,9 @@ def describe_changes(old: PlanFile, new: PlanFile, request: ReplanRequest, updat
     if request.lost_labels:
         lines.append("lost: " + "; ".join(request.lost_labels) + ".")
     if request.now_jd is not None:
-        lines.append(f"now: {format_utc(request.now_jd)}; nothing is planned before it.")
+        source = " (the time of this command)" if request.now_from_clock else ""
+        lines.append(f"now: {format_utc(request.now_jd)}{source}; what was planned before it "
+                     "is kept as executed, nothing new is planned before it.")
     if request.done:
         lines.append(f"executed and kept: {len(request.done)} exposures.")
     for target, update in updates.items():
