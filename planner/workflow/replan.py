@@ -35,7 +35,7 @@ from planner.workflow.outputs import PlanFile, ScheduledVisit, format_utc, parse
 
 __all__ = ["LATER_PER_GROUP", "ReplanRequest", "ReplanResult", "check_scenario_matches",
            "focus_candidates", "parse_request", "read_new_velocities", "recorded_scenario",
-           "replan", "tonight_index"]
+           "replan", "tonight_index", "update_sentence"]
 
 log = logging.getLogger(__name__)
 
@@ -397,8 +397,15 @@ def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
     limit = scenario.solver.replan_time_limit_s if time_limit_s is None else time_limit_s
     pipeline.require_room(run)
     focus = focus_candidates(run, old, request.now_jd)
+    notes = ()
+    if focus is not None:
+        notes = (f"at the telescope: the rest of tonight was searched over every candidate "
+                 f"visit, later nights among the old plan's visits and the {LATER_PER_GROUP} "
+                 "best starts per star, night and exposure; a daytime re-plan (--now between "
+                 "nights) searches them all.",)
     report(5, steps, f"solving (at most {limit:g} s)")
-    result = pipeline.make_plan(run, strategy or old.strategy, limit, candidates=focus,
+    result = pipeline.make_plan(run, strategy or old.strategy, limit, notes=notes,
+                                candidates=focus,
                                 progress=lambda label: report(6, steps, label))
     report(steps, steps, "done")
     changes = describe_changes(old, result.plan_file, request, updates)
@@ -463,6 +470,25 @@ def focus_candidates(run, old: PlanFile, now_jd: float | None,
     return np.flatnonzero(keep)
 
 
+def update_sentence(target: str, n_new: int, update) -> str:
+    """Say in plain words how new velocities changed a star's posterior and what it means.
+
+    The effective sample size (Kish 1965) is the number of equally weighted samples the
+    reweighted ones are worth; as a share of the samples it says how much of the old posterior
+    the new velocities left standing.
+    """
+    share = update.ess_fraction
+    shown = f"{share:.0%}" if share >= 0.01 else f"{share:.1%}"
+    if update.method == "refit":
+        return (f"new velocities for {target}: {n_new} folded in; they rule out most of its "
+                f"earlier orbit samples (the rest are worth {shown} of them, effective samples), "
+                "so its orbit was sampled again from all its velocities and its later visits "
+                "are valued under the new fit.")
+    return (f"new velocities for {target}: {n_new} folded in by reweighting its orbit samples; "
+            f"they still stand for {shown} of the samples (effective samples), enough to value "
+            "its later visits without a new fit.")
+
+
 def describe_changes(old: PlanFile, new: PlanFile, request: ReplanRequest, updates) -> str:
     """List, in plain text, what the re-plan changed."""
     lines = [f"re-planned: {len(old.visits)} exposures and {old.total_bits:.2f} bits before, "
@@ -476,8 +502,7 @@ def describe_changes(old: PlanFile, new: PlanFile, request: ReplanRequest, updat
     if request.done:
         lines.append(f"executed and kept: {len(request.done)} exposures.")
     for target, update in updates.items():
-        lines.append(f"new velocities for {target}: {len(request.new_data[target])} folded in "
-                     f"by {update.method} (effective samples {update.ess_fraction:.0%}).")
+        lines.append(update_sentence(target, len(request.new_data[target]), update))
     old_keys = {(v.target, v.start_utc) for v in old.visits}
     new_keys = {(v.target, v.start_utc) for v in new.visits}
     dropped = sorted(old_keys - new_keys, key=lambda k: k[1])

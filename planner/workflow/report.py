@@ -105,7 +105,8 @@ def render_schedule(plan: PlanFile) -> str:
     zone = ZoneInfo(plan.site["timezone"])
     site = plan.site
     out = [f"nightbits schedule: {plan.run_name}"[:WIDTH],
-           f"strategy {plan.strategy}; times local ({site['timezone']}) and UTC"[:WIDTH],
+           (f"strategy {plan.strategy}; times local ({site['timezone']}, "
+            f"{_offsets(plan)}) and UTC")[:WIDTH],
            (f"site {site.get('name', '')}: latitude {site['latitude_deg']:.3f} deg, longitude "
             f"{site['longitude_deg']:.3f} deg, {site['elevation_m']:.0f} m")[:WIDTH],
            *_wrap(f"limits: airmass up to {plan.max_airmass:.2f}; dark while the Sun is below "
@@ -124,7 +125,8 @@ def render_schedule(plan: PlanFile) -> str:
         visits = sorted(by_night.get(night.date, []), key=lambda v: parse_utc(v.start_utc))
         body, running = _night_body(night, visits, running, zone)
         day = _dt.date.fromisoformat(night.date).strftime("%a %Y-%m-%d")
-        out.append(f"== night {index} of {n_nights}: evening of {day} ".ljust(WIDTH, "="))
+        out.append(f"== night {index} of {n_nights}: evening of {day} {_past(plan, night, zone)}"
+                   .ljust(WIDTH, "="))
         out.append(f"sunset {_both(night.sunset_utc, zone)}   sunrise "
                    f"{_both(night.sunrise_utc, zone)}")
         out.append(f"dark {_span(night.dark_start_utc, night.dark_end_utc, zone)}")
@@ -147,6 +149,34 @@ def render_schedule(plan: PlanFile) -> str:
     for note in plan.notes:
         out.extend(_wrap(note, "  "))
     return "\n".join(line.rstrip() for line in out) + "\n"
+
+
+def _offsets(plan: PlanFile) -> str:
+    """Give the zone's UTC offset over the run: one, or each from the first night it holds."""
+    from planner.workflow.moments import zone_offsets
+
+    starts = [parse_utc(n.dark_start_utc) for n in plan.nights]
+    offsets = zone_offsets(plan.site["timezone"], starts)
+    if len(set(offsets)) <= 1:
+        return offsets[0] if offsets else "UTC+00:00"
+    parts = [offsets[0]]
+    for k in range(1, len(offsets)):
+        if offsets[k] != offsets[k - 1]:
+            parts.append(f"{offsets[k]} from the night of {plan.nights[k].date}")
+    return ", ".join(parts)
+
+
+def _past(plan: PlanFile, night, zone: ZoneInfo) -> str:
+    """Mark a night before the plan's present: executed, or executed up to now."""
+    if not plan.now_utc:
+        return ""
+    now = parse_utc(plan.now_utc)
+    if now >= parse_utc(night.dark_end_utc):
+        return "(past: executed, not re-planned) "
+    if now > parse_utc(night.dark_start_utc):
+        moment = _moment(plan.now_utc)
+        return f"(executed up to now, {_hm(moment, zone)} = {moment.strftime('%H:%M')} UTC) "
+    return ""
 
 
 def bound_sentence(plan: PlanFile) -> str:
