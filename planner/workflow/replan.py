@@ -246,14 +246,23 @@ def _done_rows(path: Path, old: PlanFile) -> list[ScheduledVisit]:
 
 
 def read_new_velocities(path: str | Path, scenario) -> dict:
-    """Read new velocities per target from a CSV: target, time, rv, rv_err[, instrument].
+    """Read new velocities per target from a CSV, an observing log or a list of velocities.
+
+    Columns: ``target``, ``rv`` and ``rv_err`` [m/s], ``instrument`` (optional) and the time,
+    either ``time`` (BJD_TDB) or ``mid_utc`` (the UTC instant of mid-exposure, ISO with ``Z``
+    or an offset, or local to the site with ``local``), converted to BJD_TDB for the target
+    (:func:`planner.sky.barycentric.bjd_tdb_from_utc`). Rows with an empty ``rv`` are
+    exposures whose velocity is not reduced yet, and are skipped, so the same observing log
+    can be given to ``--done`` (which reads ``target`` and ``start_utc``) and to ``--rvs``.
 
     Raises
     ------
     PlanError
-        If the file is unreadable, lacks a column, or names an unknown target.
+        If the file is unreadable, lacks a column, holds no velocity, or names an unknown
+        target.
     """
     from inference.data import RVData
+    from planner.workflow.moments import parse_moment
 
     path = Path(path)
     try:
@@ -261,20 +270,34 @@ def read_new_velocities(path: str | Path, scenario) -> dict:
             rows = list(csv.DictReader(handle))
     except OSError as exc:
         raise PlanError(f"--rvs {path}: cannot be read ({exc.strerror or exc}).") from None
-    need = {"target", "time", "rv", "rv_err"}
-    if not rows or not need <= set(rows[0]):
-        raise PlanError(f"--rvs {path}: needs a header with the columns target, time (BJD_TDB), "
-                        "rv and rv_err (m/s), and at least one row.")
+    columns = set(rows[0]) if rows else set()
+    if not ({"target", "rv", "rv_err"} <= columns and columns & {"time", "mid_utc"}):
+        raise PlanError(f"--rvs {path}: needs a header with the columns target, rv and rv_err "
+                        "(m/s) and a time, either time (BJD_TDB) or mid_utc (UTC mid-exposure), "
+                        "and at least one row.")
+    zone = scenario.site.timezone
     groups: dict[str, list] = {}
     for line, row in enumerate(rows, start=2):
-        scenario.target(row["target"])  # a ScenarioError with a did-you-mean if unknown
+        if not (row.get("rv") or "").strip():
+            continue  # an exposure without a velocity yet (an observing-log row)
+        target = scenario.target(row["target"])  # a ScenarioError with a did-you-mean
         try:
-            values = tuple(float(row[key]) for key in ("time", "rv", "rv_err"))
+            rv, err = float(row["rv"]), float(row["rv_err"])
+            bjd = float(row["time"]) if (row.get("time") or "").strip() else None
         except (TypeError, ValueError):
             raise PlanError(f"--rvs {path} line {line}: time, rv and rv_err must be "
                             "numbers.") from None
+        if bjd is None:
+            if not (row.get("mid_utc") or "").strip():
+                raise PlanError(f"--rvs {path} line {line}: give the velocity's time, as time "
+                                "(BJD_TDB) or mid_utc (UTC mid-exposure).")
+            mid = parse_moment(row["mid_utc"], zone, f"--rvs {path} line {line}: mid_utc")
+            bjd = float(_bjd_tdb(scenario, target, mid))
         instrument = (row.get("instrument") or scenario.instrument.name).strip()
-        groups.setdefault(row["target"], []).append((*values, instrument))
+        groups.setdefault(target.id, []).append((bjd, rv, err, instrument))
+    if not groups:
+        raise PlanError(f"--rvs {path}: no row has a velocity (the rv column is empty "
+                        "everywhere); fill in rv and rv_err of the reduced exposures.")
     data = {}
     for target, items in groups.items():
         time, rv, err, inst = zip(*items, strict=True)
@@ -282,6 +305,18 @@ def read_new_velocities(path: str | Path, scenario) -> dict:
                                           np.array(inst, dtype=object),
                                           source=f"{path} ({target})")
     return data
+
+
+def _bjd_tdb(scenario, target, mid_jd: float) -> float:
+    import astropy.units as u
+    from astropy.coordinates import EarthLocation
+
+    from planner.sky.barycentric import bjd_tdb_from_utc
+
+    site = scenario.site
+    location = EarthLocation.from_geodetic(site.longitude_deg * u.deg, site.latitude_deg * u.deg,
+                                           site.elevation_m * u.m)
+    return bjd_tdb_from_utc(location, target.ra_deg, target.dec_deg, [mid_jd])[0]
 
 
 def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=(),
