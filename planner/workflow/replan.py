@@ -532,8 +532,8 @@ def describe_changes(old: PlanFile, new: PlanFile, request: ReplanRequest, updat
         lines.append("lost: " + "; ".join(request.lost_labels) + ".")
     if request.now_jd is not None:
         source = " (the time of this command)" if request.now_from_clock else ""
-        lines.append(f"now: {format_utc(request.now_jd)}{source}; what was planned before it "
-                     "is kept as executed, nothing new is planned before it.")
+        lines.append(f"now: {format_utc(request.now_jd)}{source}; planned visits before it "
+                     "count as executed, nothing new starts before it.")
     if request.done:
         lines.append(f"executed and kept: {len(request.done)} exposures.")
     for target, update in updates.items():
@@ -552,6 +552,9 @@ def describe_changes(old: PlanFile, new: PlanFile, request: ReplanRequest, updat
         bb, ba = old.target_bits.get(target, 0.0), new.target_bits[target]
         if nb != na or abs(bb - ba) > 0.005:
             rows.append(f"  {target:<{width}}  {nb:>6} -> {na:<6}      {bb:>6.2f} -> {ba:.2f}")
+    import textwrap
+
+    lines = [textwrap.fill(line, width=100, subsequent_indent="  ") for line in lines]
     if rows:
         lines += ["changed targets:", header, *rows]
     return "\n".join(lines) + "\n"
