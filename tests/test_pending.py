@@ -49,3 +49,17 @@ def test_share_limits():
     assert gaussian_share(v[:, :1], noise, flat, noise)[0] == 1.0
     with pytest.raises(InformationError, match="positive"):
         gaussian_share(v[:, :1], np.zeros(1), v[:, 2:], noise)
+
+
+def test_calibration_scales_the_lost_share():
+    from planner.information.pending import calibrate_share
+
+    share = np.array([0.9, 0.7, 0.5, 1.0])
+    # The exact loss at the calibration times is twice the Gaussian one: every loss doubles.
+    out = calibrate_share(share, share_at=np.array([0.9, 0.7]), exact_at=np.array([0.8, 0.4]))
+    assert np.allclose(out, [0.8, 0.4, 0.0, 1.0])
+    # Where the Gaussian loses nothing there is nothing to scale.
+    assert np.array_equal(calibrate_share(share, np.ones(2), np.array([0.5, 0.5])), share)
+    # The result stays a share, whatever the Monte Carlo values.
+    wild = calibrate_share(share, np.array([0.99]), np.array([-0.5]))
+    assert np.all((wild >= 0.0) & (wild <= 1.0))

@@ -14,9 +14,13 @@ already has, is scaled by the linear-Gaussian share of it that survives the exec
 with ``C`` the sample covariance of the predicted velocities and ``N`` the noise variance
 (measurement and mean jitter). Both ratios are exact for a linear-Gaussian model (Lindley 1956,
 the information of a linear-Gaussian measurement), the same rescaling the surrogate uses for its
-Gaussian patterns (:mod:`planner.allocation.surrogate`). The value of a plan is still scored
-exactly (:mod:`planner.workflow.plan_file` conditions on the executed visits by Monte Carlo);
-these bits only steer the strategies.
+Gaussian patterns (:mod:`planner.allocation.surrogate`). For a posterior far from Gaussian
+(several period modes) the Gaussian share keeps too much: measured on the demo, a star worth 4.3
+bits a visit kept 71 % where the exact conditional kept 38 %. :func:`calibrate_share` therefore
+scales the share each star loses by the exact loss at a few of its times (the exact Monte Carlo
+value there), as the surrogate calibrates its Gaussian patterns on one exact pattern. The value
+of a plan is still scored exactly (:mod:`planner.workflow.plan_file` conditions on the
+executed visits by Monte Carlo); these bits only steer the strategies.
 """
 
 from __future__ import annotations
@@ -25,7 +29,7 @@ import numpy as np
 
 from planner.information.entropy import InformationError
 
-__all__ = ["gaussian_share", "pending_bits"]
+__all__ = ["calibrate_share", "gaussian_share", "pending_bits"]
 
 
 def gaussian_share(predicted_set, noise_var_set, predicted_new, noise_var_new) -> np.ndarray:
@@ -94,3 +98,29 @@ def pending_bits(bits, predicted_set, noise_var_set, predicted_new, noise_var_ne
     """
     share = gaussian_share(predicted_set, noise_var_set, predicted_new, noise_var_new)
     return np.asarray(bits, dtype=float) * share
+
+
+def calibrate_share(share, share_at, exact_at) -> np.ndarray:
+    """Scale the share lost to the executed visits by its exact value at a few times.
+
+    Parameters
+    ----------
+    share : ndarray, shape (n_times,)
+        Linear-Gaussian shares left (:func:`gaussian_share`).
+    share_at : ndarray, shape (n_cal,)
+        The same at the calibration times.
+    exact_at : ndarray, shape (n_cal,)
+        Exact shares left there: exact conditional bits over exact one-visit bits.
+
+    Returns
+    -------
+    ndarray, shape (n_times,)
+        ``1 - c (1 - share)``, clipped to [0, 1], with ``c = sum(1 - exact_at) /
+        sum(1 - share_at)`` (1 when the Gaussian loses nothing there).
+    """
+    share = np.asarray(share, dtype=float)
+    lost = float(np.sum(1.0 - np.asarray(share_at, dtype=float)))
+    if lost <= 1e-9:
+        return share.copy()
+    c = max(float(np.sum(1.0 - np.clip(np.asarray(exact_at, dtype=float), 0.0, 1.0))), 0.0)
+    return np.clip(1.0 - (c / lost) * (1.0 - share), 0.0, 1.0)

@@ -32,6 +32,12 @@ log = logging.getLogger(__name__)
 CANDIDATE_STARTS = 40
 CANDIDATE_SPACING_MIN = 5
 
+#: Times per star, and simulated outcomes, at which the share of a star's one-visit bits left
+#: by executed visits without velocities is computed exactly to calibrate the Gaussian share
+#: (:func:`planner.information.pending.calibrate_share`; docs/decisions.md).
+CALIBRATION_TIMES = 4
+CALIBRATION_OUTCOMES = 32
+
 
 @dataclass(frozen=True)
 class PreparedRun:
@@ -244,14 +250,15 @@ def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, d
     velocities are not yet in its posterior, the curve is scaled by the linear-Gaussian share
     of it those visits leave (:mod:`planner.information.pending`): measured on the demo, the
     exact Monte Carlo conditional curves took 240 s of a 270 s re-plan (docs/decisions.md).
-    ``rng`` is kept for callers; the scaling draws nothing.
+    The share is calibrated on the exact Monte Carlo value at ``CALIBRATION_TIMES`` times per
+    star (``rng`` draws its outcomes).
     """
     from concurrent.futures import ProcessPoolExecutor
 
-    from planner.information.pending import pending_bits
+    from planner.information.gain import conditional_bits
+    from planner.information.pending import calibrate_share, gaussian_share
     from planner.workflow.outputs import parse_utc
 
-    del rng
     bits = np.zeros(observable.shape)
     pending = {}
     for visit in done:
@@ -280,15 +287,37 @@ def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, d
         set_pred, set_sigma = visit_predictions(scenario, sky, instrument, predictor, s,
                                                  pending[target.id], parse_utc)
         set_var = np.mean(set_sigma ** 2, axis=0)
+        shares, factor = [], None
         for o, e in enumerate(exposures):
             cols = np.flatnonzero(observable[o, s])
             if cols.size == 0:
                 continue
             mid = mid_exposure_columns(sky, e)[cols]
             predicted = predictor.velocities(sky.bjd_tdb[s, mid])
-            bits[o, s, cols] = pending_bits(bits[o, s, cols], set_pred, set_var, predicted,
-                                            sigma[o, s, mid] ** 2 + jitter2)
+            noise = sigma[o, s, mid] ** 2 + jitter2
+            share = gaussian_share(set_pred, set_var, predicted, noise)
+            if factor is None:  # calibrated once per star, on its first option
+                at = _calibration_columns(bits[o, s, cols])
+                plain_at = bits[o, s, cols[at]]
+                total = np.sqrt(sigma[o, s, mid[at]][None, :] ** 2
+                                + predictor.jitter[:, None] ** 2)
+                given = conditional_bits(set_pred, set_sigma, predicted[:, at], total, rng,
+                                         CALIBRATION_OUTCOMES)
+                exact_at = np.divide(given, plain_at, out=np.ones(at.size),
+                                     where=plain_at > 1e-9)
+                factor = (share[at], exact_at)
+            shares.append((o, cols, calibrate_share(share, *factor)))
+        for o, cols, share in shares:
+            bits[o, s, cols] = bits[o, s, cols] * share
     return bits, exact
+
+
+def _calibration_columns(bits: np.ndarray) -> np.ndarray:
+    """Up to ``CALIBRATION_TIMES`` positions among ``bits``: the best, then lower quantiles."""
+    order = np.argsort(-bits, kind="stable")
+    ranks = np.unique((np.arange(CALIBRATION_TIMES) * order.size) // CALIBRATION_TIMES)
+    picked = order[ranks]
+    return np.sort(picked[bits[picked] > 1e-9]) if np.any(bits[picked] > 1e-9) else picked[:1]
 
 
 def visit_predictions(scenario, sky, instrument, predictor, s, visits, parse_utc):
