@@ -108,7 +108,9 @@ def _add_replan(sub) -> None:
     p.add_argument("--done", metavar="FILE",
                    help="CSV of executed visits (plan.csv rows: target, start_utc at least)")
     p.add_argument("--rvs", metavar="FILE", action="append", default=[],
-                   help="CSV of new velocities with a 'target' column; repeatable")
+                   help="CSV of new velocities: target, rv, rv_err [m/s] and time (BJD_TDB) or "
+                        "mid_utc (UTC mid-exposure); rows without rv are skipped, so the "
+                        "observing log given to --done serves here too; repeatable")
     p.add_argument("--now", metavar="TIME",
                    help="the present, UTC (2027-10-06T02:00Z), with an offset or local to the "
                         "site ('2027-10-05 23:00 local'); planned visits before it count as "
