@@ -513,3 +513,17 @@ def test_new_velocities_are_explained_in_plain_words(method, share, words):
     text = replan.update_sentence("Gamur-7", 3, update)
     assert words in text and "effective samples" in text and "later visits" in text
     assert "%" in text.split("(")[0] or "0.4%" in text
+
+
+def test_replan_reports_its_steps_in_order(base):
+    scenario, posteriors, old, _ = base
+    seen = []
+    request = replan.parse_request(old, scenario, lost=[old.nights[1].date])
+    replan.replan(scenario, posteriors, old, request,
+                  progress=lambda done, total, label: seen.append((done, total, label)))
+    assert [d for d, _, _ in seen] == sorted(d for d, _, _ in seen)  # never backwards
+    assert seen[-1][0] == seen[-1][1] and len({t for _, t, _ in seen}) == 1
+    labels = [label for _, _, label in seen]
+    for step in ("information curves", "candidate visits", "checking and scoring"):
+        assert step in labels
+    assert any(label.startswith("solving (at most") for label in labels)
