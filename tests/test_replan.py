@@ -4,6 +4,7 @@ import contextlib
 import dataclasses
 import io
 import json
+import re
 from pathlib import Path
 
 import numpy as np
@@ -394,3 +395,187 @@ def test_a_mid_night_replan_accounts_for_the_whole_dark_window(base):
         between = first.splitlines()[executed[0]:executed[-1]]
         assert not any(" lost " in line for line in between)
     assert new.nights[0].past and new.nights[0].lost  # the past is kept apart from lost time
+
+# At the telescope: what "now" is, the past, local times, the observing log, the bound.
+
+
+def test_past_nights_are_executed_not_lost_and_not_replanned(base, after_night_one):
+    from planner.workflow.report import render_schedule
+
+    old = base[2]
+    request, result = after_night_one
+    new = result.plan_file
+    assert new.now_utc == old.nights[1].sunset_utc
+    assert new.nights[0].lost == ()  # the past is not lost time
+    night_one = [v for v in new.visits if v.night == old.nights[0].date]
+    assert night_one and all(v.status == "done" for v in night_one)
+    text = render_schedule(new)
+    assert "evening of Mon 2027-10-04 (past: executed, not re-planned)" in text
+    assert "times local (America/Santiago, UTC-03:00) and UTC" in text
+    assert not re.search(r"^ +\S+ +\S+ +lost \d", text, flags=re.M)  # no lost lines
+
+
+def test_lost_alone_does_not_replan_the_past_when_the_clock_is_in_the_run(base):
+    scenario, _, old, _ = base
+    night_two = old.nights[1]
+    during_two = parse_utc(night_two.sunset_utc) + 0.01
+    a = parse_utc(night_two.dark_start_utc) + 1.0 / 24.0
+    clouds = f"{format_utc(a)}/{format_utc(a + 1.0 / 24.0)}"  # an hour of night 2
+    request = replan.parse_request(old, scenario, lost=[clouds], clock_jd=during_two)
+    assert request.now_from_clock and request.now_jd == during_two
+    night_one = {(v.target, v.start_utc) for v in old.visits if v.night == old.nights[0].date}
+    assert {(v.target, v.start_utc) for v in request.done} == night_one
+    # Before the run the clock closes nothing.
+    before = parse_utc(old.nights[0].sunset_utc) - 30.0
+    request = replan.parse_request(old, scenario, lost=[clouds], clock_jd=before)
+    assert request.now_jd is None and not request.done
+    # After the run the clock leaves nothing, and says so in the sentence.
+    after = parse_utc(old.nights[-1].sunrise_utc) + 1.0
+    with pytest.raises(PlanError, match="the time of this command; give --now"):
+        replan.parse_request(old, scenario, lost=[clouds], clock_jd=after)
+
+
+def test_cli_takes_the_clock_as_now(base, tmp_path, cache_dir, capsys, monkeypatch):
+    import importlib
+
+    cli = importlib.import_module("planner.cli.main")
+
+    old, json_path = base[2], base[3]
+    monkeypatch.setattr(cli, "_clock_jd", lambda: parse_utc(old.nights[1].sunset_utc) + 0.01)
+    out = tmp_path / "clock"
+    a = parse_utc(old.nights[1].dark_start_utc) + 1.0 / 24.0
+    code, _ = _replan_cli(capsys, ["--plan", str(json_path), "--lost",
+                                   f"{format_utc(a)}/{format_utc(a + 1.0 / 24.0)}",
+                                   "--cache", str(cache_dir)], out)
+    assert code == 0
+    new = read_plan(out / "plan.json")
+    night_one = [v for v in new.visits if v.night == old.nights[0].date]
+    assert night_one and all(v.status == "done" for v in night_one)
+
+
+def test_now_and_lost_in_local_time(base):
+    scenario, _, old, _ = base
+    night = old.nights[0]
+    start = parse_utc(night.dark_start_utc) + 0.1
+    from planner.workflow.moments import parse_moment
+
+    utc = format_utc(start)
+    as_local = _local_text(start, old.site["timezone"])
+    by_utc = replan.parse_request(old, scenario, now=utc)
+    by_local = replan.parse_request(old, scenario, now=as_local)
+    assert by_local.now_jd == pytest.approx(by_utc.now_jd, abs=1e-9)
+    span = f"{as_local}/{_local_text(start + 0.05, old.site['timezone'])}"
+    request = replan.parse_request(old, scenario, lost=[span])
+    assert request.lost_jd[0][0] == pytest.approx(parse_moment(utc, "UTC", "x"), abs=1e-9)
+    with pytest.raises(PlanError, match="does not say its time zone"):
+        replan.parse_request(old, scenario, now=utc.replace("Z", ""))
+
+
+def _local_text(jd, zone):
+    import datetime as dt
+    from zoneinfo import ZoneInfo
+
+    moment = dt.datetime(2000, 1, 1, 12, tzinfo=dt.timezone.utc) + dt.timedelta(
+        seconds=round((jd - 2451545.0) * 86400.0))
+    return moment.astimezone(ZoneInfo(zone)).strftime("%Y-%m-%d %H:%M:%S") + " local"
+
+
+def test_a_replan_never_schedules_into_the_past_or_lost_time(base):
+    scenario, posteriors, old, _ = base
+    night = old.nights[0]
+    now = parse_utc(night.dark_start_utc) + 0.08
+    lost = (now + 0.03, now + 0.09)
+    request = replan.parse_request(old, scenario, now=format_utc(now),
+                                   lost=[f"{format_utc(lost[0])}/{format_utc(lost[1])}"])
+    result = replan.replan(scenario, posteriors, old, request)
+    check = pipeline.verify(result.run, result.plan)  # the independent feasibility check
+    assert check.ok, check.problems
+    assert result.plan.visits
+    for visit in result.plan.visits:
+        assert visit.start_jd - visit.slew_s / 86400.0 >= now - 1e-9
+        assert not (visit.start_jd < lost[1] and visit.end_jd > lost[0])
+    # At the telescope the later night is searched among fewer candidates; tonight in full.
+    focus = replan.focus_candidates(result.run, old, now)
+    problem = result.run.problem
+    assert np.array_equal(np.flatnonzero(problem.night == 0),
+                          focus[problem.night[focus] == 0])
+    assert np.sum(problem.night[focus] == 1) < np.sum(problem.night == 1)
+
+
+def test_replanning_with_no_change_keeps_the_plan_value(base):
+    from planner.allocation.score import score_plan
+
+    scenario, posteriors, old, _ = base
+    before_run = format_utc(parse_utc(old.nights[0].sunset_utc) - 0.5)
+    request = replan.parse_request(old, scenario, now=before_run)
+    assert not request.done and not request.lost_jd
+    result = replan.replan(scenario, posteriors, old, request,
+                           time_limit_s=scenario.solver.time_limit_s)
+    score = score_plan(result.plan, result.run.problem, result.run.predictors,
+                       rng=np.random.default_rng(11), n_outcomes=2048)
+    # Within three standard errors of the exact score's Monte Carlo error (a 0.3 % false
+    # failure budget for a Gaussian error).
+    assert abs(result.plan_file.total_bits - old.total_bits) <= 3.0 * score.stderr + 1e-6
+
+
+def test_observing_log_feeds_done_and_rvs(base, tmp_path):
+    from planner.sky.barycentric import bjd_tdb_from_utc
+
+    scenario, _, old, _ = base
+    visits = [v for v in old.visits if v.night == old.nights[0].date][:3]
+    assert len(visits) == 3
+    mids = [0.5 * (parse_utc(v.start_utc) + parse_utc(v.end_utc)) for v in visits]
+    lines = ["target,start_utc,end_utc,mid_utc,rv,rv_err,instrument"]
+    lines.append(f"{visits[0].target},{visits[0].start_utc},{visits[0].end_utc},"
+                 f"{format_utc(mids[0])},12.5,0.9,ridge-echelle")
+    lines.append(f"{visits[1].target},{visits[1].start_utc},{visits[1].end_utc},"
+                 f"{_local_text(mids[1], old.site['timezone'])},-3.0,1.1,ridge-echelle")
+    lines.append(f"{visits[2].target},{visits[2].start_utc},{visits[2].end_utc},,,,")
+    log = tmp_path / "log.csv"
+    log.write_text("\n".join(lines) + "\n")
+    request = replan.parse_request(old, scenario, done_file=log, rv_files=[log])
+    assert [v.start_utc for v in request.done] == [v.start_utc for v in visits]
+    assert sum(len(d) for d in request.new_data.values()) == 2  # the third has no velocity
+    import astropy.units as u
+    from astropy.coordinates import EarthLocation
+
+    site = scenario.site
+    location = EarthLocation.from_geodetic(site.longitude_deg * u.deg,
+                                           site.latitude_deg * u.deg, site.elevation_m * u.m)
+    for k in (0, 1):
+        target = scenario.target(visits[k].target)
+        data = request.new_data[target.id]
+        expected = bjd_tdb_from_utc(location, target.ra_deg, target.dec_deg, [mids[k]])[0]
+        assert np.any(np.abs(data.time - expected) < 1e-6)
+    empty = tmp_path / "empty.csv"
+    empty.write_text("target,start_utc,mid_utc,rv,rv_err\n"
+                     f"{visits[2].target},{visits[2].start_utc},,,\n")
+    with pytest.raises(PlanError, match="no row has a velocity"):
+        replan.parse_request(old, scenario, rv_files=[empty])
+
+
+@pytest.mark.parametrize("method, share, words", [
+    ("reweight", 0.62, "still stand for 62% of the samples"),
+    ("refit", 0.004, "rule out most of its earlier orbit samples"),
+])
+def test_new_velocities_are_explained_in_plain_words(method, share, words):
+    from planner.information.update import PosteriorUpdate
+
+    update = PosteriorUpdate(None, method, share * 1000, share, np.zeros(1000))
+    text = replan.update_sentence("Gamur-7", 3, update)
+    assert words in text and "effective samples" in text and "later visits" in text
+    assert "%" in text.split("(")[0] or "0.4%" in text
+
+
+def test_replan_reports_its_steps_in_order(base):
+    scenario, posteriors, old, _ = base
+    seen = []
+    request = replan.parse_request(old, scenario, lost=[old.nights[1].date])
+    replan.replan(scenario, posteriors, old, request,
+                  progress=lambda done, total, label: seen.append((done, total, label)))
+    assert [d for d, _, _ in seen] == sorted(d for d, _, _ in seen)  # never backwards
+    assert seen[-1][0] == seen[-1][1] and len({t for _, t, _ in seen}) == 1
+    labels = [label for _, _, label in seen]
+    for step in ("information curves", "candidate visits", "checking and scoring"):
+        assert step in labels
+    assert any(label.startswith("solving (at most") for label in labels)

@@ -5,6 +5,7 @@ import re
 from dataclasses import replace
 from zoneinfo import ZoneInfo
 
+import pytest
 from test_outputs import make_plan
 
 from planner.workflow.outputs import parse_utc
@@ -171,3 +172,33 @@ def test_idle_lines_carry_their_reason_and_short_gaps_are_shown():
     assert re.search(r"21:57:20 +00:57:20  idle 0h01m30s until 21:58:50: waiting for a better "
                      r"moment$", text, re.M)
     assert "idle 0h00m" not in text  # nothing of a minute or less gets a line
+
+
+def test_run_total_and_notes():
+    plan = make_plan()
+    text = " ".join(render_schedule(plan).split())
+    assert "run total: 3 exposures over 2 nights (1 executed)" in text
+    assert "exact joint score 2.00 bits" in text
+    # objective 2.20, bound 2.50: (2.50 - 2.20) / 2.20 = 13.6 % (the share, never a bound
+    # in bits that could read as below the plan's exact value).
+    assert "no plan is more than 13.6% better on its own objective" in text
+    assert "solver status OPTIMAL" in text
+    text = " ".join(render_schedule(replace(plan, bound_bits=None)).split())
+    assert "the solver proved no bound on how much better another plan could be" in text
+
+
+@pytest.mark.parametrize("bound, words", [
+    (2.20, "proved this plan the best"),
+    (155.14, "too weak to say how close"),  # a trivial bound, far above the objective
+])
+def test_bound_sentence_extremes(bound, words):
+    from planner.workflow.report import bound_sentence
+
+    assert words in bound_sentence(replace(make_plan(), bound_bits=bound))
+
+
+def test_moon_rule_in_header():
+    text = " ".join(render_schedule(make_plan()).split())
+    assert "Moon separation while up: 20 deg up to 50% lit, 30 deg up to 100% lit" in text
+    single = replace(make_plan(), moon_table=((1.0, 30.0),))
+    assert "Moon at least 30 deg away while up" in render_schedule(single)

@@ -25,6 +25,7 @@ from planner.cli.support import (
     EXIT_OK,
     EXIT_USER,
     SCENARIO_HELP,
+    ProgressBar,
     add_common_options,
     add_strict,
     fit_with_progress,
@@ -112,14 +113,21 @@ def _add_replan(sub) -> None:
                                "file; it must have the plan's targets and site)")
     p.add_argument("--plan", required=True, metavar="FILE", help="the plan.json to start from")
     p.add_argument("--lost", action="append", default=[], metavar="NIGHT|START/END",
-                   help="a lost night (its local evening date YYYY-MM-DD) or a lost UTC "
-                        "interval START/END in ISO form; repeat for more")
+                   help="a lost night (its local evening date YYYY-MM-DD) or a lost interval "
+                        "START/END, each time UTC (2027-10-06T02:00Z), with an offset "
+                        "(2027-10-05T23:00-03:00) or local to the site ('2027-10-05 23:00 "
+                        "local'); repeat for more")
     p.add_argument("--done", metavar="FILE",
                    help="CSV of executed visits (plan.csv rows: target, start_utc at least)")
     p.add_argument("--rvs", metavar="FILE", action="append", default=[],
-                   help="CSV of new velocities with a 'target' column; repeatable")
+                   help="CSV of new velocities: target, rv, rv_err [m/s] and time (BJD_TDB) or "
+                        "mid_utc (UTC mid-exposure); rows without rv are skipped, so the "
+                        "observing log given to --done serves here too; repeatable")
     p.add_argument("--now", metavar="TIME",
-                   help="UTC time now (ISO); visits before it count as executed unless lost")
+                   help="the present, UTC (2027-10-06T02:00Z), with an offset or local to the "
+                        "site ('2027-10-05 23:00 local'); planned visits before it count as "
+                        "executed unless lost (default: the system clock, once the run has "
+                        "begun)")
     _plan_options(p, "nightbits-replan")
 
 
@@ -294,17 +302,25 @@ def _run_replan(args) -> int:
     replan.check_scenario_matches(old, scenario, args.plan)
     cache = pipeline.cache_folder(scenario, args.cache, args.no_cache)
     request = replan.parse_request(old, scenario, lost=args.lost, done_file=args.done,
-                                   rv_files=args.rvs, now=args.now)
+                                   rv_files=args.rvs, now=args.now, clock_jd=_clock_jd())
     limit = pipeline.search_limit(scenario, args.time_limit, args.work_limit, replan=True)
     posteriors = fit_with_progress(args, pipeline, scenario, cache)
     saved = pipeline.load_curves(Path(args.plan).parent / "curves.npz")
     result = replan.replan(scenario, posteriors, old, request, strategy=args.strategy,
-                           time_limit_s=limit, reuse=saved)
+                           time_limit_s=limit, reuse=saved,
+                           progress=ProgressBar(sys.stderr, "re-planning"))
     sys.stdout.write(render_schedule(result.plan_file))
     sys.stdout.write(result.changes)
     _write_plan_set(args, pipeline, write_plan, result, result.run, lock, scenario)
     _maybe_night_plot(args, result.run, result)
     return EXIT_OK
+
+
+def _clock_jd() -> float:
+    """Return the time from the system clock, JD (UTC scale): what "now" is without --now."""
+    import time
+
+    return 2440587.5 + time.time() / 86400.0  # Unix time counts UTC days from JD 2440587.5
 
 
 def _configure_logging(args) -> None:

@@ -181,6 +181,9 @@ class PlanFile:
         nightbits version and the input files' digests
         (:func:`planner.workflow.provenance.plan_provenance`); None in plans written before it
         was recorded.
+    now_utc : str or None
+        The present of a re-plan (ISO 8601 UTC): nights before it are past and their visits
+        executed; None for a plan made before the run.
     """
 
     strategy: str
@@ -200,6 +203,7 @@ class PlanFile:
     left_out: tuple = ()
     target_summary: tuple = ()
     provenance: dict | None = None
+    now_utc: str | None = None
 
     def to_json(self) -> str:
         """Return the plan.json text (UTF-8, indented, with a format version)."""

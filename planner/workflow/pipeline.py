@@ -164,26 +164,45 @@ def _as_limit(scenario: Scenario, limit):
     return search_limit(scenario, time_limit_s=limit)
 
 
-def run_strategy(run: PreparedRun, strategy: str, time_limit_s=None):
+def run_strategy(run: PreparedRun, strategy: str, time_limit_s=None, candidates=None):
     """Solve the run's problem with one strategy (``joint``, ``greedy`` or ``cadence``).
 
     ``time_limit_s`` is a :class:`planner.allocation.joint.SearchLimit`, a wall-clock limit in
-    seconds, or None for the scenario's default (:func:`search_limit`).
+    seconds, or None for the scenario's default (:func:`search_limit`). ``candidates`` (indices
+    into ``run.problem``) restricts the search to those candidate visits, for the re-plan at
+    the telescope (:func:`planner.workflow.replan.focus_candidates`); the returned plan indexes
+    the whole problem, and it has no bound, since the solver's bound would hold for the
+    restricted problem only.
     """
     from planner.allocation.cadence import cadence_plan
     from planner.allocation.greedy import greedy_plan
-    from planner.allocation.joint import joint_plan
+    from planner.allocation.joint import FOCUS_GAP_LIMIT, joint_plan
+    from planner.allocation.plan import assemble_plan
 
     solver = run.scenario.solver
+    if strategy not in ("joint", "greedy", "cadence"):
+        raise PlanError(f"unknown strategy {strategy!r}; use joint, greedy or cadence.")
+    problem, surrogate = run.problem, run.surrogate
+    keep = None
+    if candidates is not None:
+        keep = np.unique(np.asarray(candidates, dtype=np.int64))
+        problem, surrogate = problem.subset(keep), surrogate.subset(keep)
     if strategy == "joint":
-        return joint_plan(run.problem, run.surrogate, limit=_as_limit(run.scenario, time_limit_s),
-                          seed=solver.seed, workers=solver.workers,
-                          focus_per_group=JOINT_FOCUS_PER_GROUP)
-    if strategy == "greedy":
-        return greedy_plan(run.problem, run.surrogate)
-    if strategy == "cadence":
-        return cadence_plan(run.problem, run.surrogate)
-    raise PlanError(f"unknown strategy {strategy!r}; use joint, greedy or cadence.")
+        focus = JOINT_FOCUS_PER_GROUP if keep is None else None
+        plan = joint_plan(problem, surrogate, limit=_as_limit(run.scenario, time_limit_s),
+                          seed=solver.seed, workers=solver.workers, focus_per_group=focus,
+                          gap_limit=0.0 if keep is None else FOCUS_GAP_LIMIT)
+    elif strategy == "greedy":
+        plan = greedy_plan(problem, surrogate)
+    else:
+        plan = cadence_plan(problem, surrogate)
+    if keep is None:
+        return plan
+    return assemble_plan(
+        run.problem, keep[plan.candidates], strategy=plan.strategy, objective=plan.objective,
+        marginal_bits=[v.bits for v in plan.visits], bound=None, status=plan.status,
+        runtime_s=plan.runtime_s, seed=plan.seed,
+        stats=plan.stats + (("restricted_candidates", float(keep.size)),))
 
 
 def pack(run: PreparedRun, plan):
@@ -259,7 +278,10 @@ def require_room(run: PreparedRun) -> None:
                         "nothing to plan; give at least one target max_visits: 1 or more.")
     if run.problem.n_candidates > 0:
         return
-    left = sum(uncovered_d(n.dark_start_jd, n.dark_end_jd, run.lost_jd) for n in run.aligned)
+    closed = tuple(run.lost_jd)
+    if run.now_jd is not None:
+        closed += ((min(n.dark_start_jd for n in run.aligned), run.now_jd),)
+    left = sum(uncovered_d(n.dark_start_jd, n.dark_end_jd, closed) for n in run.aligned)
     if left <= 0.0:
         raise PlanError("nothing left to plan: every night of the run is lost or already past "
                         "(--lost, --now), so no new plan was made and the old plan stands.")
@@ -268,16 +290,23 @@ def require_room(run: PreparedRun) -> None:
 
 
 def make_plan(run: PreparedRun, strategy: str | None = None,
-              time_limit_s=None, notes=(), now_jd: float | None = None) -> PlanResult:
+              time_limit_s=None, notes=(), now_jd: float | None = None, candidates=None,
+              progress=None) -> PlanResult:
     """Plan the run with one strategy, pack it, verify it, score it exactly, build its file.
 
-    ``now_jd`` (a re-plan at the telescope) marks the part of each night already past in the
-    plan file, so the schedule counts it as executed or idle rather than lost.
+    ``now_jd`` (a re-plan at the telescope; default ``run.now_jd``) marks the part of each
+    night already past in the plan file, so the schedule counts it as executed or idle rather
+    than lost. ``candidates`` restricts the search (:func:`run_strategy`); ``progress`` is
+    called with the name of each later step.
 
     ``time_limit_s`` is the joint search limit: a
     :class:`planner.allocation.joint.SearchLimit`, a wall-clock limit in seconds, or None for
     the scenario's default (:func:`search_limit`). The plan file records what reproduces the
     plan (:func:`planner.workflow.provenance.plan_provenance`).
+
+    ``candidates`` restricts the strategy to those candidate visits (see :func:`run_strategy`);
+    the plan is still verified and scored on the whole run. ``progress(label)`` is called
+    once the strategy is done, before the check and the exact score.
 
     Raises
     ------
@@ -292,9 +321,13 @@ def make_plan(run: PreparedRun, strategy: str | None = None,
     require_room(run)
     strategy = strategy or run.scenario.solver.strategy
     limit = _as_limit(run.scenario, time_limit_s)
-    packing = pack(run, run_strategy(run, strategy, limit))
+    if now_jd is None:
+        now_jd = run.now_jd
+    packing = pack(run, run_strategy(run, strategy, limit, candidates=candidates))
     run = dataclasses.replace(run, problem=packing.problem, surrogate=packing.surrogate)
     plan = packing.plan
+    if progress is not None:
+        progress("checking and scoring")
     verification = verify(run, plan)
     require_valid(verification)
     marginals, target_bits = exact_marginals(run, plan)

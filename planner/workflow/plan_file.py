@@ -186,4 +186,4 @@ def build_plan_file(run: PreparedRun, plan, marginals, target_bits, total_bits, 
         target_bits=per_target, nights=nights, visits=tuple(all_visits), notes=tuple(notes),
         objective_bits=round(float(plan.objective), 5), left_out=left_out(run),
         target_summary=account_targets(run, plan, marginals, target_bits),
-        provenance=provenance)
+        provenance=provenance, now_utc=None if now_jd is None else format_utc(now_jd))

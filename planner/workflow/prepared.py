@@ -32,6 +32,12 @@ log = logging.getLogger(__name__)
 CANDIDATE_STARTS = 40
 CANDIDATE_SPACING_MIN = 5
 
+#: Times per star, and simulated outcomes, at which the share of a star's one-visit bits left
+#: by executed visits without velocities is computed exactly to calibrate the Gaussian share
+#: (:func:`planner.information.pending.calibrate_share`; docs/decisions.md).
+CALIBRATION_TIMES = 4
+CALIBRATION_OUTCOMES = 32
+
 
 @dataclass(frozen=True)
 class PreparedRun:
@@ -58,8 +64,9 @@ class PreparedRun:
     exposures : tuple of float
         The exposure options of the run [s] (union of every target's).
     observable, bits, sigma : ndarray, shape (n_options, n_targets, n_sky)
-        On the sky grid: observable starts, one-visit expected bits (conditional on executed
-        visits without velocities), measurement noise [m/s].
+        On the sky grid: observable starts, one-visit expected bits (given executed visits
+        without velocities, by the linear-Gaussian share, :mod:`planner.information.pending`),
+        measurement noise [m/s].
     problem : planner.allocation.problem.Problem
     surrogate : planner.allocation.surrogate.Surrogate
     lost_jd : tuple of (float, float)
@@ -69,6 +76,13 @@ class PreparedRun:
     excluded : tuple of planner.sky.observability.Exclusion
         The targets that can never be observed in this run (each with its binding limit), in
         scenario order; they get no candidate visit and the plan goes on without them.
+    exact_bits : ndarray, shape (n_options, n_targets, n_sky), optional
+        The exact one-visit bits ignoring executed visits (``bits`` before their share is
+        taken off; what :func:`planner.workflow.saved_curves.save_curves` keeps). None: as
+        ``bits``.
+    now_jd : float or None
+        The present of a re-plan, JD UTC: time before it is past (executed or idle), closed
+        but not lost.
     """
 
     scenario: Scenario
@@ -92,6 +106,8 @@ class PreparedRun:
     lost_jd: tuple = ()
     done: tuple = ()
     excluded: tuple = ()
+    exact_bits: np.ndarray | None = None
+    now_jd: float | None = None
 
 
 def shortest_exposures(scenario: Scenario) -> np.ndarray:
@@ -100,7 +116,8 @@ def shortest_exposures(scenario: Scenario) -> np.ndarray:
 
 
 def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict: bool = False,
-            seed: int | None = None, jobs: int | None = None, reuse=None) -> PreparedRun:
+            seed: int | None = None, jobs: int | None = None, reuse=None,
+            now_jd: float | None = None, progress=None) -> PreparedRun:
     """Compute the sky, limits, noise, information and candidate visits of a run.
 
     Parameters
@@ -122,6 +139,10 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
         (:class:`planner.information.streams.Streams`; default: the solver seed).
     jobs : int, optional
         Worker processes for the information curves (None: every core; 1: this process).
+    now_jd : float, optional
+        The present (a re-plan): nothing may start before it; the past is not lost time.
+    progress : callable, optional
+        ``progress(done, total, label)`` before each step.
     reuse : dict, optional
         Curves saved with an earlier plan (:func:`planner.workflow.saved_curves.load_curves`): a
         target whose posterior and grid are unchanged, and whose observable starts are a subset
@@ -141,13 +162,16 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
     from planner.sky.tracks import compute_sky
     from planner.workflow.outputs import parse_utc
 
+    report = progress or (lambda done, total, label: None)
+    report(0, 4, "sky and limits")
     site, nights, aligned, moon_table, instrument, mount = physical_setup(scenario)
     targets = scenario.targets
     sky = compute_sky(site, aligned, [t.ra_deg for t in targets], [t.dec_deg for t in targets],
                       step_s=scenario.sky.step_s, names=[t.id for t in targets])
     grid = run_grid(sky, aligned)
     busy = [(parse_utc(v.start_utc) - v.slew_s / 86400.0, parse_utc(v.end_utc)) for v in done]
-    closed = tuple(scenario.constraints.blackouts) + tuple(lost_jd) + tuple(busy)
+    past = () if now_jd is None else ((min(n.sunset_jd for n in nights) - 1.0, float(now_jd)),)
+    closed = tuple(scenario.constraints.blackouts) + tuple(lost_jd) + past + tuple(busy)
     airmass_limits = tuple(t.max_airmass or scenario.constraints.max_airmass for t in targets)
     constraints = Constraints(max_airmass=airmass_limits, moon_table=moon_table,
                               blackouts=closed,
@@ -162,13 +186,22 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
     predictors = tuple(Predictor.from_posterior(posteriors[t.id], scenario.instrument.name)
                        for t in targets)
     streams = Streams(scenario.solver.seed if seed is None else seed)
+    report(1, 4, "information curves")
     saved = reusable_curves(reuse, scenario, sky, exposures, observable, posteriors)
-    bits = _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, done,
-                 streams, jobs, saved)
+    bits, exact_bits = _bits(scenario, sky, instrument, predictors, exposures, observable, sigma,
+                             done, streams, jobs, saved)
+    # Executed visits count against a star's visits in the run (not against its visits per
+    # night: the rule has one limit for every night).
+    kept = {t.id: 0 for t in targets}
+    for visit in done:
+        kept[visit.target] = kept.get(visit.target, 0) + 1
     rules = tuple(TargetRules(
-        min_visits=t.min_visits, max_visits=t.max_visits, max_per_night=t.max_visits_per_night,
+        min_visits=max(0, t.min_visits - kept[t.id]),
+        max_visits=None if t.max_visits is None else max(0, t.max_visits - kept[t.id]),
+        max_per_night=t.max_visits_per_night,
         min_spacing_min=int(round(t.min_gap_h * 60.0)), weight=t.weight,
         windows_jd=tuple(t.windows), must_windows_jd=tuple(t.must_windows)) for t in targets)
+    report(2, 4, "candidate visits")
     default = scenario.exposures.options_s[0]
     problem = build_problem(
         times_jd=grid.times_jd, night_index=grid.night_index,
@@ -182,6 +215,7 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
         slew=mount_slew(mount),
         overhead_s=mount.overhead_s(), default_option=exposures.index(default),
         keep_per_night=CANDIDATE_STARTS, thin_spacing_min=CANDIDATE_SPACING_MIN)
+    report(3, 4, "the solver's objective")
     surrogate = build_surrogate(problem, predictors, streams=streams)
     log.info("prepared %d targets, %d nights, %d candidate visits", len(targets), len(aligned),
              problem.n_candidates)
@@ -190,7 +224,8 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
                        instrument=instrument, mount=mount, posteriors=dict(posteriors),
                        predictors=predictors, exposures=exposures, observable=observable,
                        bits=bits, sigma=sigma, problem=problem, surrogate=surrogate,
-                       lost_jd=tuple(lost_jd), done=tuple(done), excluded=excluded)
+                       lost_jd=tuple(lost_jd), done=tuple(done), excluded=excluded,
+                       exact_bits=exact_bits, now_jd=None if now_jd is None else float(now_jd))
 
 
 def _excluded(scenario, sky, constraints, strict: bool) -> tuple:
@@ -222,14 +257,20 @@ def _curve_bits(args) -> np.ndarray:
 
 def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, done,
           streams, jobs=None, saved=None) -> np.ndarray:
-    """One-visit expected bits on the sky grid, conditional on executed visits without data.
+    """One-visit expected bits on the sky grid, given executed visits without data.
 
-    The unconditional curves of the targets are independent and computed in ``jobs`` worker
-    processes (None: every core).
+    The exact curves of the targets are independent and computed in ``jobs`` worker processes
+    (None: every core), or taken from ``saved``. For a target with executed visits whose
+    velocities are not yet in its posterior, the curve is scaled by the linear-Gaussian share
+    of it those visits leave (:mod:`planner.information.pending`): measured on the demo, the
+    exact Monte Carlo conditional curves took 240 s of a 270 s re-plan (docs/decisions.md).
+    The share is calibrated on the exact Monte Carlo value at ``CALIBRATION_TIMES`` times per
+    star (each star's stream of ``streams`` draws its outcomes).
     """
     from concurrent.futures import ProcessPoolExecutor
 
     from planner.information.gain import conditional_bits
+    from planner.information.pending import calibrate_share, gaussian_share
     from planner.workflow.outputs import parse_utc
 
     bits = np.zeros(observable.shape)
@@ -239,9 +280,8 @@ def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, d
             pending.setdefault(visit.target, []).append(visit)
     saved = saved or {}
     for s, target_bits in saved.items():
-        if scenario.targets[s].id not in pending:
-            bits[:, s] = np.where(observable[:, s], target_bits, 0.0)
-    plain = [s for s, t in enumerate(scenario.targets) if t.id not in pending and s not in saved]
+        bits[:, s] = np.where(observable[:, s], target_bits, 0.0)
+    plain = [s for s in range(len(scenario.targets)) if s not in saved]
     work = [(predictors[s], sky.bjd_tdb[s], sigma[:, s], observable[:, s], exposures,
              sky.times_jd, scenario.targets[s].id) for s in plain]
     workers = max(1, min(jobs or os.cpu_count() or 1, len(work)))
@@ -252,23 +292,47 @@ def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, d
         curves = [_curve_bits(item) for item in work]
     for s, curve in zip(plain, curves, strict=True):
         bits[:, s] = curve
+    exact = bits.copy()
     for s, target in enumerate(scenario.targets):
         if target.id not in pending:
             continue
         predictor = predictors[s]
-        jitter2 = predictor.jitter[:, None] ** 2
+        jitter2 = float(np.mean(predictor.jitter ** 2))
         rng = streams.star("conditional", target.id)
+        set_pred, set_sigma = visit_predictions(scenario, sky, instrument, predictor, s,
+                                                 pending[target.id], parse_utc)
+        set_var = np.mean(set_sigma ** 2, axis=0)
+        shares, factor = [], None
         for o, e in enumerate(exposures):
             cols = np.flatnonzero(observable[o, s])
             if cols.size == 0:
                 continue
             mid = mid_exposure_columns(sky, e)[cols]
             predicted = predictor.velocities(sky.bjd_tdb[s, mid])
-            total = np.sqrt(sigma[o, s, mid][None, :] ** 2 + jitter2)
-            set_pred, set_sigma = visit_predictions(scenario, sky, instrument, predictor, s,
-                                                     pending[target.id], parse_utc)
-            bits[o, s, cols] = conditional_bits(set_pred, set_sigma, predicted, total, rng)
-    return bits
+            noise = sigma[o, s, mid] ** 2 + jitter2
+            share = gaussian_share(set_pred, set_var, predicted, noise)
+            if factor is None:  # calibrated once per star, on its first option
+                at = _calibration_columns(bits[o, s, cols])
+                plain_at = bits[o, s, cols[at]]
+                total = np.sqrt(sigma[o, s, mid[at]][None, :] ** 2
+                                + predictor.jitter[:, None] ** 2)
+                given = conditional_bits(set_pred, set_sigma, predicted[:, at], total, rng,
+                                         CALIBRATION_OUTCOMES)
+                exact_at = np.divide(given, plain_at, out=np.ones(at.size),
+                                     where=plain_at > 1e-9)
+                factor = (share[at], exact_at)
+            shares.append((o, cols, calibrate_share(share, *factor)))
+        for o, cols, share in shares:
+            bits[o, s, cols] = bits[o, s, cols] * share
+    return bits, exact
+
+
+def _calibration_columns(bits: np.ndarray) -> np.ndarray:
+    """Up to ``CALIBRATION_TIMES`` positions among ``bits``: the best, then lower quantiles."""
+    order = np.argsort(-bits, kind="stable")
+    ranks = np.unique((np.arange(CALIBRATION_TIMES) * order.size) // CALIBRATION_TIMES)
+    picked = order[ranks]
+    return np.sort(picked[bits[picked] > 1e-9]) if np.any(bits[picked] > 1e-9) else picked[:1]
 
 
 def visit_predictions(scenario, sky, instrument, predictor, s, visits, parse_utc):

@@ -33,12 +33,20 @@ import numpy as np
 from planner.errors import PlanError
 from planner.workflow.outputs import PlanFile, ScheduledVisit, format_utc, parse_utc
 
-__all__ = ["ReplanRequest", "ReplanResult", "check_scenario_matches", "parse_request",
-           "read_new_velocities", "recorded_scenario", "replan"]
+__all__ = ["LATER_PER_GROUP", "ReplanRequest", "ReplanResult", "check_scenario_matches",
+           "focus_candidates", "parse_request", "read_new_velocities", "recorded_scenario",
+           "replan", "tonight_index", "update_sentence"]
 
 log = logging.getLogger(__name__)
 
 _MATCH_D = 61.0 / 86400.0  # a --done row matches a planned visit starting within a minute
+
+#: At the telescope (``--now`` between a night's sunset and sunrise) the rest of tonight is
+#: searched over every candidate visit, and each later night over the old plan's visits and
+#: the best ``LATER_PER_GROUP`` starts per (star, night, exposure option); in daytime the
+#: whole rest of the run is searched. Measured on the demo (docs/decisions.md): the re-plan at
+#: 03:00 UTC of night 1 took 22.7 s with the whole search, under half a cached plan with this.
+LATER_PER_GROUP = 3
 
 
 @dataclass(frozen=True)
@@ -54,9 +62,12 @@ class ReplanRequest:
     done : tuple of ScheduledVisit
         Executed visits (status ``done``), in time order.
     now_jd : float or None
-        The present, JD UTC; nothing may be planned before it.
+        The present, JD UTC; nothing may be planned before it (:func:`parse_request` says
+        what it is when ``--now`` is not given).
     new_data : dict of str to inference.data.RVData
         New velocities per target.
+    now_from_clock : bool
+        True when ``now_jd`` is the time the command ran, not a ``--now``.
     """
 
     lost_jd: tuple
@@ -64,6 +75,7 @@ class ReplanRequest:
     done: tuple
     now_jd: float | None
     new_data: dict
+    now_from_clock: bool = False
 
 
 @dataclass(frozen=True)
@@ -176,14 +188,17 @@ def check_scenario_matches(old: PlanFile, scenario, plan_path: str | Path) -> No
 
 
 def _lost_items(old: PlanFile, lost) -> tuple[list, list]:
+    from planner.workflow.moments import parse_moment
+
     nights = {n.date: n for n in old.nights}
+    zone = (old.site or {}).get("timezone") or "UTC"
     spans, labels = [], []
     for item in lost:
         text = str(item).strip()
         if "/" in text:
             start_text, end_text = text.split("/", 1)
-            a = parse_utc(start_text, f"--lost {text}")
-            b = parse_utc(end_text, f"--lost {text}")
+            a = parse_moment(start_text, zone, f"--lost {text}: the start")
+            b = parse_moment(end_text, zone, f"--lost {text}: the end")
             if b <= a:
                 raise PlanError(f"--lost {text}: the interval ends before it starts; give "
                                 "START/END with the start first.")
@@ -201,8 +216,9 @@ def _lost_items(old: PlanFile, lost) -> tuple[list, list]:
             labels.append(f"the night of {text}")
         else:
             dates = ", ".join(nights)
-            raise PlanError(f"--lost {text}: not a night of this plan ({dates}) nor a UTC "
-                            "interval START/END such as 2027-10-06T02:00Z/2027-10-06T04:30Z.")
+            raise PlanError(f"--lost {text}: not a night of this plan ({dates}) nor an interval "
+                            "START/END such as 2027-10-06T02:00Z/2027-10-06T04:30Z or "
+                            "'2027-10-05 23:00 local/2027-10-06 01:30 local'.")
     for night in old.nights:  # what the plan file already gave up, and what is already past
         spans.extend((parse_utc(a), parse_utc(b)) for a, b in night.lost + night.past)
     return spans, labels
@@ -232,31 +248,54 @@ def _done_rows(path: Path, old: PlanFile) -> list[ScheduledVisit]:
 
 
 def read_new_velocities(path: str | Path, scenario) -> dict:
-    """Read new velocities per target from a CSV: target, time, rv, rv_err[, instrument].
+    """Read new velocities per target from a CSV, an observing log or a list of velocities.
+
+    Columns: ``target``, ``rv`` and ``rv_err`` [m/s], ``instrument`` (optional) and the time,
+    either ``time`` (BJD_TDB) or ``mid_utc`` (the UTC instant of mid-exposure, ISO with ``Z``
+    or an offset, or local to the site with ``local``), converted to BJD_TDB for the target
+    (:func:`planner.sky.barycentric.bjd_tdb_from_utc`). Rows with an empty ``rv`` are
+    exposures whose velocity is not reduced yet, and are skipped, so the same observing log
+    can be given to ``--done`` (which reads ``target`` and ``start_utc``) and to ``--rvs``.
 
     Raises
     ------
     PlanError
-        If the file is unreadable, lacks a column, or names an unknown target.
+        If the file is unreadable, lacks a column, holds no velocity, or names an unknown
+        target.
     """
     from inference.data import RVData, check_bjd
+    from planner.workflow.moments import parse_moment
 
     path = Path(path)
     rows = _csv_rows(path, "--rvs")
-    need = {"target", "time", "rv", "rv_err"}
-    if not rows or not need <= set(rows[0]):
-        raise PlanError(f"--rvs {path}: needs a header with the columns target, time (BJD_TDB), "
-                        "rv and rv_err (m/s), and at least one row.")
+    columns = set(rows[0]) if rows else set()
+    if not ({"target", "rv", "rv_err"} <= columns and columns & {"time", "mid_utc"}):
+        raise PlanError(f"--rvs {path}: needs a header with the columns target, rv and rv_err "
+                        "(m/s) and a time, either time (BJD_TDB) or mid_utc (UTC mid-exposure), "
+                        "and at least one row.")
+    zone = scenario.site.timezone
     groups: dict[str, list] = {}
     for line, row in enumerate(rows, start=2):
-        scenario.target(row["target"])  # a ScenarioError with a did-you-mean if unknown
+        if not (row.get("rv") or "").strip():
+            continue  # an exposure without a velocity yet (an observing-log row)
+        target = scenario.target(row["target"])  # a ScenarioError with a did-you-mean
         try:
-            values = tuple(float(row[key]) for key in ("time", "rv", "rv_err"))
+            rv, err = float(row["rv"]), float(row["rv_err"])
+            bjd = float(row["time"]) if (row.get("time") or "").strip() else None
         except (TypeError, ValueError):
             raise PlanError(f"--rvs {path} line {line}: time, rv and rv_err must be "
                             "numbers.") from None
+        if bjd is None:
+            if not (row.get("mid_utc") or "").strip():
+                raise PlanError(f"--rvs {path} line {line}: give the velocity's time, as time "
+                                "(BJD_TDB) or mid_utc (UTC mid-exposure).")
+            mid = parse_moment(row["mid_utc"], zone, f"--rvs {path} line {line}: mid_utc")
+            bjd = float(_bjd_tdb(scenario, target, mid))
         instrument = (row.get("instrument") or scenario.instrument.name).strip()
-        groups.setdefault(row["target"], []).append((*values, instrument))
+        groups.setdefault(target.id, []).append((bjd, rv, err, instrument))
+    if not groups:
+        raise PlanError(f"--rvs {path}: no row has a velocity (the rv column is empty "
+                        "everywhere); fill in rv and rv_err of the reduced exposures.")
     data = {}
     for target, items in groups.items():
         time, rv, err, inst = zip(*items, strict=True)
@@ -322,9 +361,28 @@ def check_new_velocities(posteriors: dict, new_data: dict) -> None:
                     "row out.")
 
 
+def _bjd_tdb(scenario, target, mid_jd: float) -> float:
+    import astropy.units as u
+    from astropy.coordinates import EarthLocation
+
+    from planner.sky.barycentric import bjd_tdb_from_utc
+
+    site = scenario.site
+    location = EarthLocation.from_geodetic(site.longitude_deg * u.deg, site.latitude_deg * u.deg,
+                                           site.elevation_m * u.m)
+    return bjd_tdb_from_utc(location, target.ra_deg, target.dec_deg, [mid_jd])[0]
+
+
 def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=(),
-                  now=None) -> ReplanRequest:
+                  now=None, clock_jd: float | None = None) -> ReplanRequest:
     """Turn the command's options into a :class:`ReplanRequest` (checked against the old plan).
+
+    What "now" is: the ``now`` given (``--now``: UTC, an offset or the site's local time,
+    :mod:`planner.workflow.moments`); else ``clock_jd``, the time the command runs (the CLI
+    passes the system clock), when it falls after the run's first sunset; else there is no
+    past. The plan's own ``now_utc`` (an earlier re-plan) is the earliest now allowed. Planned
+    visits that started before now outside lost time count as executed, and nothing new starts
+    before it; the past is not lost time.
 
     Raises
     ------
@@ -332,12 +390,25 @@ def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=
         If an option is malformed or does not fit the plan, if nothing is asked, or if the
         lost and past time leave no dark time to plan.
     """
+    from planner.workflow.moments import parse_moment
+
     spans, labels = _lost_items(old, lost)
-    now_jd = None if now is None else parse_utc(now, "--now")
-    if now_jd is not None and now_jd < parse_utc(old.nights[0].sunset_utc):
+    zone = (old.site or {}).get("timezone") or "UTC"
+    first_sunset = min(parse_utc(n.sunset_utc) for n in old.nights)
+    now_jd = None if now is None else parse_moment(now, zone, "--now")
+    if now_jd is not None and now_jd < first_sunset:
         raise PlanError(f"--now {now}: {format_utc(now_jd)} is before the run's first sunset "
-                        f"({old.nights[0].sunset_utc}), so nothing can have been executed; "
+                        f"({format_utc(first_sunset)}), so nothing can have been executed; "
                         "check the date, or leave out --now.")
+    from_clock = now_jd is None and clock_jd is not None and clock_jd > first_sunset
+    if from_clock:
+        now_jd = float(clock_jd)
+    if old.now_utc:
+        before = parse_utc(old.now_utc)
+        if now_jd is not None and now_jd < before - _MATCH_D and not from_clock:
+            raise PlanError(f"--now {now}: the plan was already re-planned as of "
+                            f"{old.now_utc}; give a later time.")
+        now_jd = before if now_jd is None else max(now_jd, before)
     done = [v for v in old.visits if v.status != "planned"]
     if done_file:
         done += _done_rows(Path(done_file), old)
@@ -348,28 +419,30 @@ def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=
                   key=lambda v: v.start_utc)
     kept = tuple(dataclasses.replace(v, status="done") if v.status == "planned" else v
                  for v in kept)
-    if now_jd is not None:  # the past is closed
-        spans.append((min(parse_utc(n.sunset_utc) for n in old.nights), now_jd))
     new_data = {}
     for path in rv_files:
         for target, data in read_new_velocities(path, scenario).items():
             new_data[target] = data if target not in new_data else new_data[target].concat(data)
-    if not (spans or kept or new_data):
+    if not (spans or kept or new_data or now_jd is not None):
         raise PlanError("nothing to re-plan: give lost time (--lost), executed visits (--done "
                         "or --now) or new velocities (--rvs).")
     from planner.workflow.pipeline import uncovered_d
 
-    if not any(uncovered_d(parse_utc(n.dark_start_utc), parse_utc(n.dark_end_utc), spans) > 0
+    closed = list(spans) + ([] if now_jd is None else [(first_sunset, now_jd)])
+    if not any(uncovered_d(parse_utc(n.dark_start_utc), parse_utc(n.dark_end_utc), closed) > 0
                for n in old.nights):
+        clock = (f" (now is {format_utc(now_jd)}, the time of this command; give --now to "
+                 "re-plan as of another time)") if from_clock else ""
         raise PlanError("nothing left to plan: every night of the run is lost or already past "
-                        "(--lost, --now), so no new plan was made and the old plan stands.")
+                        f"(--lost, --now){clock}, so no new plan was made and the old plan "
+                        "stands.")
     return ReplanRequest(lost_jd=tuple(spans), lost_labels=tuple(labels), done=kept,
-                         now_jd=now_jd, new_data=new_data)
+                         now_jd=now_jd, new_data=new_data, now_from_clock=from_clock)
 
 
 def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
            strategy: str | None = None, time_limit_s: float | None = None,
-           reuse=None) -> ReplanResult:
+           reuse=None, progress=None) -> ReplanResult:
     """Plan the rest of the run after lost time, executed visits and new velocities.
 
     Parameters
@@ -389,6 +462,8 @@ def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
         Solver limit: wall-clock seconds or a SearchLimit (default: the scenario's re-plan
         limit, :func:`planner.workflow.pipeline.search_limit` with ``replan=True``, shorter
         than the planning limit because observers re-plan at the telescope).
+    progress : callable, optional
+        ``progress(done, total, label)`` before each step (7 steps).
 
     Returns
     -------
@@ -401,6 +476,9 @@ def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
 
     check_new_velocities(posteriors, request.new_data)
     streams = Streams(scenario.solver.seed)
+    report = progress or (lambda done, total, label: None)
+    steps = 7
+    report(0, steps, "new velocities" if request.new_data else "executed visits")
     posteriors, updates = dict(posteriors), {}
     for target_id, data in request.new_data.items():
         target = scenario.target(target_id)
@@ -411,14 +489,106 @@ def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
     done = tuple(dataclasses.replace(v, status="measured") if v.target in request.new_data
                  else v for v in request.done)
     run = pipeline.prepare(scenario, posteriors, lost_jd=request.lost_jd, done=done,
-                           strict=False, reuse=reuse)
+                           strict=False, reuse=reuse, now_jd=request.now_jd,
+                           progress=lambda done, total, label: report(1 + done, steps, label))
     limit = (pipeline.search_limit(scenario, replan=True) if time_limit_s is None
              else time_limit_s)
-    result = pipeline.make_plan(run, strategy or old.strategy, limit, now_jd=request.now_jd)
+    pipeline.require_room(run)
+    focus = focus_candidates(run, old, request.now_jd)
+    notes = ()
+    if focus is not None:
+        notes = (f"at the telescope: the rest of tonight was searched over every candidate "
+                 f"visit, later nights among the old plan's visits and the {LATER_PER_GROUP} "
+                 "best starts per star, night and exposure; a daytime re-plan (--now between "
+                 "nights) searches them all.",)
+    searched = pipeline.search_limit(scenario, time_limit_s=limit) if not hasattr(
+        limit, "deterministic") else limit
+    report(5, steps, "solving (" + (f"work limit {searched.work:g}" if searched.deterministic
+                                    else f"at most {searched.seconds:g} s") + ")")
+    result = pipeline.make_plan(run, strategy or old.strategy, limit, notes=notes,
+                                candidates=focus, now_jd=request.now_jd,
+                                progress=lambda label: report(6, steps, label))
+    report(steps, steps, "done")
     changes = describe_changes(old, result.plan_file, request, updates)
     changes += settings_note(old, result.plan_file)
     return ReplanResult(plan_file=result.plan_file, changes=changes, plan=result.plan, run=run,
                         updates=updates)
+
+
+def tonight_index(nights, now_jd: float | None) -> int | None:
+    """Index of the night whose sunset-to-sunrise span holds ``now_jd`` (None: daytime or none).
+
+    Parameters
+    ----------
+    nights : sequence of planner.sky.site.Night
+        The run's nights (true sunset and sunrise, JD UTC).
+    now_jd : float or None
+        The present, JD UTC.
+    """
+    if now_jd is None:
+        return None
+    for k, night in enumerate(nights):
+        if night.sunset_jd <= now_jd < night.sunrise_jd:
+            return k
+    return None
+
+
+def focus_candidates(run, old: PlanFile, now_jd: float | None,
+                     per_group: int = LATER_PER_GROUP):
+    """Candidate visits of the re-plan at the telescope, or None to search them all.
+
+    Every candidate of tonight (the night holding ``now_jd``) is kept; of each later night, the
+    candidates of the old plan's visits (same star and exposure, start within a minute) and the
+    ``per_group`` best by the solver's objective per (star, night, exposure option).
+
+    Returns
+    -------
+    ndarray of int or None
+        Indices into ``run.problem``; None when ``now_jd`` is not inside a night.
+    """
+    tonight = tonight_index(run.nights, now_jd)
+    if tonight is None:
+        return None
+    problem, surrogate = run.problem, run.surrogate
+    keep = problem.night == tonight
+    later = np.flatnonzero(problem.night > tonight)
+    if later.size:
+        group = ((problem.target[later] * problem.n_nights + problem.night[later])
+                 * problem.exposure_s.size + problem.option[later])
+        order = np.lexsort((-surrogate.unary[later], group))
+        first = np.r_[0, np.flatnonzero(np.diff(group[order])) + 1]
+        rank = np.arange(order.size) - np.repeat(first, np.diff(np.r_[first, order.size]))
+        keep[later[order[rank < per_group]]] = True
+    index = {name: s for s, name in enumerate(problem.target_names)}
+    for visit in old.visits:
+        if visit.status != "planned" or visit.target not in index:
+            continue
+        start = parse_utc(visit.start_utc)
+        match = np.flatnonzero((problem.target == index[visit.target])
+                               & (problem.night > tonight)
+                               & (np.abs(problem.start_jd_grid - start) <= _MATCH_D)
+                               & (problem.exposure_s[problem.option] == visit.exposure_s))
+        keep[match] = True
+    return np.flatnonzero(keep)
+
+
+def update_sentence(target: str, n_new: int, update) -> str:
+    """Say in plain words how new velocities changed a star's posterior and what it means.
+
+    The effective sample size (Kish 1965) is the number of equally weighted samples the
+    reweighted ones are worth; as a share of the samples it says how much of the old posterior
+    the new velocities left standing.
+    """
+    share = update.ess_fraction
+    shown = f"{share:.0%}" if share >= 0.01 else f"{share:.1%}"
+    if update.method == "refit":
+        return (f"new velocities for {target}: {n_new} folded in; they rule out most of its "
+                f"earlier orbit samples (the rest are worth {shown} of them, effective samples), "
+                "so its orbit was sampled again from all its velocities and its later visits "
+                "are valued under the new fit.")
+    return (f"new velocities for {target}: {n_new} folded in by reweighting its orbit samples; "
+            f"they still stand for {shown} of the samples (effective samples), enough to value "
+            "its later visits without a new fit.")
 
 
 def describe_changes(old: PlanFile, new: PlanFile, request: ReplanRequest, updates) -> str:
@@ -428,12 +598,13 @@ def describe_changes(old: PlanFile, new: PlanFile, request: ReplanRequest, updat
     if request.lost_labels:
         lines.append("lost: " + "; ".join(request.lost_labels) + ".")
     if request.now_jd is not None:
-        lines.append(f"now: {format_utc(request.now_jd)}; nothing is planned before it.")
+        source = " (the time of this command)" if request.now_from_clock else ""
+        lines.append(f"now: {format_utc(request.now_jd)}{source}; planned visits before it "
+                     "count as executed, nothing new starts before it.")
     if request.done:
         lines.append(f"executed and kept: {len(request.done)} exposures.")
     for target, update in updates.items():
-        lines.append(f"new velocities for {target}: {len(request.new_data[target])} folded in "
-                     f"by {update.method} (effective samples {update.ess_fraction:.0%}).")
+        lines.append(update_sentence(target, len(request.new_data[target]), update))
     old_keys = {(v.target, v.start_utc) for v in old.visits}
     new_keys = {(v.target, v.start_utc) for v in new.visits}
     dropped = sorted(old_keys - new_keys, key=lambda k: k[1])
@@ -448,6 +619,9 @@ def describe_changes(old: PlanFile, new: PlanFile, request: ReplanRequest, updat
         bb, ba = old.target_bits.get(target, 0.0), new.target_bits[target]
         if nb != na or abs(bb - ba) > 0.005:
             rows.append(f"  {target:<{width}}  {nb:>6} -> {na:<6}      {bb:>6.2f} -> {ba:.2f}")
+    import textwrap
+
+    lines = [textwrap.fill(line, width=100, subsequent_indent="  ") for line in lines]
     if rows:
         lines += ["changed targets:", header, *rows]
     return "\n".join(lines) + "\n"

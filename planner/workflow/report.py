@@ -31,6 +31,7 @@ from planner.workflow.outputs import PlanFile, ScheduledVisit, parse_utc
 __all__ = [
     "CAUTION",
     "WIDTH",
+    "bound_sentence",
     "curves_summary",
     "fit_summary",
     "left_out_lines",
@@ -114,7 +115,8 @@ def render_schedule(plan: PlanFile) -> str:
     zone = ZoneInfo(plan.site["timezone"])
     site = plan.site
     out = [f"nightbits schedule: {plan.run_name}"[:WIDTH],
-           f"strategy {plan.strategy}; times local ({site['timezone']}) and UTC"[:WIDTH],
+           (f"strategy {plan.strategy}; times local ({site['timezone']}, "
+            f"{_offsets(plan)}) and UTC")[:WIDTH],
            (f"site {site.get('name', '')}: latitude {site['latitude_deg']:.3f} deg, longitude "
             f"{site['longitude_deg']:.3f} deg, {site['elevation_m']:.0f} m")[:WIDTH],
            *_wrap(f"limits: airmass up to {plan.max_airmass:.2f}; dark while the Sun is below "
@@ -135,7 +137,8 @@ def render_schedule(plan: PlanFile) -> str:
         visits = sorted(by_night.get(night.date, []), key=lambda v: parse_utc(v.start_utc))
         body, running = _night_body(night, visits, running, zone)
         day = _dt.date.fromisoformat(night.date).strftime("%a %Y-%m-%d")
-        out.append(f"== night {index} of {n_nights}: evening of {day} ".ljust(WIDTH, "="))
+        out.append(f"== night {index} of {n_nights}: evening of {day} {_past(plan, night, zone)}"
+                   .ljust(WIDTH, "="))
         out.append(f"sunset {_both(night.sunset_utc, zone)}   sunrise "
                    f"{_both(night.sunrise_utc, zone)}")
         out.append(f"dark {_span(night.dark_start_utc, night.dark_end_utc, zone)}")
@@ -148,13 +151,10 @@ def render_schedule(plan: PlanFile) -> str:
         out.extend(body)
         out.append("")
     done = sum(v.status != "planned" for v in plan.visits)
-    bound = ""
-    if plan.bound_bits is not None and plan.objective_bits is not None:
-        bound = (f"; on the solver's own surrogate objective this plan has "
-                 f"{plan.objective_bits:.2f} bits and no plan can exceed {plan.bound_bits:.2f}")
+    bound = f"; {bound_sentence(plan)}"
     summary = (f"run total: {len(plan.visits)} exposures over {n_nights} nights"
                f"{f' ({done} executed)' if done else ''}, {running:.2f} bits by the visit "
-               f"marginals; exact joint score {plan.total_bits:.2f} bits{bound}.")
+               f"marginals; exact joint score {plan.total_bits:.2f} bits{bound}")
     out.extend(_wrap(summary, "  "))
     if done:
         out.append("lines marked * were executed and are kept as they were observed.")
@@ -232,6 +232,58 @@ def _night_total(night, visits, bits: float) -> list[str]:
         split += (f" + executed {_hm_min(minutes['executed exposing'])} exposing and "
                   f"{_hm_min(minutes['executed overheads'])} overheads")
     return [f"{head}; {bits:.3f} bits", *("  " + line for line in _wrap(split, "  "))]
+
+
+def _offsets(plan: PlanFile) -> str:
+    """Give the zone's UTC offset over the run: one, or each from the first night it holds."""
+    from planner.workflow.moments import zone_offsets
+
+    starts = [parse_utc(n.dark_start_utc) for n in plan.nights]
+    offsets = zone_offsets(plan.site["timezone"], starts)
+    if len(set(offsets)) <= 1:
+        return offsets[0] if offsets else "UTC+00:00"
+    parts = [offsets[0]]
+    for k in range(1, len(offsets)):
+        if offsets[k] != offsets[k - 1]:
+            parts.append(f"{offsets[k]} from the night of {plan.nights[k].date}")
+    return ", ".join(parts)
+
+
+def _past(plan: PlanFile, night, zone: ZoneInfo) -> str:
+    """Mark a night before the plan's present: executed, or executed up to now."""
+    if not plan.now_utc:
+        return ""
+    now = parse_utc(plan.now_utc)
+    if now >= parse_utc(night.dark_end_utc):
+        return "(past: executed, not re-planned) "
+    if now > parse_utc(night.dark_start_utc):
+        moment = _moment(plan.now_utc)
+        return f"(executed up to now, {_hm(moment, zone)} = {moment.strftime('%H:%M')} UTC) "
+    return ""
+
+
+def bound_sentence(plan: PlanFile) -> str:
+    """Say in one sentence what the solver proved about how far the plan is from the best.
+
+    The solver's bound is on its own objective (the redundancy-aware surrogate of the new
+    visits), not on the exact score, so it is given as a share of that objective: never a
+    number that could read as below the plan's value.
+    """
+    bound, objective = plan.bound_bits, plan.objective_bits
+    if bound is None or objective is None:
+        return ("the solver proved no bound on how much better another plan could be (it "
+                "stopped before proving one, searched part of the candidates only, or does "
+                "not search).")
+    if objective <= 0:
+        return "the solver's objective is zero for this plan, so no share can be given."
+    gain = max(bound - objective, 0.0) / objective
+    if gain < 0.0005:
+        return "the solver proved this plan the best on its own objective."
+    if gain > 1.0:
+        return ("the solver's bound is too weak to say how close this plan is to the best "
+                f"(it allows a plan {gain:.0%} better on its own objective).")
+    return (f"the solver proved that no plan is more than {gain:.1%} better on its own "
+            "objective (the surrogate it optimises).")
 
 
 def _night_body(night, visits, running, zone):

@@ -31,7 +31,8 @@ def curves_bytes(run: PreparedRun) -> bytes:
         buffer, times_jd=run.sky.times_jd, exposures=np.asarray(run.exposures),
         targets=np.array([t.id for t in run.scenario.targets]),
         keys=np.array([_posterior_key(run.posteriors[t.id]) for t in run.scenario.targets]),
-        observable=run.observable, bits=run.bits)
+        observable=run.observable,
+        bits=run.bits if run.exact_bits is None else run.exact_bits)
     return buffer.getvalue()
 
 
