@@ -282,7 +282,16 @@ def read_rv_csv(path):
         ) from None
     except UnicodeDecodeError:
         raise RVDataError(f"{path} is not UTF-8 text: save it as a plain UTF-8 CSV file.") from None
-    frame.columns = [str(c).strip().lower() for c in frame.columns]
+    names = [str(c).strip().lower() for c in frame.columns]
+    # pandas renames a repeated header name 'time' to 'time.1'; spacing or case can repeat too.
+    bases = [n.rsplit(".", 1)[0] if n.rsplit(".", 1)[-1].isdigit() else n for n in names]
+    twice = [n for n in bases if bases.count(n) > 1]
+    if twice:
+        raise RVDataError(
+            f"{path}, line 1 (header) names the column '{twice[0]}' more than once: give each "
+            "column once."
+        )
+    frame.columns = names
     for column in REQUIRED_COLUMNS:
         if column not in frame.columns:
             header = ",".join(frame.columns)
@@ -293,6 +302,11 @@ def read_rv_csv(path):
                 f"{path}, line 1 (header) has no column '{column}': the header must name the "
                 f"columns time, rv, rv_err (and optionally instrument){hint}."
             )
+    if not isinstance(frame.index, pd.RangeIndex):  # pandas took the extra fields as an index
+        raise RVDataError(
+            f"{path} has lines with more comma-separated fields than its header "
+            f"({len(frame.columns)}): give every line the same number of fields as the header."
+        )
     frame = frame.astype(object)
     blank = frame.apply(lambda row: all(str(x).strip() == "" for x in row), axis=1)
     frame = frame.loc[~blank.to_numpy(dtype=bool)] if len(frame) else frame

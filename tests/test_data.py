@@ -98,3 +98,18 @@ def test_digest_and_concat(tmp_path):
         a.concat(b)
     with pytest.raises(RVDataError, match="lengths"):
         RVData.from_arrays([1.0, 2.0], [1.0], [1.0, 1.0])
+
+
+def test_repeated_columns_and_extra_fields_are_one_sentence(tmp_path):
+    # Found by tests/test_fuzz_readers.py: pandas renames a repeated header name and takes
+    # extra fields as an index; both were crashes (ValueError, TypeError), not sentences.
+    from inference.errors import RVDataError
+
+    twice = tmp_path / "twice.csv"
+    twice.write_text("time,time,rv,rv_err\n2460000.5,2460000.5,1.0,1.0\n")
+    with pytest.raises(RVDataError, match="names the column 'time' more than once"):
+        read_rv_csv(twice)
+    extra = tmp_path / "extra.csv"
+    extra.write_text("time,rv,rv_err\n2460000.5,1.0,1.0,7\n")
+    with pytest.raises(RVDataError, match="more comma-separated fields than its header"):
+        read_rv_csv(extra)

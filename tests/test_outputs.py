@@ -151,3 +151,13 @@ def test_utc_text_and_jd():
     assert format_utc(parse_utc("2027-10-05T02:14:00Z")) == "2027-10-05T02:14:00Z"
     with pytest.raises(PlanError, match="not an ISO date-time"):
         parse_utc("tonight")
+
+
+def test_a_pair_field_of_the_wrong_kind_is_one_sentence(tmp_path):
+    # Found by tests/test_fuzz_readers.py: nights[0].moon_up = true was a TypeError.
+    doc = json.loads(make_plan().to_json())
+    doc["nights"][0]["moon_up"] = True
+    path = tmp_path / "plan.json"
+    path.write_text(json.dumps(doc))
+    with pytest.raises(PlanError, match="moon_up must be a list"):
+        read_plan(path)

@@ -589,6 +589,16 @@ def _record(cls, raw: Any, where: str, skip=(), pairs=()) -> Any:
             raise PlanError(f"{where}: the field {f.name!r} is missing; write the plan again.")
         value = raw[f.name]
         if f.name in pairs or f.name == "notes":
+            if value is not None and not isinstance(value, list):
+                raise PlanError(f"{where}: {f.name} must be a list, got {value!r}; write the "
+                                "plan again.")
+            item_ok = ((lambda v: isinstance(v, str)) if f.name == "notes" else
+                       (lambda v: isinstance(v, list) and all(
+                           isinstance(x, str | int | float) and not isinstance(x, bool)
+                           for x in v)))
+            if not all(item_ok(v) for v in value or ()):
+                raise PlanError(f"{where}: {f.name} holds an entry of the wrong kind; write the "
+                                "plan again.")
             value = tuple(tuple(v) if isinstance(v, list) else v for v in value or ())
         number = isinstance(value, int | float) and not isinstance(value, bool)
         if f.type == "float" and not (number and math.isfinite(value)):
