@@ -104,8 +104,12 @@ class PlanResult:
     run: PreparedRun
 
 
-def run_strategy(run: PreparedRun, strategy: str, time_limit_s: float | None = None):
-    """Solve the run's problem with one strategy (``joint``, ``greedy`` or ``cadence``)."""
+def run_strategy(run: PreparedRun, strategy: str, time_limit_s: float | None = None,
+                 hint=None):
+    """Solve the run's problem with one strategy (``joint``, ``greedy`` or ``cadence``).
+
+    ``hint`` (joint only): the greedy plan of the run, when the caller has it already.
+    """
     from planner.allocation.cadence import cadence_plan
     from planner.allocation.greedy import greedy_plan
     from planner.allocation.joint import joint_plan
@@ -116,7 +120,8 @@ def run_strategy(run: PreparedRun, strategy: str, time_limit_s: float | None = N
         if not limit > 0:
             raise PlanError(f"the solver time limit must be positive seconds, got {limit}.")
         return joint_plan(run.problem, run.surrogate, time_limit_s=limit, seed=solver.seed,
-                          workers=solver.workers, focus_per_group=JOINT_FOCUS_PER_GROUP)
+                          workers=solver.workers, focus_per_group=JOINT_FOCUS_PER_GROUP,
+                          hint=hint)
     if strategy == "greedy":
         return greedy_plan(run.problem, run.surrogate)
     if strategy == "cadence":
@@ -124,7 +129,7 @@ def run_strategy(run: PreparedRun, strategy: str, time_limit_s: float | None = N
     raise PlanError(f"unknown strategy {strategy!r}; use joint, greedy or cadence.")
 
 
-def pack(run: PreparedRun, plan):
+def pack(run: PreparedRun, plan, hint=None):
     """Pack a strategy's plan back to back and refill the freed time (same for every strategy).
 
     The refill values visits by the surrogate's marginal gain
@@ -133,6 +138,8 @@ def pack(run: PreparedRun, plan):
     at most one visit per target and night. The joint plan stays at least its greedy hint after
     packing: the greedy plan is packed too and the better of the two on the surrogate is kept
     (greedy's plan leaves more room to refill).
+
+    ``hint``: the run's greedy plan, when the caller has it already.
 
     Returns
     -------
@@ -148,7 +155,8 @@ def pack(run: PreparedRun, plan):
                         max_per_night=1 if cadence else None)
     if plan.strategy != "joint":
         return packing
-    hint = dataclasses.replace(greedy_plan(run.problem, run.surrogate), strategy="joint",
+    hint = greedy_plan(run.problem, run.surrogate) if hint is None else hint
+    hint = dataclasses.replace(hint, strategy="joint",
                                bound=plan.bound, gap=plan.gap, status=plan.status,
                                runtime_s=plan.runtime_s, seed=plan.seed, stats=plan.stats)
     other = pack_plan(run.problem, run.surrogate, hint, gain=gain)
@@ -223,7 +231,10 @@ def make_plan(run: PreparedRun, strategy: str | None = None,
 
     require_room(run)
     strategy = strategy or run.scenario.solver.strategy
-    packing = pack(run, run_strategy(run, strategy, time_limit_s))
+    from planner.allocation.greedy import greedy_plan
+
+    hint = greedy_plan(run.problem, run.surrogate) if strategy == "joint" else None
+    packing = pack(run, run_strategy(run, strategy, time_limit_s, hint=hint), hint=hint)
     run = dataclasses.replace(run, problem=packing.problem, surrogate=packing.surrogate)
     plan = packing.plan
     verification = verify(run, plan)
