@@ -164,7 +164,8 @@ def _as_limit(scenario: Scenario, limit):
     return search_limit(scenario, time_limit_s=limit)
 
 
-def run_strategy(run: PreparedRun, strategy: str, time_limit_s=None, candidates=None):
+def run_strategy(run: PreparedRun, strategy: str, time_limit_s=None, candidates=None,
+                 hint=None):
     """Solve the run's problem with one strategy (``joint``, ``greedy`` or ``cadence``).
 
     ``time_limit_s`` is a :class:`planner.allocation.joint.SearchLimit`, a wall-clock limit in
@@ -172,7 +173,8 @@ def run_strategy(run: PreparedRun, strategy: str, time_limit_s=None, candidates=
     into ``run.problem``) restricts the search to those candidate visits, for the re-plan at
     the telescope (:func:`planner.workflow.replan.focus_candidates`); the returned plan indexes
     the whole problem, and it has no bound, since the solver's bound would hold for the
-    restricted problem only.
+    restricted problem only. ``hint`` (joint on the whole problem only): the greedy plan of the
+    run, when the caller has it already.
     """
     from planner.allocation.cadence import cadence_plan
     from planner.allocation.greedy import greedy_plan
@@ -191,7 +193,8 @@ def run_strategy(run: PreparedRun, strategy: str, time_limit_s=None, candidates=
         focus = JOINT_FOCUS_PER_GROUP if keep is None else None
         plan = joint_plan(problem, surrogate, limit=_as_limit(run.scenario, time_limit_s),
                           seed=solver.seed, workers=solver.workers, focus_per_group=focus,
-                          gap_limit=0.0 if keep is None else FOCUS_GAP_LIMIT)
+                          gap_limit=0.0 if keep is None else FOCUS_GAP_LIMIT,
+                          hint=hint if keep is None else None)
     elif strategy == "greedy":
         plan = greedy_plan(problem, surrogate)
     else:
@@ -205,7 +208,7 @@ def run_strategy(run: PreparedRun, strategy: str, time_limit_s=None, candidates=
         stats=plan.stats + (("restricted_candidates", float(keep.size)),))
 
 
-def pack(run: PreparedRun, plan):
+def pack(run: PreparedRun, plan, hint=None):
     """Pack a strategy's plan back to back and refill the freed time (same for every strategy).
 
     The refill values visits by the surrogate's marginal gain
@@ -214,6 +217,8 @@ def pack(run: PreparedRun, plan):
     at most one visit per target and night. The joint plan stays at least its greedy hint after
     packing: the greedy plan is packed too and the better of the two on the surrogate is kept
     (greedy's plan leaves more room to refill).
+
+    ``hint``: the run's greedy plan, when the caller has it already.
 
     Returns
     -------
@@ -229,7 +234,8 @@ def pack(run: PreparedRun, plan):
                         max_per_night=1 if cadence else None)
     if plan.strategy != "joint":
         return packing
-    hint = dataclasses.replace(greedy_plan(run.problem, run.surrogate), strategy="joint",
+    hint = greedy_plan(run.problem, run.surrogate) if hint is None else hint
+    hint = dataclasses.replace(hint, strategy="joint",
                                bound=plan.bound, gap=plan.gap, status=plan.status,
                                runtime_s=plan.runtime_s, seed=plan.seed, stats=plan.stats)
     other = pack_plan(run.problem, run.surrogate, hint, gain=gain)
@@ -320,10 +326,15 @@ def make_plan(run: PreparedRun, strategy: str | None = None,
 
     require_room(run)
     strategy = strategy or run.scenario.solver.strategy
+    from planner.allocation.greedy import greedy_plan
+
     limit = _as_limit(run.scenario, time_limit_s)
     if now_jd is None:
         now_jd = run.now_jd
-    packing = pack(run, run_strategy(run, strategy, limit, candidates=candidates))
+    hint = (greedy_plan(run.problem, run.surrogate)
+            if strategy == "joint" and candidates is None else None)
+    packing = pack(run, run_strategy(run, strategy, limit, candidates=candidates, hint=hint),
+                   hint=hint)
     run = dataclasses.replace(run, problem=packing.problem, surrogate=packing.surrogate)
     plan = packing.plan
     if progress is not None:
