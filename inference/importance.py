@@ -128,7 +128,7 @@ def _refit(mix, anchored, idle, theta, w, log_q, parts, maha):
     return weights, means, covs, flags, idles
 
 
-def _births(mix, prep, theta, w, parts, log_q, weights, means, covs, span):
+def _births(mix, prep, theta, w, parts, weights, means, covs, span):
     """Start components at heavy draws: where the target outweighs the mixture most.
 
     A draw carrying more than ``_BIRTH_MASS`` of the total weight shows a region the mixture
@@ -249,7 +249,7 @@ def population_monte_carlo(prep, settings, rng, seeds, span, frequencies=None):
         # Births only in the first third of the rounds and half the budget; then only refits,
         # so that the rounds can grow to the effective sample size wanted.
         if rounds <= settings.rounds // 3 and n_eval < settings.max_draws // 2:
-            n_born = _births(mix, prep, theta, w, parts, log_q, weights, means, covs, span)
+            n_born = _births(mix, prep, theta, w, parts, weights, means, covs, span)
             anchored += [False] * n_born
             idle += [0] * n_born
         if n_born:

@@ -161,8 +161,7 @@ class JitterProposal:
 
     def log_density(self, prep, log_s):
         """Return the log density of ln s, summed over instruments, shape (n,)."""
-        lo = np.log(np.exp(prep.jit_log_range[:, 0]) + prep.jit_knee)
-        hi = np.log(np.exp(prep.jit_log_range[:, 1]) + prep.jit_knee)
+        lo, hi = _jitter_span(prep)
         inside = (log_s >= prep.jit_log_range[:, 0]) & (log_s <= prep.jit_log_range[:, 1])
         with np.errstate(divide="ignore"):
             prior = np.where(inside, log_s - np.log(np.exp(log_s) + prep.jit_knee)
@@ -173,10 +172,16 @@ class JitterProposal:
         return both.sum(axis=1)
 
 
-def _log_jitter_prior(prep, log_s):
-    """Return the log prior density of ln s, summed over instruments (inside the support)."""
+def _jitter_span(prep):
+    """Return the modified-Jeffreys prior's support in ln(s + knee) per instrument, (lo, hi)."""
     lo = np.log(np.exp(prep.jit_log_range[:, 0]) + prep.jit_knee)
     hi = np.log(np.exp(prep.jit_log_range[:, 1]) + prep.jit_knee)
+    return lo, hi
+
+
+def _log_jitter_prior(prep, log_s):
+    """Return the log prior density of ln s, summed over instruments (inside the support)."""
+    lo, hi = _jitter_span(prep)
     return np.sum(log_s - np.log(np.exp(log_s) + prep.jit_knee) - np.log(hi - lo), axis=1)
 
 
@@ -280,8 +285,7 @@ def draw_eccentricity(prep, rng, size):
 
 def draw_log_jitter(prep, rng, n):
     """Draw ln s from the modified-Jeffreys prior by its inverse CDF, ln(s + knee) uniform."""
-    lo = np.log(np.exp(prep.jit_log_range[:, 0]) + prep.jit_knee)
-    hi = np.log(np.exp(prep.jit_log_range[:, 1]) + prep.jit_knee)
+    lo, hi = _jitter_span(prep)
     u = rng.uniform(lo, hi, size=(n, lo.size))
     return np.log(np.maximum(np.exp(u) - prep.jit_knee, np.exp(prep.jit_log_range[:, 0])))
 

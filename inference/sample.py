@@ -163,7 +163,7 @@ def fit(data, model, settings=None, rng=None, target=""):
     gen = np.random.default_rng(seed)
     prep = prepare(data, model)
     span = max(float(np.ptp(data.time)), 1.0)
-    start = find_modes(prep, settings, gen)
+    start = find_modes(prep, settings)
     imp = population_monte_carlo(prep, settings, gen, start.seeds, span, start.frequencies)
     if not np.isfinite(imp.log_z):
         raise ModelError(

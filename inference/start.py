@@ -22,7 +22,7 @@ import numpy as np
 from .laplace import refine_seeds
 from .likelihood import log_joint, log_marginal_design
 from .mixture import FrequencyProposal
-from .scan import ZOOM_GRID, keplerian_scores
+from .scan import ECC_GRID, ZOOM_GRID, keplerian_scores
 
 __all__ = ["StartResult", "find_modes"]
 
@@ -165,7 +165,7 @@ def _periodogram_peaks(prep, settings, base, k, freqs, harmonics=True):
     ll, best = np.interp(freqs, half, ll), best[nearest]
     score = np.maximum(score, ll - ll.max())
     order.insert(0, _top_peaks(ll, settings))
-    n_eval += half.size * 52
+    n_eval += half.size * sum(n_phase for _, n_phase in ECC_GRID)
     # Interleave by rank so the best of every periodogram comes first.
     merged = []
     for rank in range(settings.max_modes):
@@ -224,7 +224,7 @@ def _seed_components(prep, mode, level, span):
     return out
 
 
-def find_modes(prep, settings, rng=None):
+def find_modes(prep, settings):
     """Find the candidate period modes and starting mixture components for them.
 
     Parameters
@@ -234,8 +234,6 @@ def find_modes(prep, settings, rng=None):
     settings : SamplerSettings
         Uses ``grid_oversample``, ``max_grid``, ``mode_window``, ``max_modes``,
         ``max_candidates`` and ``harmonics``.
-    rng : numpy.random.Generator, optional
-        Unused: the scan is deterministic (kept for a uniform stage signature).
 
     Returns
     -------
@@ -265,6 +263,7 @@ def find_modes(prep, settings, rng=None):
             for p in peaks:
                 if int(p) not in candidates[k]:
                     points = _zoom(prep, base, k, float(freqs[p]), step, level, _ZOOM_POINTS)
+                    n_eval += 5 * sum(n_phase for _, n_phase in ZOOM_GRID)
                     candidates[k][int(p)] = (float(freqs[p]), tuple(points), float(score_k[p]))
             best_modes[k] = candidates[k][int(peaks[0])]
     candidates = [list(c.values()) for c in candidates]

@@ -296,14 +296,13 @@ def require_room(run: PreparedRun) -> None:
 
 
 def make_plan(run: PreparedRun, strategy: str | None = None,
-              time_limit_s=None, notes=(), now_jd: float | None = None, candidates=None,
-              progress=None) -> PlanResult:
+              time_limit_s=None, notes=(), candidates=None, progress=None) -> PlanResult:
     """Plan the run with one strategy, pack it, verify it, score it exactly, build its file.
 
-    ``now_jd`` (a re-plan at the telescope; default ``run.now_jd``) marks the part of each
-    night already past in the plan file, so the schedule counts it as executed or idle rather
-    than lost. ``candidates`` restricts the search (:func:`run_strategy`); ``progress`` is
-    called with the name of each later step.
+    ``run.now_jd`` (a re-plan at the telescope) marks the part of each night already past in
+    the plan file, so the schedule counts it as executed or idle rather than lost.
+    ``candidates`` restricts the search (:func:`run_strategy`); ``progress`` is called with the
+    name of each later step.
 
     ``time_limit_s`` is the joint search limit: a
     :class:`planner.allocation.joint.SearchLimit`, a wall-clock limit in seconds, or None for
@@ -329,8 +328,6 @@ def make_plan(run: PreparedRun, strategy: str | None = None,
     from planner.allocation.greedy import greedy_plan
 
     limit = _as_limit(run.scenario, time_limit_s)
-    if now_jd is None:
-        now_jd = run.now_jd
     hint = (greedy_plan(run.problem, run.surrogate)
             if strategy == "joint" and candidates is None else None)
     packing = pack(run, run_strategy(run, strategy, limit, candidates=candidates, hint=hint),
@@ -351,7 +348,7 @@ def make_plan(run: PreparedRun, strategy: str | None = None,
     provenance = plan_provenance(run.scenario, posterior_keys(run.scenario), strategy, limit,
                                  focus_per_group=JOINT_FOCUS_PER_GROUP)
     plan_file = build_plan_file(run, plan, marginals, target_bits, total,
-                                notes=tuple(status) + tuple(notes), now_jd=now_jd,
+                                notes=tuple(status) + tuple(notes), now_jd=run.now_jd,
                                 provenance=provenance)
     return PlanResult(plan=plan, plan_file=plan_file, verification=verification, run=run)
 

@@ -506,7 +506,7 @@ def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
     report(5, steps, "solving (" + (f"work limit {searched.work:g}" if searched.deterministic
                                     else f"at most {searched.seconds:g} s") + ")")
     result = pipeline.make_plan(run, strategy or old.strategy, limit, notes=notes,
-                                candidates=focus, now_jd=request.now_jd,
+                                candidates=focus,
                                 progress=lambda label: report(6, steps, label))
     report(steps, steps, "done")
     changes = describe_changes(old, result.plan_file, request, updates)
