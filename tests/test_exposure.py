@@ -91,9 +91,13 @@ def test_grid_sigma_per_target_option_and_time():
     )
     v = np.array([8.0, 13.0])
     s = grid_sigma(INST, sky, v, DEFAULT_EXPOSURES_S)
-    assert s.shape == (2, len(DEFAULT_EXPOSURES_S), sky.times_jd.size)
+    # Axis order (option, target, time), as everywhere (docs/architecture.md, conventions).
+    assert s.shape == (len(DEFAULT_EXPOSURES_S), 2, sky.times_jd.size)
     np.testing.assert_allclose(
-        s[1, 0], rv_sigma(INST, 13.0, DEFAULT_EXPOSURES_S[0], sky.airmass[1])
+        s[0, 1], rv_sigma(INST, 13.0, DEFAULT_EXPOSURES_S[0], sky.airmass[1])
+    )
+    np.testing.assert_allclose(
+        s[-1, 0], rv_sigma(INST, 8.0, DEFAULT_EXPOSURES_S[-1], sky.airmass[0])
     )
     with_sky = grid_sigma(Instrument(aperture_arcsec2=1.0), sky, v, DEFAULT_EXPOSURES_S)
     assert np.all(with_sky >= grid_sigma(Instrument(), sky, v, DEFAULT_EXPOSURES_S))

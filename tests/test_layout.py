@@ -9,6 +9,8 @@ import ast
 import importlib
 from pathlib import Path
 
+import pytest
+
 ROOT = Path(__file__).resolve().parents[1]
 
 #: The stages from the bottom up; a module may import only its own stage and those before it.
@@ -171,3 +173,26 @@ def test_developers_guide_places_every_module():
     missing = [m for m in MODULES if MODULES[m].name not in ("__init__.py", "__main__.py")
                and MODULES[m].name not in guide]
     assert not missing, f"modules not in DEVELOPERS.md's layout: {missing}"
+
+
+def test_curated_api_is_cheap_to_import_and_resolves():
+    # `import planner` must not pull in astropy or OR-Tools (the CLI's --help and --version stay
+    # fast); each curated name then resolves to its stage's object.
+    import subprocess
+    import sys
+
+    code = ("import sys, planner; print(sorted(m for m in ('astropy', 'ortools', 'scipy') "
+            "if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True, cwd=ROOT)
+    assert out.stdout.strip() == "[]"
+    import planner
+    from planner.workflow import pipeline, report
+
+    assert planner.make_plan is pipeline.make_plan
+    assert planner.render_schedule is report.render_schedule
+    assert set(planner.__all__) <= set(dir(planner))
+    for name in planner.__all__:
+        assert getattr(planner, name) is not None
+    with pytest.raises(AttributeError, match="no attribute 'nope'"):
+        planner.nope  # noqa: B018

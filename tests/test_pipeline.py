@@ -21,12 +21,6 @@ TINY = Path(__file__).resolve().parent / "data" / "tiny" / "tiny.yaml"
 
 
 @pytest.fixture(scope="session")
-def cache_dir(tmp_path_factory):
-    """One posterior cache for the whole session (the tiny run's three fits happen once)."""
-    return tmp_path_factory.getbasetemp() / "nightbits-cache"
-
-
-@pytest.fixture(scope="session")
 def planned(tmp_path_factory, cache_dir):
     """Run `nightbits plan` on the tiny scenario once; return (out folder, stdout)."""
     out = tmp_path_factory.mktemp("plan")
@@ -211,3 +205,16 @@ def test_compare_command_writes_compare_json_and_keeps_an_existing_one(tmp_path,
     assert "already exists; pass --force" in capsys.readouterr().err
     assert (out / "compare.json").read_text() == before
     assert bits["joint"] > 0
+
+
+def test_public_api_walkthrough(cache_dir):
+    # The example in planner/__init__'s docstring, on the tiny scenario: the curated names
+    # alone take a scenario to a verified plan and its printed schedule.
+    import planner
+
+    scenario = planner.load(TINY)
+    run = planner.prepare(scenario, planner.fit_posteriors(scenario, cache_dir, jobs=1), jobs=1)
+    result = planner.make_plan(run)
+    assert result.verification.ok
+    text = planner.render_schedule(result.plan_file)
+    assert scenario.targets[0].id in text or "no visit" in text.lower()

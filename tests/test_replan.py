@@ -21,11 +21,6 @@ TRUTH = Path(__file__).resolve().parents[1] / "scenarios" / "demo" / "truth" / "
 
 
 @pytest.fixture(scope="session")
-def cache_dir(tmp_path_factory):
-    return tmp_path_factory.getbasetemp() / "nightbits-cache"
-
-
-@pytest.fixture(scope="session")
 def base(tmp_path_factory, cache_dir):
     """The tiny run planned once: (scenario, posteriors, plan file, plan.json path)."""
     scenario = pipeline.load(TINY)

@@ -208,12 +208,6 @@ def test_parameter_values_names_and_signals(rng):
 
 
 @pytest.fixture(scope="session")
-def cache_dir(tmp_path_factory):
-    """The session's posterior cache (the same folder as tests/test_pipeline.py's)."""
-    return tmp_path_factory.getbasetemp() / "nightbits-cache"
-
-
-@pytest.fixture(scope="session")
 def tiny_run(cache_dir):
     from planner.workflow import pipeline
 

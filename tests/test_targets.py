@@ -61,12 +61,6 @@ def _run(argv):
 
 
 @pytest.fixture(scope="session")
-def cache_dir(tmp_path_factory):
-    """The posterior cache the other end-to-end tests use (the tiny stars are fitted once)."""
-    return tmp_path_factory.getbasetemp() / "nightbits-cache"
-
-
-@pytest.fixture(scope="session")
 def season(tmp_path_factory):
     return _scenario(tmp_path_factory.mktemp("season"))
 

@@ -355,6 +355,9 @@ def main(argv: list[str] | None = None) -> int:
     _configure_logging(args)
     from inference.errors import InferenceError
     from planner.errors import PlannerError
+    from planner.sky import offline
+
+    offline.configure()  # astropy offline, once, for the whole command (planner.sky.offline)
 
     args.written, args.locks = [], []
     import threading

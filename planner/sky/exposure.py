@@ -245,8 +245,9 @@ def grid_sigma(
 
     Returns
     -------
-    ndarray, shape (n_targets, n_options, n_times)
-        :func:`rv_sigma` at each grid airmass; the Moon-brightened sky of
+    ndarray, shape (n_options, n_targets, n_times)
+        :func:`rv_sigma` at each grid airmass (the project's axis order: option, target,
+        time; see docs/architecture.md, conventions); the Moon-brightened sky of
         :func:`moon_sky_brightness` enters when the instrument gives an aperture.
     """
     v = np.asarray(v_mag, dtype=float)
@@ -263,7 +264,7 @@ def grid_sigma(
             sky.moon_altitude_deg[None, :],
             sky.altitude_deg,
             instrument.k_mag_per_airmass,
-        )[:, None, :]
+        )[None, :, :]
     return rv_sigma(
-        instrument, v[:, None, None], exposures[None, :, None], sky.airmass[:, None, :], sky_mag
+        instrument, v[None, :, None], exposures[:, None, None], sky.airmass[None, :, :], sky_mag
     )

@@ -6,8 +6,9 @@ past the age limit of the bundled predictions. This module switches both off onc
 inside nightbits, and gives a context manager that silences exactly the warnings
 expected for dates past the bundled tables.
 
-Settings applied by :func:`configure` (idempotent; run on import of
-``planner.sky.site`` and ``planner.sky.tracks``):
+Settings applied by :func:`configure` (idempotent). Nothing is configured on import: the
+command line calls :func:`configure` once at start, and every astropy computation in nightbits
+runs inside :func:`quiet_astropy`, which calls it first, so library use is offline too:
 
 * ``astropy.utils.iers.conf.auto_download = False``: use only the tables shipped
   with the installed packages;
@@ -58,18 +59,18 @@ def configure() -> None:
 
 @contextlib.contextmanager
 def quiet_astropy() -> Iterator[None]:
-    """Silence the two warnings expected for dates past the bundled tables.
+    """Run a block offline, with the two warnings expected past the bundled tables silenced.
 
-    Any other warning still reaches the caller. Like :class:`warnings.catch_warnings`
-    this is not thread-safe; nightbits runs sky computations in one thread.
+    Calls :func:`configure` first. Any other warning still reaches the caller. Like
+    :class:`warnings.catch_warnings` this is not thread-safe; nightbits runs sky computations
+    in one thread.
     """
     from astropy.utils.exceptions import AstropyWarning
     from erfa import ErfaWarning
 
+    configure()
     with warnings.catch_warnings():
         warnings.filterwarnings("ignore", message=_POLAR_MOTION_MESSAGE, category=AstropyWarning)
         warnings.filterwarnings("ignore", message=_DUBIOUS_YEAR_MESSAGE, category=ErfaWarning)
         yield
 
-
-configure()

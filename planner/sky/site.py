@@ -19,7 +19,6 @@ import numpy as np
 from scipy.interpolate import CubicSpline
 
 from planner.errors import ScenarioError, SkyError
-from planner.sky import offline
 from planner.sky.airmass import altaz_from_hadec
 from planner.sky.ephemeris import EphemerisAt, NodeEphemeris, node_ephemeris, radec_from_unit
 
@@ -33,8 +32,6 @@ __all__ = [
     "run_dates",
     "twilight_altitude",
 ]
-
-offline.configure()
 
 #: Sun altitude defining each named twilight [deg] (standard definitions, common practice).
 TWILIGHT_ALTITUDES_DEG = {"civil": -6.0, "nautical": -12.0, "astronomical": -18.0}

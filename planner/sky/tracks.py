@@ -29,8 +29,6 @@ from planner.sky.site import Night, Site, night_span_start_jd
 
 __all__ = ["Pointing", "Sky", "compute_sky", "mid_exposure_columns", "pointing_at"]
 
-offline.configure()
-
 
 @dataclass(frozen=True)
 class Sky:

@@ -182,7 +182,7 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
     observable &= offered[:, :, None]
     excluded = _excluded(scenario, sky, constraints, strict)
     v_mag = np.array([t.v_mag for t in targets])
-    sigma = np.moveaxis(grid_sigma(instrument, sky, v_mag, exposures), 1, 0)
+    sigma = grid_sigma(instrument, sky, v_mag, exposures)
     predictors = tuple(Predictor.from_posterior(posteriors[t.id], scenario.instrument.name)
                        for t in targets)
     streams = Streams(scenario.solver.seed if seed is None else seed)
