@@ -26,6 +26,7 @@ Method (documented with measured errors in ``docs/information.md``):
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -258,6 +259,22 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
     docstring. Errors against adaptive quadrature are measured in ``tests/test_entropy.py``
     and ``docs/information.md`` (below 1e-4 bit for equal component variances).
     """
+    x, extra = _checked_inputs(centers, extra_variance)
+    n_s, n_c = x.shape
+    extra, comp = _fold_variance(variance, extra, n_s, n_c)
+    w = _column_weights(weights, n_s, n_c)
+    out = np.full(extra.shape, np.nan)
+    wanted = np.any(np.isfinite(extra), axis=0)
+    if not np.any(wanted):
+        return out
+    grid = _grid_layout(x, comp, extra, wanted, bin_fraction)
+    xt, ct, wt = _column_major(grid.x, comp, w, grid.order, grid.wide)
+    _fill_chunks(out, xt, ct, wt, extra, wanted, grid)
+    return out / LN2
+
+
+def _checked_inputs(centers, extra_variance):
+    """Check the centres and extra variances; return them as 2-D float arrays."""
     x = np.asarray(centers, dtype=float)
     if x.ndim != 2 or x.shape[0] < 1 or x.shape[1] < 1:
         raise InformationError(
@@ -268,7 +285,7 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
         raise InformationError(
             "centers must be finite; remove NaN or infinite predicted velocities first."
         )
-    n_s, n_c = x.shape
+    n_c = x.shape[1]
     extra = np.zeros((1, n_c)) if extra_variance is None else np.array(
         extra_variance, dtype=float, ndmin=2)
     if extra.shape[1] != n_c or extra.ndim != 2:
@@ -278,6 +295,11 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
         )
     if np.any(extra[np.isfinite(extra)] < 0) or np.any(np.isinf(extra)):
         raise InformationError("extra_variance must be non-negative; check the noise inputs.")
+    return x, extra
+
+
+def _fold_variance(variance, extra, n_s, n_c):
+    """Move what the components share into the extra variance: (extra, per-component or None)."""
     kind, comp = _prepare("variance", variance, n_s, n_c)
     if kind == "column":
         extra = extra + comp[None, :]
@@ -296,20 +318,42 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
         extra = extra + low
     if comp is not None and not np.any(comp > 0):
         comp = None
+    return extra, comp
+
+
+def _column_weights(weights, n_s, n_c):
+    """Component weights normalised per column, or None for equal weights."""
     wkind, w = _prepare("weights", weights, n_s, n_c)
-    if wkind == "column":
-        w = None
-    elif w is not None:
-        w_sum = w.sum(axis=0)
-        if np.any(w_sum <= 0):
-            raise InformationError(
-                "every column needs a positive total weight; check the weights passed in."
-            )
-        w = w / w_sum
-    out = np.full(extra.shape, np.nan)
-    wanted = np.any(np.isfinite(extra), axis=0)
-    if not np.any(wanted):
-        return out
+    if wkind == "column" or w is None:
+        return None
+    w_sum = w.sum(axis=0)
+    if np.any(w_sum <= 0):
+        raise InformationError(
+            "every column needs a positive total weight; check the weights passed in."
+        )
+    return w / w_sum
+
+
+@dataclass(frozen=True)
+class _Grid:
+    """Where each column's density grid lies: bins, rungs, compression and chunk size."""
+
+    x: np.ndarray  # centres, sorted and gap-compressed in the `wide` columns
+    level: np.ndarray  # (n_cols,) ladder rung of each column's smallest extra variance
+    h: np.ndarray  # (n_cols,) bin width [m/s]
+    n_bins: np.ndarray  # (n_cols,) bins needed
+    mid: np.ndarray  # (n_cols,) grid centre [m/s]
+    wide: np.ndarray  # indices of the gap-compressed columns
+    order: np.ndarray | None  # the sort order of the wide columns' centres
+    c_top: float  # largest per-component variance left (0 when none)
+    per_chunk: int  # columns per chunk
+    has_comp: bool
+
+
+def _grid_layout(x, comp, extra, wanted, bin_fraction) -> _Grid:
+    """Each column's bin width, bin count and centre, compressing columns with wide gaps."""
+    n_s = x.shape[0]
+    x_max, x_min = x.max(axis=0), x.min(axis=0)
     e_min = np.where(wanted, np.nanmin(np.where(np.isfinite(extra), extra, np.inf), axis=0), 0.0)
     e_max = np.where(wanted, np.nanmax(np.where(np.isfinite(extra), extra, -np.inf), axis=0), 0.0)
     if np.any(e_min[wanted] <= 0):
@@ -343,6 +387,12 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
     mid = 0.5 * (x_max + x_min)
     if wide.size:
         mid[wide] = 0.5 * (x[-1, wide] + x[0, wide])  # sorted: last and first
+    per_chunk = max(1, min(_CACHE_FLOATS // n_s, _CHUNK_FLOATS // (n_nodes * 4096)))
+    return _Grid(x, level, h, n_bins, mid, wide, order, c_top, per_chunk, comp is not None)
+
+
+def _column_major(x, comp, w, order, wide):
+    """Centres, component variances and weights time-major, in the wide columns' sort order."""
     xt = np.ascontiguousarray(x.T)  # time-major: each column's centres contiguous
     ct = None if comp is None else np.ascontiguousarray(comp.T)
     wt = None if w is None else np.ascontiguousarray(w.T)
@@ -358,7 +408,13 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
         elif wt is not None:
             wt = np.array(np.broadcast_to(wt, xt.shape))
             wt[wide] = np.take_along_axis(wt[wide], ot, axis=1)
-    per_chunk = max(1, min(_CACHE_FLOATS // n_s, _CHUNK_FLOATS // (n_nodes * 4096)))
+    return xt, ct, wt
+
+
+def _fill_chunks(out, xt, ct, wt, extra, wanted, grid: _Grid) -> None:
+    """Entropy [nats] of every wanted column into `out`, by chunks of one rung."""
+    n_c = xt.shape[0]
+    per_chunk, c_top = grid.per_chunk, grid.c_top
     rungs = {}  # per rung: its variance nodes and, when shared by every column, node shares
 
     def rung_nodes(lv):
@@ -374,17 +430,17 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
         return rungs[lv]
 
     # Chunks: runs of consecutive wanted columns on one rung, at most per_chunk long.
-    key = np.where(wanted, level, np.iinfo(np.int64).min)
+    key = np.where(wanted, grid.level, np.iinfo(np.int64).min)
     edges = np.concatenate([[0], np.flatnonzero(np.diff(key)) + 1, [n_c]])
     for lo_run, hi_run in zip(edges[:-1], edges[1:], strict=True):
         if not wanted[lo_run]:
             continue
-        nd, floor, shared = rung_nodes(int(level[lo_run])) if comp is not None else (
+        nd, floor, shared = rung_nodes(int(grid.level[lo_run])) if grid.has_comp else (
             None, None, None)
-        h_c = float(h[lo_run])
+        h_c = float(grid.h[lo_run])
         for a in range(int(lo_run), int(hi_run), per_chunk):
             c = slice(a, min(a + per_chunk, int(hi_run)))
-            size = int(_SIZES[np.searchsorted(_SIZES, n_bins[c].max())])
+            size = int(_SIZES[np.searchsorted(_SIZES, grid.n_bins[c].max())])
             cc = None if ct is None else (ct[c] if ct.shape[0] > 1 else ct)
             wc = None if wt is None else (wt[c] if wt.shape[0] > 1 else wt)
             sp = shared
@@ -392,5 +448,5 @@ def mixture_entropy_bits(centers, variance=0.0, extra_variance=None, weights=Non
                 # Shares shared by every column need variances shared by every column; a
                 # chunk of per-column variances needs its own.
                 sp = _node_split(cc, nd, floor)
-            out[:, c] = _chunk_entropy(xt[c], cc, wc, extra[:, c], h_c, mid[c], size, nd, sp)
-    return out / LN2
+            out[:, c] = _chunk_entropy(xt[c], cc, wc, extra[:, c], h_c, grid.mid[c], size, nd,
+                                       sp)
