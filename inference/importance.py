@@ -207,14 +207,7 @@ def population_monte_carlo(prep, settings, rng, seeds, span, frequencies=None):
     -------
     ImportanceResult
     """
-    if seeds:
-        weights, means, covs = (list(x) for x in zip(*seeds, strict=True))
-        mix = Mixture.build(settings.defensive, weights, means, covs, settings.dof, frequencies)
-        anchored = [True] * len(weights)
-    else:
-        anchored = []
-        d = 3 * prep.n_planets + prep.jit_knee.size
-        mix = Mixture(1.0 - 1e-12, np.zeros(0), np.zeros((0, d)), np.zeros((0, d, d)), 4.0)
+    mix, anchored = _start_mixture(prep, settings, seeds, frequencies)
     idle = [0] * len(anchored)
     jitters = None
     n_eval = 0
@@ -254,14 +247,9 @@ def population_monte_carlo(prep, settings, rng, seeds, span, frequencies=None):
             idle += [0] * n_born
         if n_born:
             pool = []
-        # The defensive share and its frequency histogram adapt too (its share never below
-        # the setting): mass that only it explains is a continuum of small modes.
-        own = w * np.exp(parts[:, 0] - log_q)
-        own[~np.isfinite(own)] = 0.0
-        defensive = float(np.clip(own.sum(), settings.defensive, 0.9))
-        if frequencies is not None:
-            frequencies = frequencies.refit(theta[:, 0 : 3 * prep.n_planets : 3], own)
-        jitters = JitterProposal.fit(theta[:, 3 * prep.n_planets :], own, jitters)
+        # The defensive share and its frequency histogram adapt too.
+        defensive, frequencies, jitters = _adapt_defensive(
+            prep, settings, theta, w, log_q, parts, frequencies, jitters)
         if weights:
             mix = Mixture.build(defensive, weights, means, covs, settings.dof, frequencies,
                                 jitters)
@@ -275,7 +263,36 @@ def population_monte_carlo(prep, settings, rng, seeds, span, frequencies=None):
         good = (np.concatenate([t for t, _ in pool]), np.concatenate([lw for _, lw in pool]))
     if good is None:
         good = (theta, log_w)
-    theta, log_w = good
+    return _result(*good, mix, rounds, n_eval)
+
+
+def _start_mixture(prep, settings, seeds, frequencies):
+    """Build the first mixture from the seeds (each anchored), or the defensive share alone."""
+    if seeds:
+        weights, means, covs = (list(x) for x in zip(*seeds, strict=True))
+        mix = Mixture.build(settings.defensive, weights, means, covs, settings.dof, frequencies)
+        return mix, [True] * len(weights)
+    d = 3 * prep.n_planets + prep.jit_knee.size
+    return Mixture(1.0 - 1e-12, np.zeros(0), np.zeros((0, d)), np.zeros((0, d, d)), 4.0), []
+
+
+def _adapt_defensive(prep, settings, theta, w, log_q, parts, frequencies, jitters):
+    """Refit the defensive share, its frequency histogram and its jitter proposal.
+
+    The share never falls below the setting: mass that only it explains is a continuum of
+    small modes.
+    """
+    own = w * np.exp(parts[:, 0] - log_q)
+    own[~np.isfinite(own)] = 0.0
+    defensive = float(np.clip(own.sum(), settings.defensive, 0.9))
+    if frequencies is not None:
+        frequencies = frequencies.refit(theta[:, 0 : 3 * prep.n_planets : 3], own)
+    jitters = JitterProposal.fit(theta[:, 3 * prep.n_planets :], own, jitters)
+    return defensive, frequencies, jitters
+
+
+def _result(theta, log_w, mix, rounds, n_eval) -> ImportanceResult:
+    """Record the weighted sample with its evidence and diagnostics."""
     log_z, rel_se = _log_mean(log_w)
     return ImportanceResult(
         theta=theta,
