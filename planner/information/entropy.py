@@ -17,10 +17,11 @@ Method (documented with measured errors in ``docs/information.md``):
 3. Each node's histogram is convolved with its Gaussian by FFT, using the Gaussian's exact
    Fourier transform; the extra variance is one more Gaussian factor in Fourier space.
 4. The entropy is the Riemann sum ``-sum p log p + log h`` of the gridded density.
-5. Gaps between sorted centres wider than ``GAP_SIGMAS`` total standard deviations are shrunk
-   to that width before gridding: components that far apart do not overlap, and the entropy of
-   non-overlapping parts depends only on their weights and shapes (H = sum_c w_c H_c - sum_c
-   w_c log w_c), not on the distance between them. Widely separated modes need no huge grid.
+5. Voids (empty stretches) between sorted centres wider than ``VOID_SIGMAS`` total standard
+   deviations are shrunk to that width before gridding: components that far apart do not
+   overlap, and the entropy of non-overlapping parts depends only on their weights and shapes
+   (H = sum_c w_c H_c - sum_c w_c log w_c), not on the distance between them. Widely
+   separated modes need no huge grid.
 """
 
 from __future__ import annotations
@@ -32,10 +33,10 @@ import numpy as np
 
 from planner.errors import PlannerError
 
-__all__ = ["LN2", "GAP_SIGMAS", "InformationError", "mixture_entropy_bits"]
+__all__ = ["LN2", "VOID_SIGMAS", "InformationError", "mixture_entropy_bits"]
 
 #: Gaps between sorted centres wider than this many standard deviations are shrunk to it.
-GAP_SIGMAS = 14.0
+VOID_SIGMAS = 14.0
 #: Grid padding beyond the outermost centres, in the largest total standard deviation.
 _PAD_SIGMAS = 7.0
 #: Columns needing more bins than this are sorted and gap-compressed first.
@@ -83,11 +84,11 @@ def _as_columns(name, value, shape):
         ) from None
 
 
-def _compress_gaps(x, sd_max):
-    """Return the columns of `x` sorted, with gaps wider than GAP_SIGMAS sd shrunk, and order."""
+def _shrink_voids(x, sd_max):
+    """Return the columns of `x` sorted, with voids wider than VOID_SIGMAS sd shrunk, and order."""
     order = np.argsort(x, axis=0)
     xs = np.take_along_axis(x, order, axis=0)
-    excess = np.maximum(np.diff(xs, axis=0) - GAP_SIGMAS * sd_max[None, :], 0.0)
+    excess = np.maximum(np.diff(xs, axis=0) - VOID_SIGMAS * sd_max[None, :], 0.0)
     xs[1:] -= np.cumsum(excess, axis=0)
     return xs, order
 
@@ -377,7 +378,7 @@ def _grid_layout(x, comp, extra, wanted, bin_fraction) -> _Grid:
     order = None
     if wide.size:
         x = np.array(x)
-        x[:, wide], order = _compress_gaps(x[:, wide], sd_max[wide])
+        x[:, wide], order = _shrink_voids(x[:, wide], sd_max[wide])
         span[wide] = x[:, wide].max(axis=0) - x[:, wide].min(axis=0)
         n_bins[wide] = (span[wide] + 2 * _PAD_SIGMAS * sd_max[wide]) / h[wide] + 2
     c_top = 0.0 if comp is None else float(comp.max())
