@@ -205,3 +205,16 @@ def test_two_stage_solve_is_at_least_its_first_stage_and_bounds_the_whole_proble
     with pytest.raises(ValueError, match="focus_share"):
         joint_plan(problem, surrogate, time_limit_s=1, workers=1, focus_per_group=1,
                    focus_share=1.0)
+
+
+def test_search_status_is_an_enum_and_refuses_unknown_names():
+    # Every status a strategy can end with is a SearchStatus member (docs/allocation.md lists
+    # them); a string is checked on construction, and an unknown one is refused.
+    from planner.allocation.plan import Plan, SearchStatus
+    from planner.errors import PlanError
+
+    plan = Plan("greedy", (), 0.0, None, None, "COMPLETE", 0.0, None)
+    assert plan.status is SearchStatus.COMPLETE and plan.status == "COMPLETE"
+    assert f"{plan.status}" == "COMPLETE"  # files and messages hold the name
+    with pytest.raises(PlanError, match="'BOGUS' is not one of"):
+        Plan("joint", (), 0.0, None, None, "BOGUS", 0.0, None)

@@ -9,7 +9,7 @@ from planner.allocation.cadence import cadence_plan
 from planner.allocation.compare import Comparison, compare_strategies
 from planner.allocation.greedy import greedy_plan
 from planner.allocation.joint import joint_plan
-from planner.allocation.plan import Plan, Visit
+from planner.allocation.plan import Plan, SearchStatus, Visit
 from planner.allocation.problem import Problem, build_problem
 from planner.allocation.rules import TargetRules
 from planner.allocation.score import PlanScore, score_plan
@@ -25,6 +25,7 @@ __all__ = [
     "greedy_plan",
     "joint_plan",
     "Plan",
+    "SearchStatus",
     "PlanScore",
     "Problem",
     "score_plan",

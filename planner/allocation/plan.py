@@ -4,12 +4,36 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
+from enum import StrEnum
 
 import numpy as np
 
 from planner.allocation.problem import Problem
+from planner.errors import PlanError
 
-__all__ = ["Plan", "Visit", "assemble_plan"]
+__all__ = ["Plan", "SearchStatus", "Visit", "assemble_plan"]
+
+
+class SearchStatus(StrEnum):
+    """How a strategy's search ended; printed in the schedule and stored in plan.json.
+
+    A ``StrEnum``: each member equals its name as a string, so files and messages hold the name.
+    """
+
+    #: Greedy, cadence and packing: the strategy ran to its end (no bound is proved).
+    COMPLETE = "COMPLETE"
+    #: CP-SAT proved the plan optimal on the surrogate objective.
+    OPTIMAL = "OPTIMAL"
+    #: CP-SAT stopped at the relative gap limit: optimal within ``gap`` of its bound.
+    WITHIN_GAP = "WITHIN_GAP"
+    #: CP-SAT found a plan but stopped at its time or work limit before proving optimality.
+    FEASIBLE = "FEASIBLE"
+    #: CP-SAT found nothing in its limit; the plan is the greedy hint it was given, no bound.
+    HINT_ONLY = "HINT_ONLY"
+    #: Two-stage search: the hint was kept because no stage improved on it (with a bound).
+    HINT_KEPT = "HINT_KEPT"
+    #: Two-stage search: the first (focused) stage's plan, unimproved by the whole problem.
+    FOCUSED = "FOCUSED"
 
 
 @dataclass(frozen=True)
@@ -67,8 +91,8 @@ class Plan:
         when the strategy proves none.
     gap : float or None
         ``(bound - objective) / bound``; None without a bound.
-    status : str
-        How the strategy ended (for the solver: ``OPTIMAL``, ``FEASIBLE``; else ``COMPLETE``).
+    status : SearchStatus
+        How the strategy ended (a string given here is checked against :class:`SearchStatus`).
     runtime_s : float
         Wall-clock time the strategy took [s].
     seed : int or None
@@ -82,10 +106,17 @@ class Plan:
     objective: float
     bound: float | None
     gap: float | None
-    status: str
+    status: SearchStatus
     runtime_s: float
     seed: int | None
     stats: tuple[tuple[str, float], ...] = ()
+
+    def __post_init__(self):
+        try:
+            object.__setattr__(self, "status", SearchStatus(self.status))
+        except ValueError:
+            raise PlanError(f"Plan status {self.status!r} is not one of "
+                            f"{', '.join(SearchStatus)}; use a SearchStatus.") from None
 
     @property
     def candidates(self) -> np.ndarray:
@@ -101,7 +132,7 @@ def assemble_plan(
     objective: float,
     marginal_bits: Sequence[float] | None = None,
     bound: float | None = None,
-    status: str = "COMPLETE",
+    status: str = "COMPLETE",  # a SearchStatus
     runtime_s: float = 0.0,
     seed: int | None = None,
     stats: Sequence[tuple[str, float]] = (),
