@@ -49,7 +49,7 @@ def _visits_from_file(plan_file, problem):
                             end_jd=parse_utc(v.end_utc), exposure_s=v.exposure_s,
                             slew_s=v.slew_s, option=option, bits=v.expected_bits,
                             candidate=-1))
-    return Plan("file", tuple(visits), 0.0, None, None, "FILE", 0.0, None)
+    return Plan("file", tuple(visits), 0.0, None, None, "COMPLETE", 0.0, None)
 
 
 def test_plan_json_passes_the_independent_check(planned, run):
