@@ -14,8 +14,8 @@ import pytest
 ROOT = Path(__file__).resolve().parents[1]
 
 #: The stages from the bottom up; a module may import only its own stage and those before it.
-#: ``inference`` and ``planner.errors`` are below every planner stage.
-STAGES = ("inference", "planner.errors", "planner.sky", "planner.information",
+#: ``inference``, ``planner.errors`` and ``planner.clock`` are below every planner stage.
+STAGES = ("inference", "planner.errors", "planner.clock", "planner.sky", "planner.information",
           "planner.allocation", "planner.workflow", "planner.simulation", "planner.cli")
 
 

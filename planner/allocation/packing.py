@@ -38,6 +38,7 @@ import numpy as np
 from planner.allocation.plan import Plan, assemble_plan
 from planner.allocation.problem import Problem
 from planner.allocation.surrogate import Surrogate, slot_bit
+from planner.clock import J2000_JD
 
 __all__ = ["Packing", "exact_refill_gain", "extend_problem", "extend_surrogate", "pack_plan",
            "surrogate_refill_gain"]
@@ -45,7 +46,6 @@ __all__ = ["Packing", "exact_refill_gain", "extend_problem", "extend_surrogate",
 _FIELDS = ("target", "night", "option", "start", "start_jd_grid", "duration", "bits", "sigma",
            "airmass", "alt_start", "az_start", "alt_end", "az_end", "bjd_mid")
 _SECOND = 1.0 / 86400.0
-_J2000 = 2451545.0
 #: Smallest gain a refill visit must bring [weighted bit].
 MIN_GAIN_BITS = 1e-3
 #: Safety margin added to every slew while packing [s]: the slews are computed from positions
@@ -204,12 +204,12 @@ class _Visit:
 
 def _whole_second(jd: float) -> float:
     """Return the first whole UTC second at or after ``jd``."""
-    return _J2000 + math.ceil((jd - _J2000) * 86400.0 - 1e-4) / 86400.0
+    return J2000_JD + math.ceil((jd - J2000_JD) * 86400.0 - 1e-4) / 86400.0
 
 
 def _whole_second_before(jd: float) -> float:
     """Return the last whole UTC second at or before ``jd``."""
-    return _J2000 + math.floor((jd - _J2000) * 86400.0 + 1e-4) / 86400.0
+    return J2000_JD + math.floor((jd - J2000_JD) * 86400.0 + 1e-4) / 86400.0
 
 
 class _Packer:

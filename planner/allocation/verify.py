@@ -27,6 +27,7 @@ import numpy as np
 
 from planner.allocation.plan import Plan
 from planner.allocation.problem import Problem
+from planner.clock import datetime_from_jd
 from planner.errors import PlanError
 
 __all__ = ["Verification", "require_valid", "verify_plan", "when"]
@@ -95,11 +96,9 @@ def when(jd: float, timezone: str | None = None) -> str:
     timezone : str, optional
         IANA zone of the site; without it only UTC is given.
     """
-    import datetime as _dt
     from zoneinfo import ZoneInfo
 
-    moment = (_dt.datetime(2000, 1, 1, 12, tzinfo=_dt.timezone.utc)
-              + _dt.timedelta(seconds=round((jd - 2451545.0) * 86400.0)))
+    moment = datetime_from_jd(jd)
     text = f"{moment:%Y-%m-%d %H:%M:%S} UTC"
     if timezone:
         local = moment.astimezone(ZoneInfo(timezone))

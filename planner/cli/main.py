@@ -318,9 +318,9 @@ def _run_replan(args) -> int:
 
 def _clock_jd() -> float:
     """Return the time from the system clock, JD (UTC scale): what "now" is without --now."""
-    import time
+    from planner.clock import jd_now
 
-    return 2440587.5 + time.time() / 86400.0  # Unix time counts UTC days from JD 2440587.5
+    return jd_now()
 
 
 def _configure_logging(args) -> None:

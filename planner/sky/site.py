@@ -18,6 +18,7 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 import numpy as np
 from scipy.interpolate import CubicSpline
 
+from planner.clock import jd_from_datetime
 from planner.errors import ScenarioError, SkyError
 from planner.sky.airmass import altaz_from_hadec
 from planner.sky.ephemeris import EphemerisAt, NodeEphemeris, node_ephemeris, radec_from_unit
@@ -176,8 +177,7 @@ def night_span_start_jd(site: Site, date: str) -> float:
     """Return the JD UTC of local noon on ``date`` at the site (start of its night's span)."""
     day = _parse_date(date, "night date")
     noon = _dt.datetime(day.year, day.month, day.day, 12, tzinfo=ZoneInfo(site.timezone))
-    utc = noon.astimezone(_dt.timezone.utc)
-    return 2440587.5 + utc.timestamp() / 86400.0
+    return jd_from_datetime(noon)
 
 
 def dark_windows(

@@ -18,21 +18,12 @@ import datetime as _dt
 import re
 from zoneinfo import ZoneInfo
 
+from planner.clock import datetime_from_jd, jd_from_datetime
 from planner.errors import PlanError
 
-__all__ = ["jd_from_datetime", "offset_text", "parse_moment", "zone_offsets"]
+__all__ = ["offset_text", "parse_moment", "zone_offsets"]
 
-_J2000 = _dt.datetime(2000, 1, 1, 12, tzinfo=_dt.timezone.utc)  # JD 2451545.0 (UTC scale)
 _LOCAL = re.compile(r"\s*\blocal\s*$", re.IGNORECASE)
-
-
-def jd_from_datetime(moment: _dt.datetime) -> float:
-    """JD (UTC scale) of an aware datetime."""
-    return 2451545.0 + (moment - _J2000).total_seconds() / 86400.0
-
-
-def _datetime_from_jd(jd: float) -> _dt.datetime:
-    return _J2000 + _dt.timedelta(seconds=round((jd - 2451545.0) * 86400.0))
 
 
 def offset_text(offset: _dt.timedelta) -> str:
@@ -45,7 +36,7 @@ def offset_text(offset: _dt.timedelta) -> str:
 def zone_offsets(zone_name: str, jds) -> list[str]:
     """Return the zone's UTC offset (``UTC-03:00``) at each of the instants ``jds`` (JD UTC)."""
     zone = ZoneInfo(zone_name)
-    return [offset_text(_datetime_from_jd(jd).astimezone(zone).utcoffset()) for jd in jds]
+    return [offset_text(datetime_from_jd(jd).astimezone(zone).utcoffset()) for jd in jds]
 
 
 def parse_moment(text: str, zone_name: str, where: str) -> float:

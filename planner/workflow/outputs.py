@@ -27,6 +27,7 @@ from dataclasses import MISSING, asdict, dataclass, fields
 from pathlib import Path
 from typing import Any
 
+from planner.clock import datetime_from_jd, jd_from_datetime
 from planner.errors import PlanError
 from planner.workflow.accounting import LeftOut, TargetAccount
 
@@ -223,9 +224,7 @@ class PlanFile:
 
 def format_utc(jd: float) -> str:
     """ISO 8601 UTC text of a JD (UTC scale), rounded to the second."""
-    seconds = round((jd - 2451545.0) * 86400.0)
-    moment = _dt.datetime(2000, 1, 1, 12) + _dt.timedelta(seconds=seconds)
-    return moment.strftime("%Y-%m-%dT%H:%M:%SZ")
+    return datetime_from_jd(jd).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
 def parse_utc(text: str, where: str = "time") -> float:
@@ -241,9 +240,7 @@ def parse_utc(text: str, where: str = "time") -> float:
     except ValueError:
         raise PlanError(f"{where}: {text!r} is not an ISO date-time such as "
                         "2027-10-05T02:00:00Z.") from None
-    if moment.tzinfo is not None:
-        moment = moment.astimezone(_dt.timezone.utc).replace(tzinfo=None)
-    return 2451545.0 + (moment - _dt.datetime(2000, 1, 1, 12)).total_seconds() / 86400.0
+    return jd_from_datetime(moment)
 
 
 def atomic_write_bytes(path: str | Path, data: bytes) -> None:

@@ -14,6 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
+from planner.clock import datetime64_from_jd
 from planner.errors import PlanError
 from planner.workflow.outputs import atomic_write_bytes
 
@@ -22,7 +23,6 @@ __all__ = [
     "check_plot_path",
     "comparison_figure",
     "curves_figure",
-    "jd_to_datetime64",
     "new_figure",
     "night_figure",
     "plot_comparison",
@@ -97,12 +97,6 @@ def _save(fig, path: str | Path) -> Path:
     return path
 
 
-def jd_to_datetime64(times_jd) -> np.ndarray:
-    """JD (UTC scale) to ``numpy.datetime64[ms]`` (UTC), for matplotlib's date axes."""
-    ms = np.round((np.asarray(times_jd, dtype=float) - 2440587.5) * 86400000.0)
-    return ms.astype("int64").astype("datetime64[ms]")
-
-
 def airmass_altitude_deg(airmass: float) -> float:
     """Altitude at which the Kasten and Young airmass equals ``airmass`` [deg].
 
@@ -172,7 +166,7 @@ def night_figure(run, plan_file):
     for k, (night, ax) in enumerate(zip(nights, axes, strict=True)):
         cols = np.flatnonzero(run.sky.night_index == k)
         times = run.sky.times_jd[cols]
-        clock = jd_to_datetime64(times)
+        clock = datetime64_from_jd(times)
         visits = [v for v in plan_file.visits if v.night == night.date]
         scheduled = sorted({v.target for v in visits}, key=ids.index)
         for j, target in enumerate(scheduled):
@@ -183,9 +177,9 @@ def night_figure(run, plan_file):
             for v in (v for v in visits if v.target == target):
                 t = np.linspace(parse_utc(v.start_utc), parse_utc(v.end_utc), 8)
                 alt = np.interp(t, times, run.sky.altitude_deg[s, cols])
-                ax.plot(jd_to_datetime64(t), alt, color=colour, lw=4, solid_capstyle="butt")
+                ax.plot(datetime64_from_jd(t), alt, color=colour, lw=4, solid_capstyle="butt")
         for a, b in night.moon_up:
-            ax.axvspan(*jd_to_datetime64([a, b]), color="0.9", zorder=0)
+            ax.axvspan(*datetime64_from_jd([a, b]), color="0.9", zorder=0)
         ax.axhline(run.site.min_altitude_deg, color="0.4", lw=0.7, ls=":",
                    label=f"lowest altitude {run.site.min_altitude_deg:g} deg")
         for limit in sorted({float(limits[ids.index(t)]) for t in scheduled}):
@@ -229,7 +223,7 @@ def curves_figure(run, targets=None):
         best = np.where(run.observable[:, s].any(axis=0), best, np.nan)
         for k in range(len(run.nights)):
             cols = np.flatnonzero(run.sky.night_index == k)
-            ax.plot(jd_to_datetime64(run.sky.times_jd[cols]), best[cols], lw=0.9,
+            ax.plot(datetime64_from_jd(run.sky.times_jd[cols]), best[cols], lw=0.9,
                     color=colours(j % 20), label=name if k == 0 else None)
     _clock_axis(ax, zone, dates=True)
     ax.set_xlabel(f"local date and time ({run.site.timezone})")

@@ -29,11 +29,12 @@ Executed visits kept by a re-plan are not in the queue. The table reads back wit
 
 from __future__ import annotations
 
-import datetime as _dt
 import io
 from zoneinfo import ZoneInfo
 
 import numpy as np
+
+from planner.clock import J2000_JD, datetime_from_jd
 
 __all__ = ["COORDINATE_EPOCH", "queue_table", "queue_text"]
 
@@ -43,10 +44,7 @@ COORDINATE_EPOCH = "J2000.0"
 
 
 def _local(jd: float, zone: ZoneInfo) -> str:
-    from planner.workflow.outputs import format_utc
-
-    moment = _dt.datetime.fromisoformat(format_utc(jd).replace("Z", "+00:00"))
-    return moment.astimezone(zone).isoformat()
+    return datetime_from_jd(jd).astimezone(zone).isoformat()
 
 
 def queue_table(plan_file, v_mag: dict):
@@ -94,7 +92,7 @@ def queue_table(plan_file, v_mag: dict):
     table["slew"] = slew * u.s
     for name, jd in (("slew_start", slewing), ("shutter_open", opened),
                      ("shutter_close", closed)):
-        column = Time(np.round((jd - 2451545.0) * 86400.0) / 86400.0, 2451545.0, format="jd",
+        column = Time(np.round((jd - J2000_JD) * 86400.0) / 86400.0, J2000_JD, format="jd",
                       scale="utc", precision=0)
         column.format = "isot"
         table[f"{name}_utc"] = column

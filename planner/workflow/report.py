@@ -26,6 +26,7 @@ from zoneinfo import ZoneInfo
 
 import numpy as np
 
+from planner.clock import datetime_from_jd, jd_from_datetime
 from planner.workflow.outputs import PlanFile, ScheduledVisit, parse_utc
 
 __all__ = [
@@ -55,15 +56,8 @@ _COLUMNS = (f"{'':1}{'slew':>8} {'open':>8} {'open UTC':>8}  {'target':<16} {'ex
 
 
 
-_J2000 = _dt.datetime(2000, 1, 1, 12, tzinfo=_dt.timezone.utc)  # JD 2451545.0 (UTC scale)
-
-
-def _moment_jd(jd: float) -> _dt.datetime:
-    return _J2000 + _dt.timedelta(seconds=round((jd - 2451545.0) * 86400.0))
-
-
 def _moment(text: str) -> _dt.datetime:
-    return _moment_jd(parse_utc(text))
+    return datetime_from_jd(parse_utc(text))
 
 
 def _hm(moment: _dt.datetime, zone: ZoneInfo) -> str:
@@ -298,7 +292,7 @@ def _night_body(night, visits, running, zone):
 
     def separator(jd: float) -> None:
         nonlocal last_hour
-        local = _moment_jd(jd).astimezone(zone)
+        local = datetime_from_jd(jd).astimezone(zone)
         hour = local.replace(minute=0, second=0, microsecond=0)
         if last_hour is None or hour > last_hour:
             lines.append(f"{'':1}{'-' * 4} {hour.strftime('%H:00')} {'-' * 40}")
@@ -307,22 +301,22 @@ def _night_body(night, visits, running, zone):
     def hours(start: float, end: float) -> list[float]:
         """Local hour boundaries strictly inside ``(start, end)``."""
         out = []
-        hour = _moment_jd(start).astimezone(zone).replace(minute=0, second=0, microsecond=0)
+        hour = datetime_from_jd(start).astimezone(zone).replace(minute=0, second=0, microsecond=0)
         while True:
             hour += _dt.timedelta(hours=1)
-            jd = 2451545.0 + (hour - _J2000).total_seconds() / 86400.0
+            jd = jd_from_datetime(hour)
             if jd >= end:
                 return out
             out.append(jd)
 
     def stretch(a: float, b: float, label: str, why: str | None = None) -> None:
         separator(a)
-        moment = _moment_jd(a)
+        moment = datetime_from_jd(a)
         seconds = int(round((b - a) * 86400.0))
         length = f"{seconds // 3600}h{seconds % 3600 // 60:02d}m{seconds % 60:02d}s"
         tail = f": {why}" if why else ""
         lines.append(f"{'':1}{_hms(moment, zone):>8} {'':>8} {_hms(moment):>8}  {label} {length}"
-                     f" until {_hms(_moment_jd(b), zone)}{tail}")
+                     f" until {_hms(datetime_from_jd(b), zone)}{tail}")
 
     def gap(start: float, end: float) -> None:
         """Lost and idle lines from ``start`` to ``end`` (lost cut at every local hour)."""
@@ -351,9 +345,9 @@ def _night_body(night, visits, running, zone):
         running += visit.expected_bits
         bits += visit.expected_bits
         mark = " " if visit.status == "planned" else "*"
-        moment = _moment_jd(start)
+        moment = datetime_from_jd(start)
         airmass = f"{visit.airmass_start:.2f}>{visit.airmass_end:.2f}"
-        lines.append(f"{mark}{_hms(_moment_jd(slew_start), zone):>8} {_hms(moment, zone):>8} "
+        lines.append(f"{mark}{_hms(datetime_from_jd(slew_start), zone):>8} {_hms(moment, zone):>8} "
                      f"{_hms(moment):>8}  {visit.target[:16]:<16} {visit.exposure_s:>5.0f}  "
                      f"{airmass:>9}  {visit.moon_separation_deg:>4.0f}  {visit.slew_s:>5.0f}  "
                      f"{visit.expected_bits:>7.3f}  {running:>8.3f}")
@@ -439,7 +433,7 @@ def curves_summary(run, targets=None) -> str:
                 cells.append(f" {'no: ' + why:>13}"[:14])
                 continue
             c = cols[np.argmax(best[cols])]
-            moment = _hm(_moment_jd(run.sky.times_jd[c]), zone)
+            moment = _hm(datetime_from_jd(run.sky.times_jd[c]), zone)
             cells.append(f" {best[c]:>6.3f}@{moment}")
         lines.append(f"{target.id[:16]:<16}" + "".join(cells))
     lines.extend(_wrap("no: LIMIT - no exposure can start that night; LIMIT keeps the target out "

@@ -26,6 +26,7 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 import yaml
 
+from planner.clock import jd_from_datetime
 from planner.errors import ScenarioError
 
 __all__ = [
@@ -48,8 +49,6 @@ __all__ = [
 #: Named twilights accepted by ``run.twilight`` (Sun altitudes -6, -12 and -18 degrees).
 TWILIGHT_NAMES = ("civil", "nautical", "astronomical")
 
-_J2000 = _dt.datetime(2000, 1, 1, 12, 0, 0)  # JD 2451545.0 on the UTC scale
-_J2000_JD = 2451545.0
 _ID_PATTERN = re.compile(r"^[A-Za-z0-9][A-Za-z0-9 _.+-]{0,63}$")
 
 
@@ -565,9 +564,7 @@ def _window(item: Any, bad) -> tuple[float, float]:
                 raise bad(" (not an ISO date-time)") from None
         if not isinstance(value, _dt.datetime):
             raise bad()
-        if value.tzinfo is not None:
-            value = value.astimezone(_dt.timezone.utc).replace(tzinfo=None)
-        jd.append(_J2000_JD + (value - _J2000).total_seconds() / 86400.0)
+        jd.append(jd_from_datetime(value))
     if jd[1] <= jd[0]:
         raise bad(" (the window ends before it starts)")
     return jd[0], jd[1]
