@@ -27,6 +27,7 @@ from planner.cli.support import (
     SCENARIO_HELP,
     ProgressBar,
     add_common_options,
+    add_output_options,
     add_strict,
     fit_with_progress,
     open_session,
@@ -75,11 +76,11 @@ def _plan_options(p, out_default: str | None) -> None:
     p.add_argument("--strategy", choices=("joint", "greedy", "cadence"), default=None,
                    help="allocation strategy (default: the scenario's solver.strategy, joint)")
     _limit_options(p, "solver.work_limit, for replan solver.replan_work_limit")
-    p.add_argument("--out", metavar="DIR", default=out_default,
-                   help="folder for plan.json, plan.csv and the queue table plan.ecsv "
-                        "(default: %(default)s)")
-    p.add_argument("--force", action="store_true", help="replace an existing plan in DIR")
-    p.add_argument("--plot", metavar="FILE", help="also draw the night altitude charts to FILE")
+    add_output_options(p, out_default=out_default,
+                       out_help="folder for plan.json, plan.csv and the queue table plan.ecsv "
+                                "(default: %(default)s)",
+                       written="plan in DIR", plot_help="also draw the night altitude charts "
+                                                        "to FILE")
 
 
 def _add_plan(sub) -> None:
@@ -96,10 +97,10 @@ def _add_compare(sub) -> None:
                  "Plan the run with every strategy and compare them on the exact joint "
                  "information score.", _run_compare)
     _limit_options(p, "solver.work_limit")
-    p.add_argument("--out", metavar="DIR", default=None,
-                   help="also write DIR/compare.json (one record per strategy)")
-    p.add_argument("--force", action="store_true", help="replace an existing DIR/compare.json")
-    p.add_argument("--plot", metavar="FILE", help="also draw the comparison bar chart to FILE")
+    add_output_options(p, out_default=None,
+                       out_help="also write DIR/compare.json (one record per strategy)",
+                       written="DIR/compare.json",
+                       plot_help="also draw the comparison bar chart to FILE")
     add_strict(p)
 
 

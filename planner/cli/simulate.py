@@ -24,7 +24,7 @@ CAUTION = ("A simulation on invented stars: it tests the method, not a night's s
 
 def add_simulate(sub) -> None:
     """Register the ``simulate`` subcommand on an argparse subparsers object."""
-    from planner.cli.support import add_common_options, add_strict
+    from planner.cli.support import add_common_options, add_output_options, add_strict
 
     p = sub.add_parser(
         "simulate", help="execute the strategies against true orbits and measure realised bits",
@@ -51,10 +51,10 @@ def add_simulate(sub) -> None:
                         "measuring on the old samples")
     p.add_argument("--time-limit", type=float, default=None, metavar="S",
                    help="solver limit of every joint plan and re-plan (default: the scenario's)")
-    p.add_argument("--out", metavar="DIR", default="nightbits-simulate",
-                   help="folder for simulate.json (default: %(default)s)")
-    p.add_argument("--force", action="store_true", help="replace an existing DIR/simulate.json")
-    p.add_argument("--plot", metavar="FILE", help="draw realised against expected bits to FILE")
+    add_output_options(p, out_default="nightbits-simulate",
+                       out_help="folder for simulate.json (default: %(default)s)",
+                       written="DIR/simulate.json",
+                       plot_help="draw realised against expected bits to FILE")
     p.add_argument("--plot-star", metavar="ID",
                    help="draw this star's period and semi-amplitude before and after (first "
                         "seed, each strategy) to DIR/posterior_<ID>.png")

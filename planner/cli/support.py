@@ -18,6 +18,7 @@ __all__ = [
     "ProgressBar",
     "SCENARIO_HELP",
     "add_common_options",
+    "add_output_options",
     "add_strict",
     "fit_with_progress",
     "open_session",
@@ -89,6 +90,14 @@ def add_strict(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--strict", action="store_true",
                         help="stop with an error if a target can never be observed, instead "
                              "of leaving it out and listing it with the limit that excludes it")
+
+
+def add_output_options(parser: argparse.ArgumentParser, *, out_default: str | None,
+                       out_help: str, written: str, plot_help: str) -> None:
+    """Add ``--out DIR``, ``--force`` (replace ``written`` in DIR) and ``--plot FILE``."""
+    parser.add_argument("--out", metavar="DIR", default=out_default, help=out_help)
+    parser.add_argument("--force", action="store_true", help=f"replace an existing {written}")
+    parser.add_argument("--plot", metavar="FILE", help=plot_help)
 
 
 def open_session(args):
