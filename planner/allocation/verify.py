@@ -152,31 +152,52 @@ def verify_plan(
     -------
     Verification
     """
-    from planner.sky.airmass import airmass_kasten_young
-    from planner.sky.slew import slew_seconds
-    from planner.sky.tracks import pointing_at
-
-    problems: list[str] = []
     zone = getattr(site, "timezone", None)
     label = lambda v: _label(v, zone)  # noqa: E731
     index = {name: k for k, name in enumerate(problem.target_names)}
     night_of = {n.date: n for n in nights}
-    ra, dec = np.asarray(ra_deg, float), np.asarray(dec_deg, float)
-    limits = constraints.airmass_limits(problem.n_targets)
-    tol_d = time_tol_s / 86400.0
     visits = sorted(plan.visits, key=lambda v: v.start_jd)
-    for v in visits:
-        if v.target not in index:
-            problems.append(f"{label(v)}: the target is not in the problem.")
-        elif v.night not in night_of:
-            problems.append(f"{label(v)}: the night is not in the run.")
+    problems = [f"{label(v)}: the target is not in the problem." if v.target not in index
+                else f"{label(v)}: the night is not in the run."
+                for v in visits if v.target not in index or v.night not in night_of]
     if problems:
         return Verification(False, tuple(problems), len(visits))
     if not visits:  # an empty plan breaks no rule
         return Verification(True, (), 0)
-    overhead = 0.0 if mount is None else mount.overhead_s()
-    blocks = list(constraints.blackouts) + [tuple(b) for b in problem.reserved_jd]
+    check = _Check(site, problem, constraints, mount, index, night_of, label,
+                   np.asarray(ra_deg, float), np.asarray(dec_deg, float), time_tol_s,
+                   angle_tol_deg)
+    problems = (_exposure_problems(check, visits, sample_s) + _changeover_problems(check, visits)
+                + _rule_problems(visits, problem, zone))
+    return Verification(not problems, tuple(problems), len(visits))
 
+
+@dataclass(frozen=True)
+class _Check:
+    """What every step of :func:`verify_plan` reads."""
+
+    site: object
+    problem: Problem
+    constraints: object
+    mount: object
+    index: dict
+    night_of: dict
+    label: object
+    ra: np.ndarray
+    dec: np.ndarray
+    time_tol_s: float
+    angle_tol_deg: float
+
+
+def _exposure_problems(check: _Check, visits, sample_s: float) -> list[str]:
+    """Dark window, length, altitude, airmass, Moon and blocks over each whole exposure."""
+    from planner.sky.airmass import airmass_kasten_young
+
+    problem, constraints, label = check.problem, check.constraints, check.label
+    angle_tol_deg, tol_d = check.angle_tol_deg, check.time_tol_s / 86400.0
+    limits = constraints.airmass_limits(problem.n_targets)
+    overhead = 0.0 if check.mount is None else check.mount.overhead_s()
+    blocks = list(constraints.blackouts) + [tuple(b) for b in problem.reserved_jd]
     # Limits over each whole exposure, at exact instants.
     inst_t, inst_v = [], []
     for k, v in enumerate(visits):
@@ -184,22 +205,23 @@ def verify_plan(
         inst_t.append(np.linspace(v.start_jd, v.end_jd, n + 1))
         inst_v.append(np.full(n + 1, k))
     t_all, v_all = np.concatenate(inst_t), np.concatenate(inst_v)
-    tgt = np.array([index[v.target] for v in visits])
-    alt, _, moon_sep, moon_alt, moon_ill = _exact_sky(site, ra[tgt[v_all]], dec[tgt[v_all]],
-                                                     t_all)
+    tgt = np.array([check.index[v.target] for v in visits])
+    alt, _, moon_sep, moon_alt, moon_ill = _exact_sky(check.site, check.ra[tgt[v_all]],
+                                                     check.dec[tgt[v_all]], t_all)
     need = constraints.min_moon_separation(moon_ill)
-    bad_alt = (alt < site.min_altitude_deg - angle_tol_deg) | (
-        alt > site.max_altitude_deg + angle_tol_deg)
+    bad_alt = (alt < check.site.min_altitude_deg - angle_tol_deg) | (
+        alt > check.site.max_altitude_deg + angle_tol_deg)
     bad_am = airmass_kasten_young(alt) > limits[tgt[v_all]] * (1 + 1e-4)
     bad_moon = (moon_alt > angle_tol_deg) & (moon_sep < need - angle_tol_deg)
+    problems = []
     for k, v in enumerate(visits):
         here = v_all == k
-        night = night_of[v.night]
+        night = check.night_of[v.night]
         if v.start_jd < night.dark_start_jd - tol_d or v.end_jd > night.dark_end_jd + tol_d:
             problems.append(f"{label(v)}: the exposure is not inside the night's dark window.")
         opt_ok = 0 <= v.option < problem.exposure_s.size
         want = problem.exposure_s[v.option] if opt_ok else np.nan
-        if not (abs((v.end_jd - v.start_jd) * 86400.0 - v.exposure_s) <= time_tol_s
+        if not (abs((v.end_jd - v.start_jd) * 86400.0 - v.exposure_s) <= check.time_tol_s
                 and abs(v.exposure_s - want) <= 1e-6):
             problems.append(f"{label(v)}: its length does not match its exposure option.")
         for mask, what in ((bad_alt, "altitude"), (bad_am, "airmass"), (bad_moon, "Moon")):
@@ -208,30 +230,37 @@ def verify_plan(
         for a, b in blocks:
             if v.start_jd - overhead / 86400.0 < b - tol_d and v.end_jd > a + tol_d:
                 problems.append(f"{label(v)}: it overlaps a blackout or reserved block.")
+    return problems
 
-    # Order, overlaps and slews between neighbours of the same night.
+
+def _changeover_problems(check: _Check, visits) -> list[str]:
+    """Order, overlaps and slews between neighbours of the same night."""
+    from planner.sky.slew import slew_seconds
+    from planner.sky.tracks import pointing_at
+
     pairs = [(a, b) for a, b in zip(visits, visits[1:], strict=False) if a.night == b.night]
-    gaps = np.array([(b.start_jd - a.end_jd) * 86400.0 for a, b in pairs])
+    waits = np.array([(b.start_jd - a.end_jd) * 86400.0 for a, b in pairs])
     need_s = np.zeros(len(pairs))
-    if mount is not None and pairs:
-        first = np.array([index[a.target] for a, _ in pairs])
-        second = np.array([index[b.target] for _, b in pairs])
-        ends = pointing_at(site, ra[np.r_[first, second]], dec[np.r_[first, second]],
+    if check.mount is not None and pairs:
+        first = np.array([check.index[a.target] for a, _ in pairs])
+        second = np.array([check.index[b.target] for _, b in pairs])
+        both = np.r_[first, second]
+        ends = pointing_at(check.site, check.ra[both], check.dec[both],
                            [a.end_jd for a, _ in pairs] + [b.start_jd for _, b in pairs],
                            moon=False)
         m = len(pairs)
-        need_s = slew_seconds(mount, ends.altitude_deg[:m], ends.azimuth_deg[:m],
+        need_s = slew_seconds(check.mount, ends.altitude_deg[:m], ends.azimuth_deg[:m],
                               ends.altitude_deg[m:], ends.azimuth_deg[m:])
-    for (prev, nxt), gap, need in zip(pairs, gaps, need_s, strict=True):
-        if gap < -time_tol_s:
-            problems.append(f"{label(nxt)}: it overlaps the previous exposure.")
-        elif gap < need - time_tol_s:
+    problems = []
+    for (prev, nxt), wait, need in zip(pairs, waits, need_s, strict=True):
+        if wait < -check.time_tol_s:
+            problems.append(f"{check.label(nxt)}: it overlaps the previous exposure.")
+        elif wait < need - check.time_tol_s:
             problems.append(
-                f"{label(nxt)}: the gap before it is {gap:.0f} s but the slew and overhead "
-                f"from {prev.target!r} need {need:.0f} s."
+                f"{check.label(nxt)}: the time before it is {wait:.0f} s but the slew and "
+                f"overhead from {prev.target!r} need {need:.0f} s."
             )
-    problems.extend(_rule_problems(visits, problem, zone))
-    return Verification(not problems, tuple(problems), len(visits))
+    return problems
 
 
 def _rule_problems(visits, problem: Problem, timezone: str | None = None) -> list[str]:
