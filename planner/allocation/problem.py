@@ -313,103 +313,36 @@ def build_problem(
         If an input has the wrong shape or an impossible value.
     """
     times = np.asarray(times_jd, dtype=float)
-    n_times = times.size
     names = tuple(str(n) for n in target_names)
     exposure = np.asarray(exposure_s, dtype=float)
-    n_opt, n_tgt = exposure.size, len(names)
     night_index = np.asarray(night_index, dtype=np.int64)
     dark_jd = np.asarray(dark_jd, dtype=float).reshape(-1, 2)
-    if n_times < 2 or night_index.shape != times.shape:
-        raise PlanError("The run grid needs at least two times and one night index per time.")
-    if len(rules) != n_tgt:
-        raise PlanError(f"Got {len(rules)} rule records for {n_tgt} targets; give one per target.")
-    for name, rule in zip(names, rules, strict=True):
-        validate_rules(rule, name)
-    for label, arr, shape in (
-        ("observable", observable, (n_opt, n_tgt, n_times)),
-        ("bits", bits, (n_opt, n_tgt, n_times)),
-        ("sigma", sigma, (n_opt, n_tgt, n_times)),
-        ("airmass", airmass, (n_tgt, n_times)),
-        ("altitude_deg", altitude_deg, (n_tgt, n_times)),
-        ("azimuth_deg", azimuth_deg, (n_tgt, n_times)),
-        ("bjd_tdb", bjd_tdb, (n_tgt, n_times)),
-    ):
-        if np.shape(arr) != shape:
-            raise PlanError(f"{label} has shape {np.shape(arr)}; expected {shape}.")
-    if not (0 <= default_option < n_opt):
-        raise PlanError(f"default_option {default_option} is not one of the {n_opt} options.")
-    if np.any(~np.isfinite(exposure)) or np.any(exposure <= 0):
-        raise PlanError("Every exposure time must be a positive number of seconds.")
     bits = np.asarray(bits, dtype=float)
+    _check_inputs(times, night_index, names, rules, exposure, default_option, {
+        "observable": observable, "bits": bits, "sigma": sigma, "airmass": airmass,
+        "altitude_deg": altitude_deg, "azimuth_deg": azimuth_deg, "bjd_tdb": bjd_tdb})
     observable = np.asarray(observable, dtype=bool) & np.isfinite(bits)
     if np.any(bits[observable] < 0):
         raise PlanError("One-visit bits must be >= 0 wherever a start is observable.")
-
-    # Solver clock: exact whole minutes inside each night (the grid step is whole minutes),
-    # each night's first grid time rounded to the minute from the epoch (nights never meet).
-    epoch = float(times[0])
-    same = np.diff(night_index) == 0
-    steps = np.diff(times)[same] * MINUTES_PER_DAY
-    step_min = int(round(steps.min())) if steps.size else 1
-    if step_min < 1 or np.any(np.abs(steps - np.rint(steps)) > 1e-3):
-        raise PlanError("Grid times inside a night must be a whole number of minutes apart.")
-    first = np.r_[True, ~same]
-    night_first = np.maximum.accumulate(np.where(first, np.arange(n_times), 0))
-    grid_min = (np.rint((times[night_first] - epoch) * MINUTES_PER_DAY)
-                + np.rint((times - times[night_first]) * MINUTES_PER_DAY)).astype(np.int64)
+    epoch, step_min, grid_min = _solver_clock(times, night_index)
     reserved_jd = np.asarray(reserved_jd, dtype=float).reshape(-1, 2)
-    duration = np.ceil(exposure / 60.0 - 1e-9).astype(np.int64)
+    allowed = _allowed_starts(times, night_index, dark_jd, exposure, observable, rules,
+                              reserved_jd, overhead_s)
     spacing = max(1, int(math.ceil(thin_spacing_min / step_min)))
-    in_night = (night_index >= 0) & (night_index < len(dark_jd))
-    nights_of = np.clip(night_index, 0, len(dark_jd) - 1)
-
-    parts = {k: [] for k in ("target", "night", "option", "time")}
-    allowed = np.zeros((n_opt, n_tgt, n_times), dtype=bool)
-    for o in range(n_opt):
-        end = times + exposure[o] / 86400.0
-        ok_time = in_night & (times >= dark_jd[nights_of, 0] - 1e-9) & (
-            end <= dark_jd[nights_of, 1] + 1e-9)
-        if reserved_jd.size:
-            early = times - overhead_s / 86400.0
-            ok_time &= ~((early[:, None] < reserved_jd[:, 1]) & (end[:, None] > reserved_jd[:, 0])
-                         ).any(axis=1)
-        for s in range(n_tgt):
-            rule = rules[s]
-            ok = observable[o, s] & ok_time
-            ok &= _inside_any(times, end, np.asarray(rule.windows_jd, float).reshape(-1, 2))
-            allowed[o, s] = ok
-            must = np.asarray(rule.must_windows_jd, float).reshape(-1, 2)
-            for n in np.unique(night_index[ok]):
-                idx = np.flatnonzero(ok & (night_index == n))
-                groups = [idx] + [idx[_inside_any(times[idx], end[idx], w[None])] for w in must]
-                kept = [g[_thin(bits[o, s, g], keep_per_night, spacing)] for g in groups if g.size]
-                if o == default_option:  # the cadence plan's start: lowest airmass of the night
-                    kept.append(idx[[np.argmin(np.asarray(airmass)[s, idx])]])
-                kept = np.unique(np.concatenate(kept))
-                parts["target"].append(np.full(kept.size, s))
-                parts["night"].append(np.full(kept.size, n))
-                parts["option"].append(np.full(kept.size, o))
-                parts["time"].append(kept)
-    cat = {k: (np.concatenate(v).astype(np.int64) if v else np.zeros(0, np.int64))
-           for k, v in parts.items()}
-    order = np.lexsort((cat["target"], cat["option"], grid_min[cat["time"]], cat["night"]))
-    tgt, nig, opt, tix = (cat[k][order] for k in ("target", "night", "option", "time"))
+    tgt, nig, opt, tix = _kept_starts(times, night_index, grid_min, exposure, allowed, bits,
+                                      rules, np.asarray(airmass, float), default_option,
+                                      keep_per_night, spacing)
+    duration = np.ceil(exposure / 60.0 - 1e-9).astype(np.int64)
     per_step = exposure[opt] / (60.0 * step_min)
     alt = np.asarray(altitude_deg, float)
     az = np.asarray(azimuth_deg, float)
     alt_end, az_end = _interp_position(alt[tgt], az[tgt], (tix + per_step)[:, None])
     frac_mid = tix + 0.5 * per_step
-    mid_lo = np.clip(np.floor(frac_mid).astype(np.int64), 0, n_times - 1)
-    mid_hi = np.clip(mid_lo + 1, 0, n_times - 1)
+    mid_lo = np.clip(np.floor(frac_mid).astype(np.int64), 0, times.size - 1)
+    mid_hi = np.clip(mid_lo + 1, 0, times.size - 1)
     w = np.clip(frac_mid - mid_lo, 0.0, 1.0)
     am = np.asarray(airmass, float)
     bj = np.asarray(bjd_tdb, float)
-    night_min = np.zeros((len(dark_jd), 2), dtype=np.int64)
-    for n in range(len(dark_jd)):
-        here = np.flatnonzero(night_index == n)
-        if here.size:
-            k = here[0]
-            night_min[n] = grid_min[k] + np.rint((dark_jd[n] - times[k]) * MINUTES_PER_DAY)
     return Problem(
         epoch_jd=epoch,
         step_min=step_min,
@@ -417,7 +350,7 @@ def build_problem(
         rules=tuple(rules),
         night_dates=tuple(str(d) for d in night_dates),
         dark_jd=dark_jd,
-        dark_min=night_min,
+        dark_min=_dark_minutes(times, night_index, grid_min, dark_jd),
         exposure_s=exposure,
         default_option=int(default_option),
         overhead_s=float(overhead_s),
@@ -443,6 +376,112 @@ def build_problem(
                           sigma=np.asarray(sigma, float), airmass=am,
                           altitude_deg=alt, azimuth_deg=az, bjd_tdb=bj, exposure_s=exposure),
     )
+
+
+def _check_inputs(times, night_index, names, rules, exposure, default_option, arrays) -> None:
+    """Refuse wrong shapes and impossible values with one sentence."""
+    n_times, n_opt, n_tgt = times.size, exposure.size, len(names)
+    if n_times < 2 or night_index.shape != times.shape:
+        raise PlanError("The run grid needs at least two times and one night index per time.")
+    if len(rules) != n_tgt:
+        raise PlanError(f"Got {len(rules)} rule records for {n_tgt} targets; give one per target.")
+    for name, rule in zip(names, rules, strict=True):
+        validate_rules(rule, name)
+    for label, arr in arrays.items():
+        shape = (n_opt, n_tgt, n_times) if label in ("observable", "bits", "sigma") else (
+            n_tgt, n_times)
+        if np.shape(arr) != shape:
+            raise PlanError(f"{label} has shape {np.shape(arr)}; expected {shape}.")
+    if not (0 <= default_option < n_opt):
+        raise PlanError(f"default_option {default_option} is not one of the {n_opt} options.")
+    if np.any(~np.isfinite(exposure)) or np.any(exposure <= 0):
+        raise PlanError("Every exposure time must be a positive number of seconds.")
+
+
+def _solver_clock(times, night_index):
+    """Return the solver clock: epoch JD, grid step [min] and each grid time in minutes.
+
+    Exact whole minutes inside each night (the grid step is whole minutes), each night's first
+    grid time rounded to the minute from the epoch (nights never meet).
+    """
+    epoch = float(times[0])
+    same = np.diff(night_index) == 0
+    steps = np.diff(times)[same] * MINUTES_PER_DAY
+    step_min = int(round(steps.min())) if steps.size else 1
+    if step_min < 1 or np.any(np.abs(steps - np.rint(steps)) > 1e-3):
+        raise PlanError("Grid times inside a night must be a whole number of minutes apart.")
+    first = np.r_[True, ~same]
+    night_first = np.maximum.accumulate(np.where(first, np.arange(times.size), 0))
+    grid_min = (np.rint((times[night_first] - epoch) * MINUTES_PER_DAY)
+                + np.rint((times - times[night_first]) * MINUTES_PER_DAY)).astype(np.int64)
+    return epoch, step_min, grid_min
+
+
+def _allowed_starts(times, night_index, dark_jd, exposure, observable, rules, reserved_jd,
+                    overhead_s) -> np.ndarray:
+    """Mark the starts inside a dark window, every limit, the windows, no reserved block.
+
+    Returns a boolean array of shape (n_options, n_targets, n_times).
+    """
+    in_night = (night_index >= 0) & (night_index < len(dark_jd))
+    nights_of = np.clip(night_index, 0, len(dark_jd) - 1)
+    allowed = np.zeros(observable.shape, dtype=bool)
+    for o in range(exposure.size):
+        end = times + exposure[o] / 86400.0
+        ok_time = in_night & (times >= dark_jd[nights_of, 0] - 1e-9) & (
+            end <= dark_jd[nights_of, 1] + 1e-9)
+        if reserved_jd.size:
+            early = times - overhead_s / 86400.0
+            ok_time &= ~((early[:, None] < reserved_jd[:, 1]) & (end[:, None] > reserved_jd[:, 0])
+                         ).any(axis=1)
+        for s, rule in enumerate(rules):
+            ok = observable[o, s] & ok_time
+            ok &= _inside_any(times, end, np.asarray(rule.windows_jd, float).reshape(-1, 2))
+            allowed[o, s] = ok
+    return allowed
+
+
+def _kept_starts(times, night_index, grid_min, exposure, allowed, bits, rules, airmass,
+                 default_option, keep_per_night, spacing):
+    """Choose the candidate starts kept per (target, night, option), in solver order.
+
+    The best ``keep_per_night`` by one-visit bits, thinned to ``spacing`` grid steps, plus the
+    same inside each must-do window, plus, for the cadence plan's option, the night's start at
+    the lowest airmass. Returns (target, night, option, grid index) arrays sorted by night,
+    start, option and target.
+    """
+    parts = {k: [] for k in ("target", "night", "option", "time")}
+    for o in range(exposure.size):
+        end = times + exposure[o] / 86400.0
+        for s, rule in enumerate(rules):
+            ok = allowed[o, s]
+            must = np.asarray(rule.must_windows_jd, float).reshape(-1, 2)
+            for n in np.unique(night_index[ok]):
+                idx = np.flatnonzero(ok & (night_index == n))
+                groups = [idx] + [idx[_inside_any(times[idx], end[idx], w[None])] for w in must]
+                kept = [g[_thin(bits[o, s, g], keep_per_night, spacing)] for g in groups if g.size]
+                if o == default_option:  # the cadence plan's start: lowest airmass of the night
+                    kept.append(idx[[np.argmin(airmass[s, idx])]])
+                kept = np.unique(np.concatenate(kept))
+                parts["target"].append(np.full(kept.size, s))
+                parts["night"].append(np.full(kept.size, n))
+                parts["option"].append(np.full(kept.size, o))
+                parts["time"].append(kept)
+    cat = {k: (np.concatenate(v).astype(np.int64) if v else np.zeros(0, np.int64))
+           for k, v in parts.items()}
+    order = np.lexsort((cat["target"], cat["option"], grid_min[cat["time"]], cat["night"]))
+    return tuple(cat[k][order] for k in ("target", "night", "option", "time"))
+
+
+def _dark_minutes(times, night_index, grid_min, dark_jd) -> np.ndarray:
+    """Each night's dark window on the solver clock [min], shape (n_nights, 2)."""
+    night_min = np.zeros((len(dark_jd), 2), dtype=np.int64)
+    for n in range(len(dark_jd)):
+        here = np.flatnonzero(night_index == n)
+        if here.size:
+            k = here[0]
+            night_min[n] = grid_min[k] + np.rint((dark_jd[n] - times[k]) * MINUTES_PER_DAY)
+    return night_min
 
 
 def mount_slew(mount) -> SlewModel:
