@@ -332,49 +332,44 @@ def build_problem(
     tgt, nig, opt, tix = _kept_starts(times, night_index, grid_min, exposure, allowed, bits,
                                       rules, np.asarray(airmass, float), default_option,
                                       keep_per_night, spacing)
+    am, bj = np.asarray(airmass, float), np.asarray(bjd_tdb, float)
+    alt, az = np.asarray(altitude_deg, float), np.asarray(azimuth_deg, float)
+    return Problem(
+        epoch_jd=epoch, step_min=step_min, target_names=names, rules=tuple(rules),
+        night_dates=tuple(str(d) for d in night_dates), dark_jd=dark_jd,
+        dark_min=_dark_minutes(times, night_index, grid_min, dark_jd), exposure_s=exposure,
+        default_option=int(default_option), overhead_s=float(overhead_s),
+        slew_margin_s=float(slew_margin_s), slew=slew, reserved_jd=reserved_jd,
+        **_candidate_fields(tgt, nig, opt, tix, grid_min, times, exposure, step_min, bits,
+                            np.asarray(sigma, float), am, alt, az, bj),
+        timeline=Timeline(times_jd=times, night_index=night_index, grid_min=grid_min,
+                          allowed=allowed, bits=np.nan_to_num(bits),
+                          sigma=np.asarray(sigma, float), airmass=am,
+                          altitude_deg=alt, azimuth_deg=az, bjd_tdb=bj, exposure_s=exposure),
+    )
+
+
+def _candidate_fields(tgt, nig, opt, tix, grid_min, times, exposure, step_min, bits, sigma,
+                      am, alt, az, bj) -> dict:
+    """Per-candidate fields: start and length on the solver clock, values from the grid.
+
+    Airmass and barycentric time are taken at mid-exposure, the position at the end, by
+    linear interpolation between grid times.
+    """
     duration = np.ceil(exposure / 60.0 - 1e-9).astype(np.int64)
     per_step = exposure[opt] / (60.0 * step_min)
-    alt = np.asarray(altitude_deg, float)
-    az = np.asarray(azimuth_deg, float)
     alt_end, az_end = _interp_position(alt[tgt], az[tgt], (tix + per_step)[:, None])
     frac_mid = tix + 0.5 * per_step
     mid_lo = np.clip(np.floor(frac_mid).astype(np.int64), 0, times.size - 1)
     mid_hi = np.clip(mid_lo + 1, 0, times.size - 1)
     w = np.clip(frac_mid - mid_lo, 0.0, 1.0)
-    am = np.asarray(airmass, float)
-    bj = np.asarray(bjd_tdb, float)
-    return Problem(
-        epoch_jd=epoch,
-        step_min=step_min,
-        target_names=names,
-        rules=tuple(rules),
-        night_dates=tuple(str(d) for d in night_dates),
-        dark_jd=dark_jd,
-        dark_min=_dark_minutes(times, night_index, grid_min, dark_jd),
-        exposure_s=exposure,
-        default_option=int(default_option),
-        overhead_s=float(overhead_s),
-        slew_margin_s=float(slew_margin_s),
-        slew=slew,
-        reserved_jd=reserved_jd,
-        target=tgt,
-        night=nig,
-        option=opt,
-        start=grid_min[tix],
-        start_jd_grid=times[tix],
-        duration=duration[opt],
-        bits=bits[opt, tgt, tix],
-        sigma=np.asarray(sigma, float)[opt, tgt, tix],
+    return dict(
+        target=tgt, night=nig, option=opt, start=grid_min[tix], start_jd_grid=times[tix],
+        duration=duration[opt], bits=bits[opt, tgt, tix], sigma=sigma[opt, tgt, tix],
         airmass=(1 - w) * am[tgt, mid_lo] + w * am[tgt, mid_hi],
-        alt_start=alt[tgt, tix],
-        az_start=az[tgt, tix],
-        alt_end=alt_end[:, 0],
-        az_end=az_end[:, 0],
+        alt_start=alt[tgt, tix], az_start=az[tgt, tix],
+        alt_end=alt_end[:, 0], az_end=az_end[:, 0],
         bjd_mid=(1 - w) * bj[tgt, mid_lo] + w * bj[tgt, mid_hi],
-        timeline=Timeline(times_jd=times, night_index=night_index, grid_min=grid_min,
-                          allowed=allowed, bits=np.nan_to_num(bits),
-                          sigma=np.asarray(sigma, float), airmass=am,
-                          altitude_deg=alt, azimuth_deg=az, bjd_tdb=bj, exposure_s=exposure),
     )
 
 
