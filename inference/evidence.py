@@ -20,6 +20,7 @@ from .likelihood import log_joint, prepare
 
 __all__ = [
     "ModelProbabilities",
+    "compare_fits",
     "default_model_prior",
     "model_probabilities",
     "no_planet_log_evidence",
@@ -178,3 +179,34 @@ def no_planet_log_evidence(data, model):
     weights = np.full(_NODES, grid[1] - grid[0])
     weights[[0, -1]] *= 0.5  # trapezoid rule
     return float(top + np.log(np.sum(weights * np.exp(log_f - top))))
+
+
+def compare_fits(posteriors, prior, data=None):
+    """Posterior model probabilities of one star's fits with different numbers of planets.
+
+    Parameters
+    ----------
+    posteriors : dict of int to Posterior
+        The star's fit for each number of planets (same data, same priors otherwise).
+    prior : sequence of float
+        Prior weight of each count, in increasing order of the counts.
+    data : RVData, optional
+        The velocities: when given and the no-planet model has one instrument, its evidence
+        is computed by quadrature (:func:`no_planet_log_evidence`, no Monte Carlo error)
+        instead of taken from its sampling run.
+
+    Returns
+    -------
+    ModelProbabilities
+    """
+    counts = sorted(posteriors)
+    log_z, se = [], []
+    for n in counts:
+        post = posteriors[n]
+        if n == 0 and data is not None and len(post.model.instruments) == 1:
+            log_z.append(no_planet_log_evidence(data, post.model))
+            se.append(0.0)
+        else:
+            log_z.append(post.diagnostics.log_evidence)
+            se.append(post.diagnostics.log_evidence_se)
+    return model_probabilities(counts, log_z, se, prior)
