@@ -47,9 +47,13 @@ def _command(sub, name: str, summary: str, description: str, func,
 
 
 def _add_fit(sub) -> None:
-    _command(sub, "fit", "sample every target's orbit posterior (cached)",
-             "Sample the orbit posterior of every target from its past velocities and keep the "
-             "samples in the cache.", _run_fit)
+    p = _command(sub, "fit", "sample every target's orbit posterior (cached)",
+                 "Sample the orbit posterior of every target from its past velocities and keep "
+                 "the samples in the cache. A target with planets: auto is fitted with 0 to "
+                 "max_planets planets and its model probabilities P(0), P(1), ... are printed.",
+                 _run_fit)
+    p.add_argument("--json", metavar="FILE", default=None,
+                   help="also write every target's model probabilities and evidences to FILE")
 
 
 def _add_curves(sub) -> None:
@@ -155,10 +159,18 @@ def build_parser() -> argparse.ArgumentParser:
 
 def _run_fit(args) -> int:
     pipeline, scenario, cache = open_session(args)
-    from planner.workflow.report import fit_summary
+    from planner.workflow.model_file import check_models_file, write_models_json
+    from planner.workflow.report import fit_summary, model_summary
 
-    posteriors = fit_with_progress(args, pipeline, scenario, cache)
-    sys.stdout.write(fit_summary(scenario, posteriors))
+    if args.json:
+        check_models_file(args.json)
+    fits = fit_with_progress(args, pipeline, scenario, cache, models=True)
+    sys.stdout.write(fit_summary(scenario, {name: f.chosen for name, f in fits.items()}))
+    table = model_summary(scenario, fits)
+    if table:
+        sys.stdout.write("\n" + table)
+    if args.json:
+        write_models_json(scenario, fits, args.json)
     return EXIT_OK
 
 

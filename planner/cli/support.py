@@ -109,8 +109,13 @@ def open_session(args):
     return pipeline, scenario, cache
 
 
-def fit_with_progress(args, pipeline, scenario, cache):
-    """Fit (or load from the cache) every target's posterior, with a progress bar on stderr."""
+def fit_with_progress(args, pipeline, scenario, cache, models=False):
+    """Fit (or load from the cache) every target's posterior, with a progress bar on stderr.
+
+    With ``models`` the result is every target's :class:`~planner.workflow.fitting.ModelFits`
+    (all numbers of planets compared) instead of the one posterior the later stages use.
+    """
     bar = ProgressBar(sys.stderr, "fitting")
-    return pipeline.fit_posteriors(scenario, cache=cache, jobs=args.jobs, progress=bar,
-                                   scheduler=pipeline.scheduler_address(args.scheduler))
+    fit = pipeline.fit_models if models else pipeline.fit_posteriors
+    return fit(scenario, cache=cache, jobs=args.jobs, progress=bar,
+               scheduler=pipeline.scheduler_address(args.scheduler))

@@ -2,12 +2,15 @@
 
 One fit job per target goes through :func:`inference.batch.fit_many`, in worker processes, and
 every posterior is cached by content, so a second run of the same scenario loads instead of
-sampling.
+sampling. A target with ``planets: auto`` is fitted with 0, 1, ..., ``max_planets`` planets,
+each fit cached alike, and its evidences give the posterior model probabilities
+(:func:`inference.evidence.compare_fits`).
 """
 
 from __future__ import annotations
 
 import os
+from dataclasses import dataclass
 from pathlib import Path
 
 from planner.errors import PlanError, ScenarioError
@@ -15,8 +18,13 @@ from planner.workflow.scenario import Scenario
 
 __all__ = [
     "SCHEDULER_ENV",
+    "ModelFits",
     "cache_folder",
     "fit_jobs",
+    "fit_models",
+    "model_counts",
+    "model_jobs",
+    "model_prior",
     "fit_posteriors",
     "posterior_keys",
     "sampler_settings",
@@ -63,8 +71,37 @@ def _usable(folder: Path, where: str) -> Path:
     return folder
 
 
-def fit_jobs(scenario: Scenario) -> list:
-    """One fit job per target: its velocities, its model and the sampler settings.
+def model_counts(target) -> tuple[int, ...]:
+    """Numbers of planets fitted for a target: its ``planets``, or 0..max_planets under auto."""
+    if target.planets == "auto":
+        return tuple(range(target.max_planets + 1))
+    return (int(target.planets),)
+
+
+def model_prior(target) -> tuple[float, ...]:
+    """Prior over a target's numbers of planets: its ``model_prior``, else the default.
+
+    The default gives every count 0..max_planets the same probability (docs/priors.md).
+    """
+    from inference.evidence import default_model_prior
+
+    if target.model_prior:
+        total = float(sum(target.model_prior))
+        return tuple(float(w) / total for w in target.model_prior)
+    return default_model_prior(target.max_planets)
+
+
+def model_jobs(scenario: Scenario) -> list:
+    """Fit jobs of every target and number of planets, in batches.
+
+    Returns
+    -------
+    list of list of inference.batch.FitJob
+        Batch k holds each target's k-th model (``job.model.n_planets`` is its number of
+        planets; ids are unique within a batch): without ``planets: auto`` there is one batch
+        of one job per target. A target's seed does not depend on the number of planets.
+        Under ``planets: auto`` a count whose model has more free parameters than the target
+        has velocities is not fitted (nor any larger one).
 
     Raises
     ------
@@ -76,7 +113,7 @@ def fit_jobs(scenario: Scenario) -> list:
     from inference.model import ModelSpec
 
     settings = sampler_settings(scenario)
-    jobs = []
+    batches = []
     for i, target in enumerate(scenario.targets):
         data = read_rv_csv(target.rv_file)
         if scenario.instrument.name not in data.instruments:
@@ -84,29 +121,58 @@ def fit_jobs(scenario: Scenario) -> list:
                 f"{scenario.path.name}: targets[{i}].rv_file ({target.rv_file.name}) has no "
                 f"velocity from the instrument {scenario.instrument.name!r} (it has "
                 f"{', '.join(data.instruments)}); name the instrument in instrument.name.")
-        model = ModelSpec.for_data(
-            data, n_planets=target.planets, trend=target.trend,
-            period_range=(scenario.sampler.min_period_d, scenario.sampler.max_period_d))
         seed = _target_seed(scenario.sampler.seed, target.id)
-        jobs.append(FitJob(target=target.id, data=data, model=model, settings=settings,
-                           seed=seed))
-    return jobs
+        for k, n in enumerate(model_counts(target)):
+            model = ModelSpec.for_data(
+                data, n_planets=n, trend=target.trend,
+                period_range=(scenario.sampler.min_period_d, scenario.sampler.max_period_d))
+            if target.planets == "auto" and k > 0 and len(data) < model.n_free:
+                break  # more parameters than velocities: this and larger counts are not compared
+            if k == len(batches):
+                batches.append([])
+            batches[k].append(FitJob(target=target.id, data=data, model=model,
+                                     settings=settings, seed=seed))
+    return batches
+
+
+def fit_jobs(scenario: Scenario) -> list:
+    """One fit job per target: its velocities, its model and the sampler settings.
+
+    A target with ``planets: auto`` is represented by its job with the most planets (the same
+    velocities; :func:`model_jobs` has every model).
+
+    Raises
+    ------
+    ScenarioError
+        If a target's RV file has no velocity from the scenario's instrument.
+    """
+    widest = {}
+    for batch in model_jobs(scenario):
+        for job in batch:
+            widest[job.target] = job
+    return [widest[t.id] for t in scenario.targets]
 
 
 def posterior_keys(scenario: Scenario, jobs=None) -> dict:
     """Return the posterior cache key of every target (:func:`inference.cache.cache_key`), by id.
 
     The key is a digest of the target's data, model, sampler settings, seed and the sampler
-    version, so equal keys mean equal posteriors whether they were fitted or loaded.
+    version, so equal keys mean equal posteriors whether they were fitted or loaded. For a
+    target with ``planets: auto`` it is the digest of the keys of all its models, in order.
     """
+    import hashlib
+
     from inference.cache import cache_key
 
+    if jobs is None:
+        jobs = [job for batch in model_jobs(scenario) for job in batch]
     keys = {}
-    for job in (fit_jobs(scenario) if jobs is None else jobs):
+    for job in jobs:
         job = job.resolved()
-        keys[job.target] = cache_key(job.data.digest, job.model, job.settings, job.seed,
-                                     target=job.target)
-    return keys
+        keys.setdefault(job.target, []).append(
+            cache_key(job.data.digest, job.model, job.settings, job.seed, target=job.target))
+    return {name: k[0] if len(k) == 1 else hashlib.sha256(":".join(k).encode()).hexdigest()
+            for name, k in keys.items()}
 
 
 def sampler_settings(scenario: Scenario):
@@ -125,9 +191,44 @@ def _target_seed(seed: int, target_id: str) -> int:
     return int.from_bytes(digest[:8], "little") >> 1
 
 
+@dataclass(frozen=True, eq=False)
+class ModelFits:
+    """One target's fits, one per number of planets, and how probable each model is.
+
+    Attributes
+    ----------
+    target : str
+        The target's id.
+    posteriors : dict of int to inference.posterior.Posterior
+        The fit of each number of planets compared (one entry unless ``planets: auto``).
+    probabilities : inference.evidence.ModelProbabilities or None
+        Posterior model probabilities under ``planets: auto``, else None.
+    """
+
+    target: str
+    posteriors: dict
+    probabilities: object = None
+
+    @property
+    def chosen(self):
+        """inference.posterior.Posterior: the fit of the most probable number of planets.
+
+        Until the stages after fitting average over models, they use this one; ties go to the
+        fewer planets.
+        """
+        if self.probabilities is None:
+            return next(iter(self.posteriors.values()))
+        probs = self.probabilities
+        best = max(range(len(probs.counts)), key=lambda k: (probs.probabilities[k], -k))
+        return self.posteriors[probs.counts[best]]
+
+
 def fit_posteriors(scenario: Scenario, cache: Path | None = None, jobs: int | None = None,
                    progress=None, scheduler: str | None = None) -> dict:
     """Sample (or load from the cache) the posterior of every target.
+
+    A target with ``planets: auto`` gets the fit of its most probable number of planets
+    (:attr:`ModelFits.chosen`); :func:`fit_models` has all of them.
 
     Parameters
     ----------
@@ -153,24 +254,59 @@ def fit_posteriors(scenario: Scenario, cache: Path | None = None, jobs: int | No
     PlanError
         If a fit failed; the sentence names the target and the reason.
     """
+    fits = fit_models(scenario, cache=cache, jobs=jobs, progress=progress, scheduler=scheduler)
+    return {name: f.chosen for name, f in fits.items()}
+
+
+def fit_models(scenario: Scenario, cache: Path | None = None, jobs: int | None = None,
+               progress=None, scheduler: str | None = None) -> dict:
+    """Sample (or load from the cache) every model of every target, with model probabilities.
+
+    Parameters are those of :func:`fit_posteriors`; ``progress`` counts every model's fit.
+
+    Returns
+    -------
+    dict of str to ModelFits
+        In scenario order.
+
+    Raises
+    ------
+    PlanError
+        If a fit failed; the sentence names the target and the reason.
+    """
     from concurrent.futures import ProcessPoolExecutor, ThreadPoolExecutor
 
-    from inference.batch import FitFailure, fit_many
+    from inference.batch import FitFailure, dask_executor, fit_many
     from inference.cache import FitCache
+    from inference.evidence import compare_fits
 
-    work = fit_jobs(scenario)
+    batches = model_jobs(scenario)
     store = None if cache is None else FitCache(cache)
-    from inference.batch import dask_executor
-
-    workers = max(1, min(jobs or os.cpu_count() or 1, len(work)))
+    total = sum(len(b) for b in batches)
+    auto = {t.id for t in scenario.targets if t.planets == "auto"}
+    widest = max(len(b) for b in batches)
+    workers = max(1, min(jobs or os.cpu_count() or 1, widest))
     if scheduler:
         executor = dask_executor(scheduler)
     elif workers == 1:  # one worker fits in this process (a thread)
         executor = ThreadPoolExecutor(1)
     else:  # more fit in worker processes
         executor = ProcessPoolExecutor(workers)
+    results = {}
     try:
-        results = fit_many(work, executor=executor, cache=store, progress=progress)
+        offset = 0
+        for batch in batches:
+            counts = {job.target: job.model.n_planets for job in batch}
+
+            def step(done, _total, label, offset=offset, counts=counts):
+                if progress is not None:
+                    progress(offset + done, total, f"{label} ({counts[label]} planets)"
+                             if label in auto else label)
+
+            for name, r in fit_many(batch, executor=executor, cache=store,
+                                    progress=step).items():
+                results[(name, counts[name])] = r
+            offset += len(batch)
     except KeyboardInterrupt:
         # Ctrl-C or SIGTERM: end the running fits now instead of waiting for them (the worker
         # processes do not get a SIGTERM sent to this process; the cache is written only here).
@@ -183,9 +319,18 @@ def fit_posteriors(scenario: Scenario, cache: Path | None = None, jobs: int | No
         raise
     finally:
         executor.shutdown(cancel_futures=True)
-    failed = [(name, r) for name, r in results.items() if isinstance(r, FitFailure)]
+    failed = [(key, r) for key, r in results.items() if isinstance(r, FitFailure)]
     if failed:
-        name, failure = failed[0]
-        raise PlanError(f"the fit of target {name!r} failed ({failure.message}); fix its RV file "
+        (name, n), failure = failed[0]
+        what = f"target {name!r}" + (f" with {n} planets" if name in auto else "")
+        raise PlanError(f"the fit of {what} failed ({failure.message}); fix its RV file "
                         "or its model settings.")
-    return {t.id: results[t.id] for t in scenario.targets}
+    data = {job.target: job.data for job in batches[0]}
+    out = {}
+    for t in scenario.targets:
+        posts = {n: results[(t.id, n)] for n in model_counts(t) if (t.id, n) in results}
+        prior = model_prior(t)
+        probs = (compare_fits(posts, [prior[n] for n in posts], data[t.id])
+                 if t.planets == "auto" else None)
+        out[t.id] = ModelFits(target=t.id, posteriors=posts, probabilities=probs)
+    return out

@@ -30,8 +30,10 @@ import numpy as np
 
 from planner.errors import PlanError
 from planner.workflow.fitting import (
+    ModelFits,
     cache_folder,
     fit_jobs,
+    fit_models,
     fit_posteriors,
     sampler_settings,
     scheduler_address,
@@ -55,6 +57,7 @@ EXACT_OUTCOMES = 2048
 
 __all__ = [
     "ComparisonReport",
+    "ModelFits",
     "PlanResult",
     "PreparedRun",
     "RunGrid",
@@ -66,6 +69,7 @@ __all__ = [
     "demo_scenario_path",
     "exact_marginals",
     "fit_jobs",
+    "fit_models",
     "fit_posteriors",
     "load",
     "limit_note",

@@ -37,6 +37,7 @@ __all__ = [
     "fit_summary",
     "left_out_lines",
     "limit_words",
+    "model_summary",
     "render_schedule",
     "target_summary_lines",
 ]
@@ -397,6 +398,40 @@ def fit_summary(scenario, posteriors: dict) -> str:
             lead = star if k == 1 else " " * len(star)
             lines.append(f"{lead}  {k:>6}  {text or 'no mode of 5%':<36} {k_text:<18} {e_text:<15}")
     return "\n".join(lines) + "\n\n" + _FIT_NOTE
+
+
+def model_summary(scenario, fits: dict) -> str:
+    """Tabulate P(0), P(1), ... planets for every target with ``planets: auto``.
+
+    Returns an empty string when no target has ``planets: auto``.
+    """
+    auto = [t for t in scenario.targets if fits[t.id].probabilities is not None]
+    if not auto:
+        return ""
+    top = max(t.max_planets for t in auto)
+    head = f"{'target':<16} " + " ".join(f"{f'P({n})':>13}" for n in range(top + 1))
+    lines = [head + "  used"]
+    for target in auto:
+        fit = fits[target.id]
+        probs = fit.probabilities
+        cells = []
+        for n in range(top + 1):
+            if n in probs.counts:
+                k = probs.counts.index(n)
+                cells.append(f"{probs.probabilities[k]:>6.3f} +-{probs.probabilities_se[k]:.3f}")
+            else:
+                cells.append(f"{'':>13}")
+        lines.append(f"{target.id[:15]:<16} " + " ".join(cells)
+                     + f"  {fit.chosen.model.n_planets:>4}")
+    return "\n".join(lines) + "\n\n" + _MODEL_NOTE
+
+
+_MODEL_NOTE = (
+    "P(n): posterior probability that the star has n planets, from the evidences of the fits\n"
+    "with 0..max_planets planets and the prior over models (model_prior; default equal), with\n"
+    "its Monte Carlo standard error. used: the number of planets of the fit shown above and\n"
+    "used by the later stages (the most probable).\n"
+)
 
 
 def _read(path):

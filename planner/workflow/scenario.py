@@ -187,7 +187,11 @@ class TargetConfig:
     dec_deg: float = _spec("float", lo=-90.0, hi=90.0, what="declination ICRS [deg]")
     v_mag: float = _spec("float", lo=-2.0, hi=20.0, what="V magnitude")
     rv_file: Path = _spec("path", what="CSV file of past velocities")
-    planets: int = _spec("int", 1, lo=0, hi=4, what="number of Keplerian signals")
+    planets: int | str = _spec("planets", 1, lo=0, hi=4,
+                               what="number of Keplerian signals, or auto")
+    max_planets: int = _spec("int", 2, lo=1, hi=4, what="most planets compared under auto")
+    model_prior: tuple[float, ...] = _spec("weights", (), lo=0.0, hi=1e6,
+                                           what="prior weight of 0, 1, ... planets under auto")
     weight: float = _spec("float", 1.0, lo=0.0, hi=1000.0, what="weight of its bits")
     exposures_s: tuple[float, ...] = _spec("floats", (), lo=10.0, hi=14400.0,
                                            what="its own exposure times [s]")
@@ -414,6 +418,16 @@ def _targets(raw: Any, where: str, base: Path) -> tuple[TargetConfig, ...]:
             raise ScenarioError(f"{where}: targets[{i}].id: the id {target.id!r} is already used "
                                 f"by targets[{seen[target.id]}]; give every target its own id.")
         seen[target.id] = i
+        if target.model_prior and target.planets != "auto":
+            raise ScenarioError(f"{where}: targets[{i}].model_prior applies to planets: auto "
+                                "only; remove it or set planets: auto.")
+        if target.model_prior and len(target.model_prior) != target.max_planets + 1:
+            raise ScenarioError(f"{where}: targets[{i}].model_prior: expected "
+                                f"{target.max_planets + 1} weights (0 to max_planets = "
+                                f"{target.max_planets} planets), got {len(target.model_prior)}.")
+        if target.model_prior and sum(target.model_prior) <= 0.0:
+            raise ScenarioError(f"{where}: targets[{i}].model_prior: the weights are all zero; "
+                                "give at least one model a positive weight.")
         if target.max_visits is not None and target.max_visits < target.min_visits:
             raise ScenarioError(f"{where}: targets[{i}].max_visits ({target.max_visits}) is "
                                 f"below min_visits ({target.min_visits}); raise max_visits.")
@@ -473,6 +487,14 @@ def _coerce(kind: str, value: Any, where: str, key_path: str, meta: dict, base: 
         return None
     if kind in ("float", "optfloat", "int", "optint"):
         return _number(value, meta, bad, integer=kind.endswith("int"))
+    if kind == "planets":
+        if value == "auto":
+            return value
+        return _number(value, meta, bad, integer=True)
+    if kind == "weights":
+        if not isinstance(value, list) or not value:
+            raise bad()
+        return tuple(_number(item, meta, bad, integer=False) for item in value)
     if kind == "minutes":
         number = _number(value, meta, bad, integer=False)
         if not float(number / 60.0).is_integer():
@@ -599,6 +621,8 @@ def _expected(meta: dict, kind: str | None = None) -> str:
         "pairs": "a list of [max illumination 0-1, separation 0-180 deg] rows",
         "windows": "a list of [start, end] UTC date-times such as 2027-10-05T02:00:00Z",
         "int": f"a whole number{span}", "bool": "true or false",
+        "planets": f"a whole number{span} or auto",
+        "weights": f"a list of numbers{span}",
         "floats": f"a list of numbers{span}", "date": "a date YYYY-MM-DD",
         "twilight": "civil, nautical, astronomical or a Sun altitude from -30 to 0",
         "path": "a file path", "path_any": "a folder path", "id": "a name", "str": "a text",
