@@ -20,18 +20,18 @@ TINY = ROOT / "tests" / "data" / "tiny" / "tiny.yaml"
 #: Run ``nightbits ARGS`` with one writer step wrapped to send a signal to this process.
 _CHILD = """
 import os, signal, sys
-import planner.workflow.outputs as outputs
+import planner.workflow.file_set as file_set
 step, kind, after = sys.argv[1], getattr(signal, sys.argv[2]), int(sys.argv[3])
 calls = []
 if step == "temporary":
-    real = outputs._write_temporary
+    real = file_set.write_temporary
     def wrapped(path, data):
         made = real(path, data)
         calls.append(path)
         if len(calls) == after:
             os.kill(os.getpid(), kind)
         return made
-    outputs._write_temporary = wrapped
+    file_set.write_temporary = wrapped
 else:
     real = os.replace
     def wrapped(src, dst):
@@ -39,7 +39,7 @@ else:
         calls.append(dst)
         if len(calls) == after:
             os.kill(os.getpid(), kind)
-    outputs.os.replace = wrapped
+    file_set.os.replace = wrapped
 from planner.cli.main import main
 sys.exit(main(sys.argv[4:]))
 """
@@ -111,14 +111,14 @@ def test_stale_temporaries_of_a_killed_writer_are_removed(old_plan, tmp_path):
 
 def test_a_second_writer_into_a_locked_folder_is_refused(old_plan, tmp_path, capsys):
     from planner.cli.main import main
-    from planner.workflow.outputs import OutLock
+    from planner.workflow.file_set import OutLock
 
     out = tmp_path / "out"
     shutil.copytree(old_plan / "old", out)
     before = {p.name: p.read_bytes() for p in out.iterdir()}
     # The lock of another process: flock locks belong to the open file, so a child holds it.
     holder = subprocess.Popen(
-        [sys.executable, "-c", "import sys, time; from planner.workflow.outputs import OutLock;"
+        [sys.executable, "-c", "import sys, time; from planner.workflow.file_set import OutLock;"
          f" lock = OutLock({str(out)!r}); print('locked', flush=True); time.sleep(60)"],
         cwd=ROOT, env=dict(os.environ, PYTHONPATH=str(ROOT)), stdout=subprocess.PIPE, text=True)
     try:
