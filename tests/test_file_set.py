@@ -8,8 +8,6 @@ every file of one set, old or new, plot included, and nothing of the other.
 
 import json
 import os
-import subprocess
-import sys
 from dataclasses import replace
 from pathlib import Path
 
@@ -17,12 +15,8 @@ import pytest
 from test_outputs import make_plan
 
 import planner.workflow.file_set as file_set
-from planner.cli.main import main
 from planner.errors import PlanError
 from planner.workflow.outputs import read_plan, write_plan
-
-ROOT = Path(__file__).resolve().parents[1]
-TINY = ROOT / "tests" / "data" / "tiny" / "tiny.yaml"
 
 OLD = make_plan()
 NEW = replace(OLD, total_bits=3.0, notes=("the new plan",), visits=OLD.visits[:2])
@@ -134,38 +128,3 @@ def test_a_damaged_journal_is_one_sentence(tmp_path):
     (out / file_set.JOURNAL_NAME).write_text("{not json")
     with pytest.raises(PlanError, match="is damaged, so the set of files in .* may be mixed"):
         read_plan(out / "plan.json")
-
-
-def test_a_second_run_into_one_new_folder_is_refused_at_its_start(tmp_path, capsys):
-    out = tmp_path / "new" / "plans"  # neither folder exists yet
-    holder = subprocess.Popen(
-        [sys.executable, "-c", "import time; from planner.workflow.file_set import OutLock;"
-         f" lock = OutLock({str(out)!r}); print('locked', flush=True); time.sleep(60)"],
-        cwd=ROOT, env=dict(os.environ, PYTHONPATH=str(ROOT)), stdout=subprocess.PIPE, text=True)
-    try:
-        assert holder.stdout.readline().strip() == "locked"
-        fitted = []
-        import planner.workflow.pipeline as pipeline
-
-        real = pipeline.fit_posteriors
-        pipeline.fit_posteriors = lambda *a, **k: fitted.append(1) or real(*a, **k)
-        try:
-            assert main(["plan", str(TINY), "--out", str(out), "--no-cache"]) == 2
-        finally:
-            pipeline.fit_posteriors = real
-        assert not fitted  # refused before any work
-        err = capsys.readouterr().err.strip().splitlines()
-        assert err == [f"nightbits plan: another nightbits command is writing into {out}; "
-                       "wait for it to finish or choose another folder with --out."]
-    finally:
-        holder.kill()
-        holder.wait()
-        holder.stdout.close()
-
-
-def test_a_run_that_fails_leaves_no_empty_folder_behind(tmp_path, capsys):
-    out = tmp_path / "new" / "plans"
-    # The lock (and its folder) is taken before --plot is checked; a bad suffix fails after it.
-    assert main(["plan", str(TINY), "--out", str(out), "--plot", str(tmp_path / "a.txt")]) == 2
-    assert "use a .png, .pdf or .svg file name" in capsys.readouterr().err
-    assert not (tmp_path / "new").exists()

@@ -4,6 +4,7 @@ Each case runs the command in a child process (signals are process-wide) and int
 one step of the writer, by wrapping that step so that it sends the signal to its own process.
 """
 
+import contextlib
 import json
 import os
 import shutil
@@ -109,6 +110,28 @@ def test_stale_temporaries_of_a_killed_writer_are_removed(old_plan, tmp_path):
     assert names == ["curves.npz", "plan.csv", "plan.ecsv", "plan.json"]
 
 
+@contextlib.contextmanager
+def _lock_held_elsewhere(out):
+    """Hold ``out``'s OutLock in another process (flock locks belong to the open file)."""
+    holder = subprocess.Popen(
+        [sys.executable, "-c", "import sys, time; from planner.workflow.file_set import OutLock;"
+         f" lock = OutLock({str(out)!r}); print('locked', flush=True); time.sleep(60)"],
+        cwd=ROOT, env=dict(os.environ, PYTHONPATH=str(ROOT)), stdout=subprocess.PIPE, text=True)
+    try:
+        assert holder.stdout.readline().strip() == "locked"
+        yield
+    finally:
+        holder.kill()
+        holder.wait()
+        holder.stdout.close()
+
+
+def _refused_as_locked(capsys, out):
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err == [f"nightbits plan: another nightbits command is writing into {out}; "
+                   "wait for it to finish or choose another folder with --out."]
+
+
 def test_a_second_writer_into_a_locked_folder_is_refused(old_plan, tmp_path, capsys):
     from planner.cli.main import main
     from planner.workflow.file_set import OutLock
@@ -116,24 +139,36 @@ def test_a_second_writer_into_a_locked_folder_is_refused(old_plan, tmp_path, cap
     out = tmp_path / "out"
     shutil.copytree(old_plan / "old", out)
     before = {p.name: p.read_bytes() for p in out.iterdir()}
-    # The lock of another process: flock locks belong to the open file, so a child holds it.
-    holder = subprocess.Popen(
-        [sys.executable, "-c", "import sys, time; from planner.workflow.file_set import OutLock;"
-         f" lock = OutLock({str(out)!r}); print('locked', flush=True); time.sleep(60)"],
-        cwd=ROOT, env=dict(os.environ, PYTHONPATH=str(ROOT)), stdout=subprocess.PIPE, text=True)
-    try:
-        assert holder.stdout.readline().strip() == "locked"
+    with _lock_held_elsewhere(out):
         assert main(["plan", str(TINY), "--out", str(out), "--force"]) == 2
-        err = capsys.readouterr().err.strip().splitlines()
-        assert err == [f"nightbits plan: another nightbits command is writing into {out}; "
-                       "wait for it to finish or choose another folder with --out."]
+        _refused_as_locked(capsys, out)
         assert {p.name: p.read_bytes() for p in out.iterdir()} == before
-    finally:
-        holder.kill()
-        holder.wait()
-        holder.stdout.close()
     lock = OutLock(out)  # free again once the holder has gone
     lock.release()
+
+
+def test_a_second_run_into_one_new_folder_is_refused_at_its_start(tmp_path, capsys,
+                                                                   monkeypatch):
+    from planner.cli.main import main
+    from planner.workflow import pipeline
+
+    out = tmp_path / "new" / "plans"  # neither folder exists yet: the first run creates them
+    fitted = []
+    monkeypatch.setattr(pipeline, "fit_posteriors", lambda *a, **k: fitted.append(1))
+    with _lock_held_elsewhere(out):
+        assert main(["plan", str(TINY), "--out", str(out), "--no-cache"]) == 2
+        _refused_as_locked(capsys, out)
+    assert not fitted  # refused before any work
+
+
+def test_a_run_that_fails_leaves_no_empty_folder_behind(tmp_path, capsys):
+    from planner.cli.main import main
+
+    out = tmp_path / "new" / "plans"
+    # The lock (and its folder) is taken before --plot is checked; a bad suffix fails after it.
+    assert main(["plan", str(TINY), "--out", str(out), "--plot", str(tmp_path / "a.txt")]) == 2
+    assert "use a .png, .pdf or .svg file name" in capsys.readouterr().err
+    assert not (tmp_path / "new").exists()
 
 
 _SOLVE = """
