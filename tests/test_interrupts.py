@@ -209,3 +209,53 @@ def test_ctrl_c_inside_the_cp_sat_search_is_an_interrupt_not_a_plan():
     assert child.returncode == 130, err
     assert out.strip() == "interrupted"
     assert "terminate called" not in err  # the search's threads ended before the process
+
+
+#: Run ``nightbits ARGS``, saying on stdout when the fitting starts.
+_FITTING = """
+import sys
+from planner.workflow import pipeline
+real = pipeline.fit_posteriors
+def announced(*args, **kwargs):
+    print("fitting", flush=True)
+    return real(*args, **kwargs)
+pipeline.fit_posteriors = announced
+from planner.cli.main import main
+sys.exit(main(sys.argv[1:]))
+"""
+
+
+@pytest.mark.parametrize("jobs", ["1", "2"])
+def test_ctrl_c_during_fitting_is_interrupted_exit_130_and_the_old_plan_kept(old_plan, tmp_path,
+                                                                             jobs):
+    import time
+
+    out = tmp_path / "out"
+    shutil.copytree(old_plan / "old", out)
+    before = {p.name: p.read_bytes() for p in out.iterdir()}
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    argv = ["plan", str(TINY), "--out", str(out), "--force", "--no-cache", "--jobs", jobs]
+    # Its own session, so the SIGINT goes to the whole group like a terminal's Ctrl-C
+    # (the fitting worker processes get it too).
+    child = subprocess.Popen([sys.executable, "-c", _FITTING, *argv], cwd=ROOT, env=env,
+                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                             start_new_session=True)
+    try:
+        assert child.stdout.readline().strip() == "fitting"
+        time.sleep(1.0)  # inside the fits (the tiny run takes several seconds to fit)
+        assert child.poll() is None
+        os.killpg(child.pid, signal.SIGINT)
+        stdout, stderr = child.communicate(timeout=60)
+    finally:
+        if child.poll() is None:
+            os.killpg(child.pid, signal.SIGKILL)
+        child.wait()
+    assert child.returncode == 130, stderr
+    assert stderr.strip().splitlines()[-1] == (
+        "nightbits plan: interrupted; nothing was written and earlier outputs are as they were.")
+    assert "Traceback" not in stderr
+    assert stdout == ""  # after "fitting": no schedule was printed
+    time.sleep(0.5)
+    with pytest.raises(ProcessLookupError):  # no fitting worker outlives the command
+        os.killpg(child.pid, 0)
+    assert {p.name: p.read_bytes() for p in out.iterdir()} == before
