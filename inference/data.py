@@ -17,10 +17,13 @@ from .errors import RVDataError
 __all__ = [
     "DEFAULT_INSTRUMENT",
     "EARLIEST_BJD",
+    "MAX_RV_FILE_BYTES",
+    "MAX_VELOCITIES",
     "MAX_VELOCITY_MS",
     "REQUIRED_COLUMNS",
     "RVData",
     "check_bjd",
+    "check_file_size",
     "read_rv_csv",
 ]
 
@@ -38,6 +41,42 @@ EARLIEST_BJD = 2_400_000.0
 #: Velocities and errors beyond this are refused in files [m/s]: the fastest stars known move
 #: at a few hundred km/s (common practice), so 1000 km/s is a unit mistake.
 MAX_VELOCITY_MS = 1.0e6
+
+#: Largest RV file read [bytes] and most velocities per star: a star's record holds tens to a
+#: few thousand velocities (about 40 bytes a line), so these are far above real use and keep a
+#: mistaken file (a whole survey, a binary) from taking minutes and gigabytes to refuse.
+MAX_RV_FILE_BYTES = 8_000_000
+MAX_VELOCITIES = 20_000
+
+
+def check_file_size(path, limit, what, fix="give one star's velocities per file"):
+    """Refuse a file larger than ``limit`` bytes before reading it.
+
+    Parameters
+    ----------
+    path : path-like
+        The file (a missing file passes: its reader names it).
+    limit : int
+        Most bytes allowed.
+    what : str
+        What the file should be, for the sentence (``"an RV file"``).
+    fix : str, optional
+        How to fix it, the end of the sentence.
+
+    Raises
+    ------
+    RVDataError
+        If the file is larger.
+    """
+    try:
+        size = Path(path).stat().st_size
+    except OSError:
+        return
+    if size > limit:
+        raise RVDataError(
+            f"{path} is {size / 1e6:.1f} MB, more than the {limit / 1e6:g} MB allowed for "
+            f"{what}: {fix}."
+        )
 
 
 def check_bjd(time, where):
@@ -264,6 +303,7 @@ def read_rv_csv(path):
     import pandas as pd  # imported here: pandas is slow to import and only the reader needs it
 
     path = Path(path)
+    check_file_size(path, MAX_RV_FILE_BYTES, "an RV file")
     try:
         frame = pd.read_csv(
             path, dtype=str, keep_default_na=False, skip_blank_lines=False, skipinitialspace=True,
@@ -312,6 +352,11 @@ def read_rv_csv(path):
     frame = frame.loc[~blank.to_numpy(dtype=bool)] if len(frame) else frame
     if len(frame) == 0:
         raise RVDataError(f"{path} has a header but no data rows: add the measurements.")
+    if len(frame) > MAX_VELOCITIES:
+        raise RVDataError(
+            f"{path} holds {len(frame)} velocities, more than the {MAX_VELOCITIES} allowed for "
+            "one star: give one star's velocities per file."
+        )
     values = {c: _numeric_column(frame, c, path) for c in REQUIRED_COLUMNS}
     instrument = None
     if "instrument" in frame.columns:

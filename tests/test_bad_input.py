@@ -171,3 +171,74 @@ def test_a_time_zone_from_the_other_side_of_the_world_is_named(tmp_path, capsys)
     line = _one_sentence(capsys, ["fit", str(path)])
     assert "site.timezone: 'Asia/Tokyo' is UTC+9 h on the first night" in line
     assert "check the sign of longitude_deg (east is positive)" in line
+
+
+# Sizes are bounded (docs/scenario.md, "Sizes"): refused from the file's size or the count of
+# its items, before the parse or the fits, in well under the seconds and memory a full read
+# would take.
+def test_a_huge_scenario_file_is_refused_before_it_is_parsed(tmp_path, capsys):
+    import time
+
+    from planner.workflow.scenario import MAX_SCENARIO_BYTES
+
+    path = _edited_tiny(tmp_path, "targets:\n", "targets:\n", "huge.yaml")
+    block = ("  - id: Star-{i}\n    ra_deg: 10\n    dec_deg: -20\n    v_mag: 7\n"
+             "    rv_file: rv/gamur-7.csv\n")
+    with path.open("a") as handle:  # about 60 MB: 50,000 targets of about 1.2 kB
+        chunk = "".join(block.format(i=i) + "#" + "x" * 1100 + "\n" for i in range(1000))
+        for _ in range(50):
+            handle.write(chunk)
+    assert path.stat().st_size > 50e6
+    start = time.perf_counter()
+    line = _one_sentence(capsys, ["fit", str(path)])
+    assert time.perf_counter() - start < 2.0
+    assert f"more than the {MAX_SCENARIO_BYTES / 1e6:g} MB a scenario may be" in line
+
+
+def test_a_scenario_with_too_many_targets_is_refused_by_count(tmp_path, capsys):
+    from planner.workflow.scenario import MAX_TARGETS
+
+    # 50,000 targets in a small file: YAML aliases repeat one target (and give one id, but the
+    # count is checked first, before any target is built).
+    path = _edited_tiny(tmp_path, "  - id: Gamur-7\n", "  - &one\n    id: Gamur-7\n", "many.yaml")
+    text = path.read_text() + "".join("  - *one\n" for _ in range(50_000))
+    path.write_text(text)
+    assert path.stat().st_size < 1e6
+    line = _one_sentence(capsys, ["fit", str(path), "--no-cache"])
+    assert (f"targets: {50_000 + 3} targets, more than the {MAX_TARGETS} one scenario may "
+            "hold; split the run") in line
+
+
+def test_a_huge_rv_file_is_refused_before_it_is_read(tmp_path):
+    from inference.data import MAX_RV_FILE_BYTES
+
+    path = tmp_path / "survey.csv"
+    with path.open("w") as handle:
+        handle.write("time,rv,rv_err\n")
+        handle.write("2461288.5,1.0,0.5\n" * (MAX_RV_FILE_BYTES // 18 + 10))
+    with pytest.raises(RVDataError) as info:
+        read_rv_csv(path)
+    assert "MB allowed for an RV file: give one star's velocities per file" in str(info.value)
+
+
+def test_an_rv_file_with_too_many_velocities_is_refused_by_count(tmp_path):
+    from inference.data import MAX_VELOCITIES
+
+    path = tmp_path / "many.csv"
+    n = MAX_VELOCITIES + 1
+    rows = "".join(f"{2461288.5 + i * 0.01:.4f},1,1\n" for i in range(n))
+    path.write_text("time,rv,rv_err\n" + rows)
+    with pytest.raises(RVDataError) as info:
+        read_rv_csv(path)
+    assert f"holds {n} velocities, more than the {MAX_VELOCITIES} allowed" in str(info.value)
+
+
+def test_a_huge_done_file_is_refused(planned, tmp_path, capsys):
+    from inference.data import MAX_RV_FILE_BYTES
+
+    _, _, plan, _ = planned
+    done = tmp_path / "done.csv"
+    done.write_bytes(b"target,start_utc\n" + b"#" * (MAX_RV_FILE_BYTES + 1))
+    line = _one_sentence(capsys, ["replan", "--plan", str(plan), "--done", str(done),
+                                  "--out", str(tmp_path / "o")])
+    assert f"--done {done} is" in line and "MB allowed for --done files" in line

@@ -4,6 +4,7 @@ Each case runs the command in a child process (signals are process-wide) and int
 one step of the writer, by wrapping that step so that it sends the signal to its own process.
 """
 
+import contextlib
 import json
 import os
 import shutil
@@ -20,18 +21,18 @@ TINY = ROOT / "tests" / "data" / "tiny" / "tiny.yaml"
 #: Run ``nightbits ARGS`` with one writer step wrapped to send a signal to this process.
 _CHILD = """
 import os, signal, sys
-import planner.workflow.outputs as outputs
+import planner.workflow.file_set as file_set
 step, kind, after = sys.argv[1], getattr(signal, sys.argv[2]), int(sys.argv[3])
 calls = []
 if step == "temporary":
-    real = outputs._write_temporary
+    real = file_set.write_temporary
     def wrapped(path, data):
         made = real(path, data)
         calls.append(path)
         if len(calls) == after:
             os.kill(os.getpid(), kind)
         return made
-    outputs._write_temporary = wrapped
+    file_set.write_temporary = wrapped
 else:
     real = os.replace
     def wrapped(src, dst):
@@ -39,7 +40,7 @@ else:
         calls.append(dst)
         if len(calls) == after:
             os.kill(os.getpid(), kind)
-    outputs.os.replace = wrapped
+    file_set.os.replace = wrapped
 from planner.cli.main import main
 sys.exit(main(sys.argv[4:]))
 """
@@ -109,31 +110,65 @@ def test_stale_temporaries_of_a_killed_writer_are_removed(old_plan, tmp_path):
     assert names == ["curves.npz", "plan.csv", "plan.ecsv", "plan.json"]
 
 
-def test_a_second_writer_into_a_locked_folder_is_refused(old_plan, tmp_path, capsys):
-    from planner.cli.main import main
-    from planner.workflow.outputs import OutLock
-
-    out = tmp_path / "out"
-    shutil.copytree(old_plan / "old", out)
-    before = {p.name: p.read_bytes() for p in out.iterdir()}
-    # The lock of another process: flock locks belong to the open file, so a child holds it.
+@contextlib.contextmanager
+def _lock_held_elsewhere(out):
+    """Hold ``out``'s OutLock in another process (flock locks belong to the open file)."""
     holder = subprocess.Popen(
-        [sys.executable, "-c", "import sys, time; from planner.workflow.outputs import OutLock;"
+        [sys.executable, "-c", "import sys, time; from planner.workflow.file_set import OutLock;"
          f" lock = OutLock({str(out)!r}); print('locked', flush=True); time.sleep(60)"],
         cwd=ROOT, env=dict(os.environ, PYTHONPATH=str(ROOT)), stdout=subprocess.PIPE, text=True)
     try:
         assert holder.stdout.readline().strip() == "locked"
-        assert main(["plan", str(TINY), "--out", str(out), "--force"]) == 2
-        err = capsys.readouterr().err.strip().splitlines()
-        assert err == [f"nightbits plan: another nightbits command is writing into {out}; "
-                       "wait for it to finish or choose another folder with --out."]
-        assert {p.name: p.read_bytes() for p in out.iterdir()} == before
+        yield
     finally:
         holder.kill()
         holder.wait()
         holder.stdout.close()
+
+
+def _refused_as_locked(capsys, out):
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err == [f"nightbits plan: another nightbits command is writing into {out}; "
+                   "wait for it to finish or choose another folder with --out."]
+
+
+def test_a_second_writer_into_a_locked_folder_is_refused(old_plan, tmp_path, capsys):
+    from planner.cli.main import main
+    from planner.workflow.file_set import OutLock
+
+    out = tmp_path / "out"
+    shutil.copytree(old_plan / "old", out)
+    before = {p.name: p.read_bytes() for p in out.iterdir()}
+    with _lock_held_elsewhere(out):
+        assert main(["plan", str(TINY), "--out", str(out), "--force"]) == 2
+        _refused_as_locked(capsys, out)
+        assert {p.name: p.read_bytes() for p in out.iterdir()} == before
     lock = OutLock(out)  # free again once the holder has gone
     lock.release()
+
+
+def test_a_second_run_into_one_new_folder_is_refused_at_its_start(tmp_path, capsys,
+                                                                   monkeypatch):
+    from planner.cli.main import main
+    from planner.workflow import pipeline
+
+    out = tmp_path / "new" / "plans"  # neither folder exists yet: the first run creates them
+    fitted = []
+    monkeypatch.setattr(pipeline, "fit_posteriors", lambda *a, **k: fitted.append(1))
+    with _lock_held_elsewhere(out):
+        assert main(["plan", str(TINY), "--out", str(out), "--no-cache"]) == 2
+        _refused_as_locked(capsys, out)
+    assert not fitted  # refused before any work
+
+
+def test_a_run_that_fails_leaves_no_empty_folder_behind(tmp_path, capsys):
+    from planner.cli.main import main
+
+    out = tmp_path / "new" / "plans"
+    # The lock (and its folder) is taken before --plot is checked; a bad suffix fails after it.
+    assert main(["plan", str(TINY), "--out", str(out), "--plot", str(tmp_path / "a.txt")]) == 2
+    assert "use a .png, .pdf or .svg file name" in capsys.readouterr().err
+    assert not (tmp_path / "new").exists()
 
 
 _SOLVE = """
@@ -174,3 +209,53 @@ def test_ctrl_c_inside_the_cp_sat_search_is_an_interrupt_not_a_plan():
     assert child.returncode == 130, err
     assert out.strip() == "interrupted"
     assert "terminate called" not in err  # the search's threads ended before the process
+
+
+#: Run ``nightbits ARGS``, saying on stdout when the fitting starts.
+_FITTING = """
+import sys
+from planner.workflow import pipeline
+real = pipeline.fit_posteriors
+def announced(*args, **kwargs):
+    print("fitting", flush=True)
+    return real(*args, **kwargs)
+pipeline.fit_posteriors = announced
+from planner.cli.main import main
+sys.exit(main(sys.argv[1:]))
+"""
+
+
+@pytest.mark.parametrize("jobs", ["1", "2"])
+def test_ctrl_c_during_fitting_is_interrupted_exit_130_and_the_old_plan_kept(old_plan, tmp_path,
+                                                                             jobs):
+    import time
+
+    out = tmp_path / "out"
+    shutil.copytree(old_plan / "old", out)
+    before = {p.name: p.read_bytes() for p in out.iterdir()}
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    argv = ["plan", str(TINY), "--out", str(out), "--force", "--no-cache", "--jobs", jobs]
+    # Its own session, so the SIGINT goes to the whole group like a terminal's Ctrl-C
+    # (the fitting worker processes get it too).
+    child = subprocess.Popen([sys.executable, "-c", _FITTING, *argv], cwd=ROOT, env=env,
+                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                             start_new_session=True)
+    try:
+        assert child.stdout.readline().strip() == "fitting"
+        time.sleep(1.0)  # inside the fits (the tiny run takes several seconds to fit)
+        assert child.poll() is None
+        os.killpg(child.pid, signal.SIGINT)
+        stdout, stderr = child.communicate(timeout=60)
+    finally:
+        if child.poll() is None:
+            os.killpg(child.pid, signal.SIGKILL)
+        child.wait()
+    assert child.returncode == 130, stderr
+    assert stderr.strip().splitlines()[-1] == (
+        "nightbits plan: interrupted; nothing was written and earlier outputs are as they were.")
+    assert "Traceback" not in stderr
+    assert stdout == ""  # after "fitting": no schedule was printed
+    time.sleep(0.5)
+    with pytest.raises(ProcessLookupError):  # no fitting worker outlives the command
+        os.killpg(child.pid, 0)
+    assert {p.name: p.read_bytes() for p in out.iterdir()} == before

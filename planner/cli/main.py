@@ -203,7 +203,8 @@ def _run_curves(args) -> int:
 
 
 def _run_plan(args) -> int:
-    from planner.workflow.outputs import OutLock, write_plan
+    from planner.workflow.file_set import OutLock
+    from planner.workflow.outputs import write_plan
     from planner.workflow.report import render_schedule
 
     pipeline, scenario, cache = open_session(args)
@@ -217,7 +218,6 @@ def _run_plan(args) -> int:
     result = pipeline.make_plan(run, strategy=args.strategy, time_limit_s=limit)
     sys.stdout.write(render_schedule(result.plan_file))
     _write_plan_set(args, pipeline, write_plan, result, run, lock, scenario)
-    _maybe_night_plot(args, run, result)
     return EXIT_OK
 
 
@@ -229,11 +229,19 @@ def _queue(scenario, plan_file) -> dict:
 
 
 def _write_plan_set(args, pipeline, write_plan, result, run, lock, scenario) -> None:
-    """Write plan.json, plan.csv, plan.ecsv and curves.npz as one set and say so."""
+    """Write plan.json, plan.csv, plan.ecsv, curves.npz and the --plot as one set; say so."""
     extra = {**_queue(scenario, result.plan_file), "curves.npz": pipeline.curves_bytes(run)}
-    paths = write_plan(args.out, result.plan_file, force=args.force, extra=extra, lock=lock,
-                       on_commit=lambda: args.written.append(f"the new plan in {args.out}"))
+    plot = None
+    if args.plot:
+        from planner.workflow.plots import figure_bytes, night_figure
+
+        plot = (args.plot, figure_bytes(night_figure(run, result.plan_file), args.plot))
+    what = f"the new plan in {args.out}" + (f" and {args.plot}" if plot else "")
+    paths = write_plan(args.out, result.plan_file, force=args.force, extra=extra, plot=plot,
+                       lock=lock, on_commit=lambda: args.written.append(what))
     sys.stderr.write(f"wrote {paths[0]}, {paths[1]} and {paths[0].parent / 'plan.ecsv'}\n")
+    if plot:
+        sys.stderr.write(f"wrote {args.plot}\n")
 
 
 def _check_plot(args) -> None:
@@ -242,15 +250,6 @@ def _check_plot(args) -> None:
         from planner.workflow.plots import check_plot_path
 
         check_plot_path(args.plot)
-
-
-def _maybe_night_plot(args, run, result) -> None:
-    if args.plot:
-        from planner.workflow.plots import plot_nights
-
-        plot_nights(run, result.plan_file, args.plot)
-        args.written.append(args.plot)
-        sys.stderr.write(f"wrote {args.plot}\n")
 
 
 def _run_compare(args) -> int:
@@ -302,14 +301,15 @@ def _earlier_settings(folder: Path, current: dict) -> None:
 
 def _run_replan(args) -> int:
     from planner.workflow import pipeline, replan
-    from planner.workflow.outputs import OutLock, read_plan, write_plan
+    from planner.workflow.file_set import OutLock
+    from planner.workflow.outputs import read_plan, write_plan
     from planner.workflow.report import render_schedule
 
+    old = read_plan(args.plan)  # first: it may settle the plan's own folder, under its lock
     pipeline.check_out_folder(args.out, args.force)
     lock = OutLock(args.out)
     args.locks.append(lock)
     _check_plot(args)
-    old = read_plan(args.plan)
     path = args.scenario if args.scenario is not None else replan.recorded_scenario(old, args.plan)
     scenario = pipeline.load(path)
     replan.check_scenario_matches(old, scenario, args.plan)
@@ -325,7 +325,6 @@ def _run_replan(args) -> int:
     sys.stdout.write(render_schedule(result.plan_file))
     sys.stdout.write(result.changes)
     _write_plan_set(args, pipeline, write_plan, result, result.run, lock, scenario)
-    _maybe_night_plot(args, result.run, result)
     return EXIT_OK
 
 

@@ -7,22 +7,20 @@ target's coordinates; per night the Sun and Moon summary; per run the strategy, 
 total score, the solver's bound, the site and the limits.
 
 Every file is written atomically: a temporary file in the same folder, flushed and synced, then
-``os.replace``. :func:`write_plan` writes both files to temporaries first and only then renames
-them, so a crash leaves the previous plan intact; it refuses to replace an existing plan unless
-``force`` is given.
+``os.replace``. :func:`write_plan` writes the plan's files as one set through a rename journal
+(:mod:`planner.workflow.file_set`), so a crash at any step leaves the previous set or the new
+one, and plan.json names the digests of the others so a mixed folder is refused on read; it
+refuses to replace an existing plan unless ``force`` is given.
 """
 
 from __future__ import annotations
 
-import contextlib
 import csv
 import datetime as _dt
 import io
 import json
 import math
 import os
-import signal
-import tempfile
 from dataclasses import MISSING, asdict, dataclass, fields
 from pathlib import Path
 from typing import Any
@@ -30,17 +28,25 @@ from typing import Any
 from planner.clock import datetime_from_jd, jd_from_datetime
 from planner.errors import PlanError
 from planner.workflow.accounting import LeftOut, TargetAccount
+from planner.workflow.file_set import (
+    JOURNAL_NAME,
+    OutLock,
+    clean_stale,
+    commit_files,
+    digest,
+    settle_folder,
+    write_temporary,
+)
 
 __all__ = [
     "FORMAT_VERSION",
     "NightSummary",
-    "OutLock",
-    "deferred_interrupts",
     "PlanFile",
     "ScheduledVisit",
     "atomic_write_bytes",
     "atomic_write_text",
     "check_out_folder",
+    "check_plan_set",
     "format_utc",
     "nearest_existing",
     "parse_utc",
@@ -246,7 +252,7 @@ def parse_utc(text: str, where: str = "time") -> float:
 def atomic_write_bytes(path: str | Path, data: bytes) -> None:
     """Write ``data`` to ``path`` atomically (temporary file in the same folder, then rename)."""
     path = Path(path)
-    tmp = _write_temporary(path, data)
+    tmp = write_temporary(path, data)
     os.replace(tmp, path)
 
 
@@ -279,24 +285,6 @@ def write_compare_json(comparison, path: str | Path, provenance: dict | None = N
         document["provenance"] = provenance
     atomic_write_text(path, json.dumps(document, indent=2, allow_nan=False) + "\n")
     return path
-
-
-def _write_temporary(path: Path, data: bytes) -> Path:
-    from inference.posterior import current_umask
-
-    fd, name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        # mkstemp makes the file 0600; an output gets the umask's mode, like any new file.
-        os.fchmod(fd, 0o666 & ~current_umask())
-        with os.fdopen(fd, "wb") as handle:
-            handle.write(data)
-            handle.flush()
-            os.fsync(handle.fileno())
-    except BaseException:
-        with contextlib.suppress(OSError):
-            os.unlink(name)
-        raise
-    return Path(name)
 
 
 def nearest_existing(path: str | Path) -> Path:
@@ -335,103 +323,20 @@ def check_out_folder(out: str | Path, force: bool,
                         "another folder with --out.")
 
 
-@contextlib.contextmanager
-def deferred_interrupts():
-    """Hold SIGINT and SIGTERM back inside the block, then act on them as usual.
-
-    Python runs signal handlers in the main thread between bytecodes, so replacing the
-    handlers for the block defers an interrupt whichever thread the kernel delivers it to.
-    Outside the main thread (where handlers cannot be set) the block runs unprotected.
-    """
-    import threading
-
-    if threading.current_thread() is not threading.main_thread():
-        yield
-        return
-    caught = []
-    kinds = [signal.SIGINT, signal.SIGTERM]
-    previous = {kind: signal.signal(kind, lambda number, frame: caught.append(number))
-                for kind in kinds}
-    try:
-        yield
-    finally:
-        for kind, handler in previous.items():
-            signal.signal(kind, handler)
-    for number in caught[:1]:
-        handler = previous[number]
-        if callable(handler):
-            handler(number, None)
-        elif handler == signal.SIG_DFL:
-            signal.raise_signal(number)
-
-
-class OutLock:
-    """An exclusive lock on an output folder, held until the process ends or :meth:`release`.
-
-    Two commands writing into one folder (two ``--force`` runs) would otherwise mix their
-    files; the second is refused at once with one sentence. The lock is ``flock`` on the
-    folder itself, so nothing is written to take it, and the system drops it when the process
-    ends, however it ends.
-
-    Parameters
-    ----------
-    folder : str or Path
-        The output folder; locked now if it exists, else by :meth:`acquire` once it does.
-    """
-
-    def __init__(self, folder: str | Path) -> None:
-        self.folder, self._fd = Path(folder), None
-        if self.folder.is_dir():
-            self.acquire()
-
-    def acquire(self) -> None:
-        """Take the lock (a no-op if held).
-
-        Raises
-        ------
-        PlanError
-            If another process holds it.
-        """
-        import fcntl
-
-        if self._fd is not None:
-            return
-        fd = os.open(self.folder, os.O_RDONLY)
-        try:
-            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
-        except OSError:
-            os.close(fd)
-            raise PlanError(f"another nightbits command is writing into {self.folder}; wait "
-                            "for it to finish or choose another folder with --out.") from None
-        self._fd = fd
-
-    def release(self) -> None:
-        """Release the lock."""
-        if self._fd is not None:
-            os.close(self._fd)
-            self._fd = None
-
-
-#: The names of the files a plan folder holds, in the order they are renamed into place.
+#: The names of the files a plan folder holds (plan.json last: it names the others' digests).
 PLAN_FILES = ("plan.csv", "plan.ecsv", "curves.npz", "plan.json")
 
 
-def _clean_stale(out: Path, names=PLAN_FILES) -> None:
-    """Remove the temporaries of ``names`` in ``out`` (call only with the folder's lock held)."""
-    for name in names:
-        for stale in out.glob(f".{name}.*.tmp"):
-            with contextlib.suppress(OSError):
-                stale.unlink()
-
-
 def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False, *,
-               extra: dict | None = None, lock: OutLock | None = None,
-               on_commit=None) -> tuple[Path, Path]:
-    """Write ``plan.json``, ``plan.csv`` and any extra files into ``out_dir``, all or nothing.
+               extra: dict | None = None, plot: tuple[str | Path, bytes] | None = None,
+               lock: OutLock | None = None, on_commit=None) -> tuple[Path, Path]:
+    """Write ``plan.json``, ``plan.csv``, any extra files and a plot as one set, all or nothing.
 
-    Every file is first written to a temporary file in the folder; then all are renamed into
-    place with SIGINT and SIGTERM held back (:func:`deferred_interrupts`), so an interrupt
-    leaves either the old set or the new one, never a mix. The folder is locked
+    The set is committed through a rename journal (:func:`planner.workflow.file_set.commit_files`),
+    so a crash at any step, even SIGKILL, leaves the old set or the new one once the folder is
+    next read or written (:func:`read_plan` finishes a half-renamed set). plan.json carries a
+    manifest, ``files``: the SHA-256 of every other file of the set (and ``plot``: the plot's
+    path and digest), so a mixed folder is detected on read. The folder is locked
     (:class:`OutLock`) while it is written, and temporaries left by a killed writer are removed.
 
     Parameters
@@ -444,11 +349,13 @@ def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False, *,
     extra : dict of str to bytes or str, optional
         More files of the set by name (``plan.ecsv``, ``curves.npz``); text is written as
         UTF-8.
+    plot : (str or Path, bytes), optional
+        A figure of the plan and its path (anywhere): written in the same commit.
     lock : OutLock, optional
         The folder's lock if the command took it already; else it is taken here.
     on_commit : callable, optional
-        Called with no argument once every file is in place, before a held-back interrupt is
-        acted on (so the caller knows the new set was written).
+        Called with no argument once the new set exists, before a held-back interrupt is acted
+        on (so the caller knows the new set was written).
 
     Returns
     -------
@@ -467,29 +374,24 @@ def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False, *,
     payload = {csv_path: plan.to_csv().encode("utf-8")}
     payload.update({out / name: data.encode("utf-8") if isinstance(data, str) else data
                     for name, data in (extra or {}).items()})
-    payload[json_path] = plan.to_json().encode("utf-8")  # last: its presence marks a set
+    document = json.loads(plan.to_json())
+    document["files"] = {path.name: digest(data) for path, data in payload.items()}
+    if plot is not None:
+        plot_path = Path(plot[0]).resolve()
+        payload[plot_path] = plot[1]
+        document["plot"] = {"path": str(plot_path), "sha256": digest(plot[1])}
+    payload[json_path] = (json.dumps(document, indent=1, allow_nan=False) + "\n").encode("utf-8")
     own_lock = None
     try:
-        out.mkdir(parents=True, exist_ok=True)
         if lock is None:
             lock = own_lock = OutLock(out)
         lock.acquire()
+        settle_folder(out, lock)  # a set a killed writer left half-renamed is finished first
         check_out_folder(out, force)  # again under the lock: another run may have written
-        names = [final.name for final in payload]
-        _clean_stale(out, set(PLAN_FILES) | set(names))  # left by a killed writer
-        temporaries, committed = {}, False
-        try:
-            for final, data in payload.items():
-                temporaries[final] = _write_temporary(final, data)
-            with deferred_interrupts():
-                for final, tmp in temporaries.items():
-                    os.replace(tmp, final)
-                committed = True
-                if on_commit is not None:
-                    on_commit()
-        finally:
-            if not committed:  # by pattern: an interrupt may come before a name is kept
-                _clean_stale(out, names)
+        clean_stale(out, {JOURNAL_NAME, *PLAN_FILES, *(p.name for p in payload if p.parent == out)})
+        if plot is not None:
+            clean_stale(plot_path.parent, [plot_path.name])
+        commit_files(out, payload, on_commit=on_commit)
     except OSError as exc:
         raise PlanError(f"cannot write the plan into {out} ({exc.strerror or exc}); choose "
                         "another folder with --out.") from None
@@ -497,6 +399,38 @@ def write_plan(out_dir: str | Path, plan: PlanFile, force: bool = False, *,
         if own_lock is not None:
             own_lock.release()
     return json_path, csv_path
+
+
+def check_plan_set(path: str | Path, raw: dict) -> None:
+    """Refuse a plan folder whose files are not the set ``raw`` (its plan.json) names.
+
+    Files of the manifest that are missing pass (a reader may have moved plan.json alone);
+    files present with another digest mean a mixed set.
+
+    Raises
+    ------
+    PlanError
+        Naming the first file that does not belong.
+    """
+    files = raw.get("files")
+    if files is None:
+        return  # written before the manifest existed
+    folder = Path(path).parent
+    if not isinstance(files, dict) or not all(isinstance(v, str) for v in files.values()):
+        raise PlanError(f"{Path(path).name}: files must map file names to digests; write the "
+                        "plan again.")
+    for name, expected in files.items():
+        member = folder / Path(str(name)).name
+        try:
+            data = member.read_bytes()
+        except FileNotFoundError:
+            continue
+        except OSError as exc:
+            raise PlanError(f"{member} cannot be read ({exc.strerror or exc}).") from None
+        if digest(data) != expected:
+            raise PlanError(f"{member} is not the {name} written with {Path(path).name} (its "
+                            "digest differs): the folder holds a mixed set of plan files; "
+                            "make the plan again with --force.")
 
 
 def read_plan(path: str | Path) -> PlanFile:
@@ -508,6 +442,8 @@ def read_plan(path: str | Path) -> PlanFile:
         If the file is missing, not JSON, or lacks a field (named with its path).
     """
     path = Path(path)
+    if (path.parent / JOURNAL_NAME).exists():
+        settle_folder(path.parent)  # finish a set a killed writer left half-renamed
     try:
         raw = json.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:
@@ -519,6 +455,7 @@ def read_plan(path: str | Path) -> PlanFile:
     if not isinstance(raw, dict) or raw.get("format_version") != FORMAT_VERSION:
         raise PlanError(f"{where}: not a nightbits plan file of format version {FORMAT_VERSION}; "
                         "write it again with `nightbits plan`.")
+    check_plan_set(path, raw)
     top = _record(PlanFile, raw, where, skip=("nights", "visits", "left_out", "target_summary"),
                   pairs=("moon_table",))
     for key, cls in (("left_out", LeftOut), ("target_summary", TargetAccount)):

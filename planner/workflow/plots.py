@@ -23,6 +23,7 @@ __all__ = [
     "check_plot_path",
     "comparison_figure",
     "curves_figure",
+    "figure_bytes",
     "new_figure",
     "night_figure",
     "plot_comparison",
@@ -88,12 +89,16 @@ def check_plot_path(path: str | Path, option: str = "--plot") -> None:
                         "choose another file.")
 
 
+def figure_bytes(fig, path: str | Path) -> bytes:
+    """Return the file content of ``fig`` drawn in the format of ``path``'s suffix."""
+    buffer = io.BytesIO()
+    fig.savefig(buffer, format=_format(Path(path)), dpi=110)
+    return buffer.getvalue()
+
+
 def _save(fig, path: str | Path) -> Path:
     path = Path(path)
-    suffix = _format(path)
-    buffer = io.BytesIO()
-    fig.savefig(buffer, format=suffix, dpi=110)
-    atomic_write_bytes(path, buffer.getvalue())
+    atomic_write_bytes(path, figure_bytes(fig, path))
     return path
 
 

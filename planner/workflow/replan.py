@@ -309,6 +309,14 @@ def read_new_velocities(path: str | Path, scenario) -> dict:
 
 def _csv_rows(path: Path, option: str) -> list:
     """Return the rows of a CSV given on the command line (UTF-8, a byte-order mark allowed)."""
+    from inference.data import MAX_RV_FILE_BYTES, check_file_size
+    from inference.errors import RVDataError
+
+    try:
+        check_file_size(path, MAX_RV_FILE_BYTES, f"{option} files",
+                        "give only this run's visits or velocities")
+    except RVDataError as exc:
+        raise PlanError(f"{option} {exc}") from None
     try:
         with path.open(newline="", encoding="utf-8-sig") as handle:
             return list(csv.DictReader(handle))

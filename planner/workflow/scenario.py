@@ -41,6 +41,8 @@ __all__ = [
     "SolverConfig",
     "TargetConfig",
     "TelescopeConfig",
+    "MAX_SCENARIO_BYTES",
+    "MAX_TARGETS",
     "TWILIGHT_NAMES",
     "load_scenario",
     "parse_scenario",
@@ -264,6 +266,13 @@ _TOP_KEYS = ("name", "cache", "targets", *_SECTIONS)
 _REQUIRED_TOP = ("site", "run", "targets")
 
 
+#: Largest scenario file read [bytes] and most targets in one: a run holds tens to a few
+#: hundred targets of a few hundred bytes each, so these are far above real use and keep a
+#: mistaken file from taking minutes and gigabytes to refuse.
+MAX_SCENARIO_BYTES = 2_000_000
+MAX_TARGETS = 2_000
+
+
 def load_scenario(path: str | Path) -> Scenario:
     """Read and validate a scenario file.
 
@@ -282,6 +291,14 @@ def load_scenario(path: str | Path) -> Scenario:
         If the file cannot be read, is not YAML, or any value breaks the schema.
     """
     path = Path(path).expanduser().resolve()
+    try:
+        size = path.stat().st_size
+    except OSError:
+        size = 0  # missing or unreadable: said below
+    if size > MAX_SCENARIO_BYTES:
+        raise ScenarioError(f"scenario file {path} is {size / 1e6:.1f} MB, more than the "
+                            f"{MAX_SCENARIO_BYTES / 1e6:g} MB a scenario may be; keep the "
+                            "velocities in the targets' rv_file CSVs and split a larger run.")
     try:
         text = path.read_text(encoding="utf-8")
     except FileNotFoundError:
@@ -306,6 +323,10 @@ def parse_scenario(text: str, path: str | Path) -> Scenario:
     Scenario
     """
     path = Path(path).expanduser().resolve()
+    if len(text) > MAX_SCENARIO_BYTES:
+        raise ScenarioError(f"{path.name}: the scenario is {len(text) / 1e6:.1f} MB of text, "
+                            f"more than the {MAX_SCENARIO_BYTES / 1e6:g} MB a scenario may be; "
+                            "split the run.")
     try:
         return _parse(text, path)
     except ScenarioError as exc:  # one line, whatever the file held
@@ -411,6 +432,9 @@ def _targets(raw: Any, where: str, base: Path) -> tuple[TargetConfig, ...]:
     if not raw:
         raise ScenarioError(f"{where}: targets: the target list is empty; "
                             "add at least one target with id, ra_deg, dec_deg, v_mag, rv_file.")
+    if len(raw) > MAX_TARGETS:
+        raise ScenarioError(f"{where}: targets: {len(raw)} targets, more than the {MAX_TARGETS} "
+                            "one scenario may hold; split the run into several scenarios.")
     targets, seen = [], {}
     for i, item in enumerate(raw):
         target = _build(TargetConfig, item, where, f"targets[{i}]", base, required=True)
