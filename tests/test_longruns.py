@@ -2,9 +2,12 @@
 
 import dataclasses
 import itertools
+import shutil
+from pathlib import Path
 
 import numpy as np
 import pytest
+import yaml
 
 from planner.allocation import surrogate as surrogate_module
 from planner.allocation.joint import joint_plan
@@ -104,3 +107,95 @@ def test_count_values_keys_follow_the_slots(monkeypatch):
     key = 0b11 | 1 << n_n
     assert cv[key] == (cv.table[(2, 1)] + cv.reps[0, 0] + cv.reps[1, 0] + cv.reps[0, 1]
                        + cv.pairs[0, 1])
+
+
+TINY = Path(__file__).resolve().parent / "data" / "tiny" / "tiny.yaml"
+SPREAD = ["2027-10-04 second_half", "2027-10-09", "2027-10-12 first_half"]
+
+
+def _scenario(tmp_path, change) -> Path:
+    folder = tmp_path / "run"
+    shutil.copytree(TINY.parent, folder)
+    doc = yaml.safe_load((folder / "tiny.yaml").read_text())
+    change(doc["run"])
+    path = folder / "edited.yaml"
+    path.write_text(yaml.safe_dump(doc, sort_keys=False))
+    return path
+
+
+def _spread(run):
+    run.pop("first_night")
+    run["nights"] = list(SPREAD)
+
+
+def test_nights_as_a_list_with_half_nights_end_to_end(tmp_path, capsys):
+    # Outside references: astropy's Sun (get_body, AltAz, refraction off) at the ends of the
+    # dark windows kept (nautical twilight: Sun at -12 deg, common practice), and the
+    # independent feasibility check (planner.allocation.verify, astropy transforms at exact
+    # times) on the plan of three nights spread over nine days, two of them half nights.
+    import astropy.units as u
+    from astropy.coordinates import AltAz, EarthLocation, get_body
+    from astropy.time import Time
+
+    from planner.allocation.verify import verify_plan
+    from planner.cli.main import main
+    from planner.sky.site import dark_windows
+    from planner.workflow import pipeline
+    from planner.workflow.outputs import parse_utc, read_plan
+
+    path = _scenario(tmp_path, _spread)
+    out, cache = tmp_path / "out", tmp_path / "cache"
+    assert main(["plan", str(path), "--cache", str(cache), "--out", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert "evening of Sat 2027-10-09 5 days after the previous night" in text
+    assert "evening of Tue 2027-10-12 3 days after the previous night" in text
+    plan = read_plan(out / "plan.json")
+    assert [n.date for n in plan.nights] == ["2027-10-04", "2027-10-09", "2027-10-12"]
+
+    scenario = pipeline.load(path)
+    run = pipeline.prepare(scenario, pipeline.fit_posteriors(scenario, cache))
+    whole = dark_windows(run.site, scenario.night_dates(), "nautical")
+    where = EarthLocation(lat=-27.45 * u.deg, lon=-69.95 * u.deg, height=2410 * u.m)
+
+    def sun_alt(jd):
+        t = Time(jd, format="jd", scale="utc")
+        return get_body("sun", t, where).transform_to(AltAz(obstime=t, location=where)).alt.deg
+
+    # The second half ends, the first half starts, at the twilight; the split is the middle.
+    assert sun_alt(run.nights[0].dark_end_jd) == pytest.approx(-12.0, abs=0.3)
+    assert sun_alt(run.nights[2].dark_start_jd) == pytest.approx(-12.0, abs=0.3)
+    middle = [0.5 * (n.dark_start_jd + n.dark_end_jd) for n in whole]
+    assert run.nights[0].dark_start_jd == pytest.approx(middle[0], abs=1e-9)
+    assert run.nights[2].dark_end_jd == pytest.approx(middle[2], abs=1e-9)
+    assert run.nights[1] == whole[1]
+    by_night = {n.date: k for k, n in enumerate(run.nights)}
+    for v in plan.visits:
+        k = by_night[v.night]
+        assert run.nights[k].dark_start_jd - 1e-6 <= parse_utc(v.start_utc)
+        assert parse_utc(v.end_utc) <= run.nights[k].dark_end_jd + 1e-6
+    assert {v.night for v in plan.visits} == set(by_night)
+    joint = pipeline.run_strategy(run, "joint")
+    targets = scenario.targets
+    check = verify_plan(joint, run.problem, site=run.site, nights=run.nights,
+                        ra_deg=[t.ra_deg for t in targets], dec_deg=[t.dec_deg for t in targets],
+                        constraints=run.constraints, mount=run.mount)
+    assert check.ok, check.problems
+
+
+@pytest.mark.parametrize("change, words", [
+    (lambda r: r.update(nights=["2027-10-04 third_half"]), "optionally followed by first_half"),
+    (lambda r: (r.pop("first_night"), r.update(nights=["2027-10-09", "2027-10-04"])),
+     "does not come after the night of 2027-10-09"),
+    (lambda r: r.update(nights=["2027-10-09"]), "drop first_night"),
+    (lambda r: r.pop("first_night"), "run.first_night is missing"),
+    (lambda r: (r.pop("first_night"), r.update(nights=["2027-02-30"])), "not a calendar date"),
+])
+def test_bad_night_lists_are_one_sentence(tmp_path, capsys, change, words):
+    from planner.cli.main import main
+
+    path = _scenario(tmp_path, change)
+    out = tmp_path / "out"
+    assert main(["plan", str(path), "--out", str(out), "--no-cache"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and words in err[0], err
+    assert not out.exists()
