@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
+import itertools
 import os
 import time
 from dataclasses import dataclass
@@ -32,7 +33,7 @@ from planner.allocation.conflicts import max_gap_min, slew_pairs, slot_cliques, 
 from planner.allocation.greedy import greedy_plan
 from planner.allocation.plan import Plan, assemble_plan
 from planner.allocation.problem import Problem
-from planner.allocation.surrogate import Surrogate
+from planner.allocation.surrogate import CountValues, Surrogate
 from planner.errors import PlanError
 
 __all__ = [
@@ -215,10 +216,15 @@ def build_model(
         for lo, hi in rule.must_windows_jd:
             inside = mine[(problem.start_jd(mine) >= lo) & (problem.end_jd(mine) <= hi)]
             model.Add(sum(x[c] for c in inside) >= 1)
-        # One Boolean per visit pattern (visits per night); each night's visit count is the
-        # sum of the patterns' counts for it, so the relaxation is the convex hull of V.
         hinted = [c for c in hint_set if problem.target[c] == s]
         hinted_key = surrogate.key(problem, *np.unique(problem.night[hinted], return_counts=True))
+        if isinstance(surrogate.patterns[s], CountValues):
+            objective.extend(_count_terms(model, problem, surrogate, s, x, mine,
+                                          None if hint is None else hinted_key))
+            n_patterns += len(surrogate.patterns[s].table)
+            continue
+        # One Boolean per visit pattern (visits per night); each night's visit count is the
+        # sum of the patterns' counts for it, so the relaxation is the convex hull of V.
         chooser = []
         per_night = {}
         for key in surrogate.patterns[s]:
@@ -252,6 +258,69 @@ def build_model(
     )
     return model, JointHandles(problem, surrogate, x, None if hint is None else np.asarray(hint),
                                stats)
+
+
+def _count_terms(model, problem: Problem, surrogate: Surrogate, s: int, x: list,
+                 mine: np.ndarray, hinted_key: int | None) -> list:
+    """Objective terms of a target in the count form (:class:`CountValues`).
+
+    One Boolean ``z_nk`` per night and slot (the night holds more than ``k`` visits, so
+    ``z_nk <= z_n(k-1)``), one Boolean per count ``t`` (at most one chosen) with
+    ``sum_n z_nk = sum_t t_k y_t``: the relaxation is the convex hull of ``G`` over counts,
+    and each slot adds ``rho b_{r_nk}`` less the slot's value.
+    """
+    values = surrogate.patterns[s]
+    n_n = problem.n_nights
+    n_slots = values.present.shape[1]
+    terms = []
+    level = [[] for _ in range(n_slots)]
+    first = {}
+    for n in np.unique(problem.night[mine]).tolist():
+        members = mine[problem.night[mine] == n]
+        zs = []
+        for k in range(n_slots):
+            if not values.present[n, k]:
+                break
+            z = model.NewBoolVar(f"z_{s}_{n}_{k}")
+            if zs:
+                model.AddImplication(z, zs[-1])
+            zs.append(z)
+            level[k].append(z)
+            if k == 0:
+                first[n] = z
+            terms.append(int(values.reps[n, k] - surrogate.slots[s, n, k]) * z)
+            if hinted_key is not None:
+                model.AddHint(z, int(hinted_key >> (n + k * n_n) & 1))
+        model.Add(sum(x[c] for c in members) == sum(zs))
+    # Pairs of nights visited together: w <= both for a bonus, w >= their conjunction for a
+    # cost, so w is their product wherever it matters.
+    for a, b in itertools.combinations(sorted(first), 2):
+        q = int(values.pairs[a, b])
+        if q == 0:
+            continue
+        w = model.NewBoolVar(f"w_{s}_{a}_{b}")
+        if q > 0:
+            model.AddImplication(w, first[a])
+            model.AddImplication(w, first[b])
+        else:
+            model.AddBoolOr([first[a].Not(), first[b].Not(), w])
+        terms.append(q * w)
+        if hinted_key is not None:
+            model.AddHint(w, int(hinted_key >> a & 1 and hinted_key >> b & 1))
+    hinted = None if hinted_key is None else values.counts(hinted_key)
+    chooser = []
+    for t, g in values.table.items():
+        if sum(t) == 0:
+            continue
+        y = model.NewBoolVar(f"t_{s}_{'_'.join(map(str, t))}")
+        chooser.append((t, y))
+        terms.append(int(g) * y)
+        if hinted_key is not None:
+            model.AddHint(y, int(t == hinted))
+    model.AddAtMostOne(y for _, y in chooser)
+    for k in range(n_slots):
+        model.Add(sum(level[k]) == sum(t[k] * y for t, y in chooser if t[k]))
+    return terms
 
 
 def solve(

@@ -51,13 +51,16 @@ from planner.allocation.problem import Problem
 from planner.errors import PlanError
 from planner.information.visit_sets import enumerate_subsets, pattern_bits
 
-__all__ = ["Surrogate", "additive_surrogate", "build_surrogate", "gaussian_redundancy",
-           "slot_bit"]
+__all__ = ["CountValues", "Surrogate", "additive_surrogate", "build_surrogate",
+           "gaussian_redundancy", "slot_bit"]
 
 log = logging.getLogger(__name__)
 
-#: Largest number of visit patterns per target.
-MAX_PATTERNS = 20000
+#: Largest number of visit patterns per target valued one by one; past it the target's
+#: patterns are valued by their visit counts per slot (:class:`CountValues`).
+MAX_PATTERNS = 2000
+#: Random patterns drawn per visit count in the count form (their mean exact information).
+COUNT_DRAWS = 12
 #: Largest exact-pattern work per target (patterns x outcomes x samples); beyond it the
 #: Gaussian patterns are used, calibrated on the largest pattern of first slots.
 EXACT_BUDGET = 3e8
@@ -66,6 +69,88 @@ EXACT_BUDGET = 3e8
 def slot_bit(night, slot, n_nights: int) -> int:
     """Bit of slot ``slot`` (0: first visit) of night ``night`` in a pattern key."""
     return 1 << (int(night) + int(slot) * int(n_nights))
+
+
+class CountValues:
+    """Pattern values of one target from its visit counts per slot, for long runs.
+
+    Past ``MAX_PATTERNS`` patterns a target's patterns are not enumerated. A pattern ``P`` with
+    ``t_k`` visits in slot ``k`` (``t_0`` nights visited, ``t_1`` of them twice, ...) is worth
+
+        V(P) = G(t) + rho sum_{(n, k) in P} b_{r_nk} + sum_{nights i < j of P} q_ij,
+        G(t) = g(t) - rho sbar(t),
+
+    with ``g(t)`` the mean joint information of random patterns of counts ``t`` and ``sbar(t)``
+    the mean of their representatives' one-visit bits. With the surrogate's per-visit terms a
+    plan is then worth ``G(t) + rho sum_c b_c``: a value of the counts, concave as the
+    information saturates, each visit's own bits as the timing correction within its night,
+    and ``q_ij`` (``pairs``) for which nights go together (see ``docs/allocation.md``).
+
+    Parameters
+    ----------
+    table : dict of tuple to int
+        ``G(t)`` [integer units] by counts ``t`` (length n_slots, non-increasing).
+    reps : ndarray of int, shape (n_nights, n_slots)
+        ``rho b_{r_nk}`` [integer units], weighted; used only where ``present``.
+    present : ndarray of bool, shape (n_nights, n_slots)
+        Slots that have a representative.
+    pairs : ndarray of int, shape (n_nights, n_nights), optional
+        Upper triangle: the term added when both nights are visited [integer units],
+        ``-kappa (R_ij - mean R)`` with ``R_ij`` the redundancy of the two nights' first slots
+        (their one-visit bits less their joint information) and ``kappa`` fitted on the random
+        patterns: which nights complement each other (phase coverage) and which repeat.
+    """
+
+    def __init__(self, table: dict, reps: np.ndarray, present: np.ndarray,
+                 pairs: np.ndarray | None = None) -> None:
+        self.table = dict(table)
+        n_n = np.shape(present)[0]
+        self.pairs = (np.zeros((n_n, n_n), dtype=np.int64) if pairs is None
+                      else np.triu(np.asarray(pairs, dtype=np.int64), 1))
+        self.reps = np.asarray(reps, dtype=np.int64)
+        self.present = np.asarray(present, dtype=bool)
+        n_n = self.present.shape[0]
+        self._avail = [sum(1 << n for n in np.flatnonzero(self.present[:, k]).tolist())
+                       for k in range(self.present.shape[1])]
+        self._full = (1 << n_n) - 1
+
+    def counts(self, key: int):
+        """Return the counts per slot of a pattern key (None: no allowed pattern)."""
+        n_n = self.present.shape[0]
+        out, below = [], self._full
+        for k, avail in enumerate(self._avail):
+            bits = key >> (k * n_n) & self._full
+            if bits & ~avail or bits & ~below:
+                return None
+            out.append(bits.bit_count())
+            below = bits
+        if key >> (len(self._avail) * n_n):
+            return None
+        return tuple(out) if tuple(out) in self.table else None
+
+    def __contains__(self, key) -> bool:
+        return self.counts(int(key)) is not None
+
+    def __getitem__(self, key) -> int:
+        t = self.counts(int(key))
+        if t is None:
+            raise KeyError(key)
+        n_n = self.present.shape[0]
+        value = self.table[t]
+        nights = [n for n in range(n_n) if int(key) >> n & 1]
+        if len(nights) >= 2:
+            value += int(self.pairs[np.ix_(nights, nights)].sum())
+        for k in range(self.present.shape[1]):
+            bits = int(key) >> (k * n_n) & self._full
+            while bits:
+                n = (bits & -bits).bit_length() - 1
+                value += int(self.reps[n, k])
+                bits &= bits - 1
+        return int(value)
+
+    def get(self, key, default=None):
+        """``self[key]``, or ``default`` when the key is no allowed pattern."""
+        return self[key] if key in self else default
 
 
 @dataclass(frozen=True, eq=False)
@@ -81,10 +166,10 @@ class Surrogate:
     slots : ndarray of int, shape (n_targets, n_nights, n_slots)
         Weighted value taken off for each slot of a pattern (0 where none): ``w b_{r_n0}`` for
         the first slot, ``w ((1 - rho) b_{r_n0} + rho b_{r_nk})`` for slot ``k``.
-    patterns : tuple of dict, length n_targets
+    patterns : tuple of dict or CountValues, length n_targets
         Per target, pattern key (bit ``n + k n_nights`` for slot ``k`` of night ``n``, see
         :func:`slot_bit`; first slots alone give the plain bitmask of nights) to weighted value
-        ``w V``.
+        ``w V``; a :class:`CountValues` for a target with more than ``MAX_PATTERNS``.
     rho : ndarray, shape (n_targets,), optional
         Per target, the share of a visit's own change of one-visit bits that the surrogate
         counts (``V / sum of one-visit bits`` of its largest pattern; None: all).
@@ -298,10 +383,8 @@ def _columns(problem: Problem, s: int, reps: dict, cap: int):
     Returns the candidates, their pattern-key bits, the column each requires (-1: none), the
     largest pattern size and the number of patterns.
 
-    Raises
-    ------
-    PlanError
-        If the target would have more than ``MAX_PATTERNS`` patterns.
+    The number of patterns is None past ``MAX_PATTERNS``: the target then takes the count
+    form (:class:`CountValues`).
     """
     rule = problem.rules[s]
     cols, keys, requires = [], [], []
@@ -314,11 +397,7 @@ def _columns(problem: Problem, s: int, reps: dict, cap: int):
     top = len(cols) if rule.max_visits is None else min(len(cols), rule.max_visits)
     count = sum(1 for _ in itertools.islice(enumerate_subsets(requires, top), MAX_PATTERNS + 1))
     if count > MAX_PATTERNS:
-        raise PlanError(
-            f"Target {problem.target_names[s]!r} could be visited in more than {MAX_PATTERNS} "
-            f"patterns of nights and visits per night; give it a max_visits of "
-            f"{max(1, min(top, len(reps)) - 1)} or fewer, or fewer visits per night."
-        )
+        count = None
     return np.array(cols, dtype=np.int64), keys, requires, top, count
 
 
@@ -387,7 +466,8 @@ def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000
         pred = np.asarray(predictors[s].velocities(problem.bjd_mid[cols]), dtype=float)
         jitter = np.asarray(predictors[s].jitter, dtype=float)
         jobs.append((pred, problem.sigma[cols], jitter, problem.bits[cols], requires, top, count,
-                     streams[s], n_outcomes, problem.target_names[s]))
+                     streams[s], n_outcomes, problem.target_names[s],
+                     None if count is not None else _count_layout(reps, cols, caps[s])))
         layout.append((reps, cols, keys))
     # The patterns' sums and exponentials run in numpy without the GIL: one thread per core.
     threads = max(1, min(workers or os.cpu_count() or 1, len(jobs)))
@@ -403,14 +483,18 @@ def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000
             continue
         reps, cols, keys = here
         values = next(found)
+        for n, r in reps.items():
+            slots[s, n, :len(r)] = problem.bits[r]
+        if isinstance(values, tuple):
+            patterns.append(_count_values(values, slots[s], _present(reps, slots.shape[1:]),
+                                          weights[s] * scale, rho, s))
+            continue
         remap = {}
         for mask, v in values.items():
             full = sum(keys[j] for j in range(len(cols)) if mask >> j & 1)
             remap[full] = int(round(v * weights[s] * scale))
         patterns.append(remap)
         rho[s] = _saturation(values, problem.bits[cols])
-        for n, r in reps.items():
-            slots[s, n, :len(r)] = problem.bits[r]
     # A visit away from its slot representative changes V by rho times its change of one-visit
     # bits; alone it is worth rho b_c + (1 - rho) b_{n0}, and slot k takes the rest.
     first = slots[problem.target, problem.night, 0]
@@ -427,9 +511,140 @@ def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000
     )
 
 
-def _target_values(job) -> dict:
-    """One target's pattern values [bit] by column bitmask: exact, or Gaussian past the budget."""
-    pred, sig_meas, jitter, exact, requires, top, count, rng, n_outcomes, name = job
+def _count_layout(reps: dict, cols: np.ndarray, cap: int) -> list:
+    """Per slot ``k``, ``(night, column)`` of every night that has a slot-``k`` representative."""
+    where = {int(c): j for j, c in enumerate(cols.tolist())}
+    return [[(n, where[r[k]]) for n, r in sorted(reps.items()) if len(r) > k]
+            for k in range(cap)]
+
+
+def _count_tuples(sizes: list, top: int):
+    """Visit counts per slot: non-increasing, ``t_k <= sizes[k]``, at most ``top`` in all."""
+    out = []
+
+    def grow(prefix, left):
+        out.append(tuple(prefix) + (0,) * (len(sizes) - len(prefix)))
+        k = len(prefix)
+        if k == len(sizes):
+            return
+        limit = min(sizes[k], left, prefix[-1] if prefix else sizes[k])
+        for t in range(1, limit + 1):
+            grow(prefix + [t], left - t)
+
+    grow([], top)
+    return sorted(set(out))
+
+
+def _draw_pattern(layout: list, t: tuple, rng: np.random.Generator) -> list:
+    """Columns of a random pattern with ``t[k]`` visits in slot ``k``.
+
+    Chosen from the deepest slot up, so each slot's nights hold every deeper one (the nights
+    with a slot-``k`` representative hold those with a slot-``k+1`` one).
+    """
+    chosen, cols = set(), []
+    for k in range(len(t) - 1, -1, -1):
+        here = dict(layout[k])
+        fresh = [n for n in here if n not in chosen]
+        extra = t[k] - len([n for n in chosen if n in here])
+        if extra > 0:
+            chosen.update(rng.choice(fresh, size=extra, replace=False).tolist())
+        cols.extend(here[n] for n in sorted(chosen) if n in here)
+    return sorted(cols)
+
+
+def _count_table(job) -> tuple:
+    """Mean information ``g(t)`` and representatives' bits ``sbar(t)`` of random patterns.
+
+    ``COUNT_DRAWS`` patterns per count ``t``; draw ``d`` of every ``t`` takes the outcomes of
+    one generator seed (common random numbers), so differences between counts carry less
+    noise. Exact joint information with a generator, the rescaled Gaussian one without.
+    Returns ``({t: (g, sbar)}, None)`` [bit].
+    """
+    from planner.information.gain import joint_bits
+
+    pred, sig_meas, jitter, exact, _, top, _, rng, n_outcomes, _, layout = job
+    sigma = np.sqrt(sig_meas[None, :] ** 2 + jitter[:, None] ** 2)
+    noise = sig_meas**2 + np.mean(jitter**2)
+    cov = np.atleast_2d(np.cov(pred, rowvar=False))
+    k_white = cov / np.sqrt(noise[:, None] * noise[None, :])
+    single = 0.5 * np.log2(1.0 + np.diag(k_white))
+    draw_rng = np.random.default_rng(0) if rng is None else rng
+    seed = int(draw_rng.integers(2**62))
+
+    def info(cols, d):
+        b = float(exact[cols].sum())
+        if len(cols) == 1:
+            return b
+        if rng is not None:
+            return joint_bits(pred[:, cols], sigma[:, cols], np.random.default_rng([seed, d]),
+                              n_outcomes).bits
+        _, logdet = np.linalg.slogdet(np.eye(len(cols)) + k_white[np.ix_(cols, cols)])
+        return 0.5 * logdet / np.log(2.0) * b / max(float(single[cols].sum()), 1e-12)
+
+    # Redundancy of each pair of nights' first slots, less its mean.
+    first = [j for _, j in layout[0]]
+    red = np.zeros((pred.shape[1], pred.shape[1]))
+    pairs = list(itertools.combinations(first, 2))
+    for i, j in pairs:
+        red[i, j] = red[j, i] = exact[i] + exact[j] - info([i, j], COUNT_DRAWS)
+    mean_red = float(np.mean([red[i, j] for i, j in pairs])) if pairs else 0.0
+    table, draws = {}, []
+    for t in _count_tuples([len(level) for level in layout], top):
+        if sum(t) == 0:
+            table[t] = (0.0, 0.0)
+            continue
+        g, sbar, here = [], [], []
+        for d in range(COUNT_DRAWS):
+            cols = _draw_pattern(layout, t, draw_rng)
+            g.append(info(cols, d))
+            sbar.append(float(exact[cols].sum()))
+            firsts = [j for j in cols if j in first]
+            here.append(-sum(red[i, j] - mean_red for i, j in itertools.combinations(firsts, 2)))
+        table[t] = (float(np.mean(g)), float(np.mean(sbar)))
+        # What the pairs' redundancy explains of each draw beyond its counts' mean.
+        draws.extend(zip(np.asarray(here) - np.mean(here), np.asarray(g) - np.mean(g),
+                         strict=True))
+    x, r = np.array(draws).reshape(-1, 2).T
+    kappa = float(np.clip(x @ r / (x @ x), 0.0, 1.0)) if x @ x > 0 else 0.0
+    pair = np.zeros((len(layout[0]), len(layout[0])))
+    for a, (_, i) in enumerate(layout[0]):
+        for b, (_, j) in enumerate(layout[0]):
+            if a < b:
+                pair[a, b] = -kappa * (red[i, j] - mean_red)
+    return table, ([n for n, _ in layout[0]], pair)
+
+
+def _present(reps: dict, shape: tuple) -> np.ndarray:
+    """Which (night, slot) pairs have a representative, shape (n_nights, n_slots)."""
+    out = np.zeros(shape, dtype=bool)
+    for n, r in reps.items():
+        out[n, :len(r)] = True
+    return out
+
+
+def _count_values(found: tuple, bits: np.ndarray, present: np.ndarray, unit: float,
+                  rho: np.ndarray, s: int) -> CountValues:
+    """Build the count form of target ``s`` from its table; set ``rho[s]`` (largest count).
+
+    ``bits`` (n_nights, n_slots) holds the representatives' one-visit bits.
+    """
+    table, (nights, pair) = found
+    _, g, sbar = max((sum(t), g, b) for t, (g, b) in table.items())
+    rho[s] = float(np.clip(g / sbar, 0.0, 1.0)) if sbar > 0 and g > 0 else 1.0
+    values = {t: int(round((g - rho[s] * b) * unit)) for t, (g, b) in table.items()}
+    pairs = np.zeros((bits.shape[0], bits.shape[0]), dtype=np.int64)
+    pairs[np.ix_(nights, nights)] = np.rint(pair * unit).astype(np.int64)
+    return CountValues(values, np.rint(rho[s] * bits * unit).astype(np.int64), present, pairs)
+
+
+def _target_values(job):
+    """One target's pattern values [bit] by column bitmask: exact, or Gaussian past the budget.
+
+    A target past ``MAX_PATTERNS`` gets its count table instead (:func:`_count_table`).
+    """
+    pred, sig_meas, jitter, exact, requires, top, count, rng, n_outcomes, name, _ = job
+    if count is None:
+        return _count_table(job)
     sigma = np.sqrt(sig_meas[None, :] ** 2 + jitter[:, None] ** 2)
     if rng is not None and count * n_outcomes * pred.shape[0] <= EXACT_BUDGET:
         found = pattern_bits(pred, sigma, requires, top, rng, n_outcomes)
@@ -485,7 +700,13 @@ def additive_surrogate(problem: Problem, *, scale: int = 1000) -> Surrogate:
         reps = _slot_representatives(problem, s, 0, caps[s])
         for n, r in reps.items():
             slots[s, n, :len(r)] = unary[r]
-        cols, keys, requires, top, _ = _columns(problem, s, reps, caps[s])
+        cols, keys, requires, top, count = _columns(problem, s, reps, caps[s])
+        if count is None:
+            present = _present(reps, slots.shape[1:])
+            sizes = [int(present[:, k].sum()) for k in range(present.shape[1])]
+            patterns.append(CountValues(dict.fromkeys(_count_tuples(sizes, top), 0), slots[s],
+                                        present))
+            continue
         table = {}
         for _, members in enumerate_subsets(requires, top):
             table[sum(keys[j] for j in members)] = int(unary[cols[list(members)]].sum())

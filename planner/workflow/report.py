@@ -131,9 +131,13 @@ def render_schedule(plan: PlanFile) -> str:
     for index, night in enumerate(plan.nights, start=1):
         visits = sorted(by_night.get(night.date, []), key=lambda v: parse_utc(v.start_utc))
         body, running = _night_body(night, visits, running, zone)
-        day = _dt.date.fromisoformat(night.date).strftime("%a %Y-%m-%d")
-        out.append(f"== night {index} of {n_nights}: evening of {day} {_past(plan, night, zone)}"
-                   .ljust(WIDTH, "="))
+        date = _dt.date.fromisoformat(night.date)
+        day = date.strftime("%a %Y-%m-%d")
+        before = _dt.date.fromisoformat(plan.nights[index - 2].date) if index > 1 else None
+        after = 1 if before is None else (date - before).days
+        gap = f"{after} days after the previous night " if after > 1 else ""
+        out.append(f"== night {index} of {n_nights}: evening of {day} {gap}"
+                   f"{_past(plan, night, zone)}".ljust(WIDTH, "="))
         out.append(f"sunset {_both(night.sunset_utc, zone)}   sunrise "
                    f"{_both(night.sunrise_utc, zone)}")
         out.append(f"dark {_span(night.dark_start_utc, night.dark_end_utc, zone)}")

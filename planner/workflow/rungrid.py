@@ -53,6 +53,17 @@ class RunGrid:
         return out
 
 
+def _part_of_night(night, part):
+    """Return the night's first or second half (dark window split at its middle), or all."""
+    if part is None:
+        return night
+    middle = 0.5 * (night.dark_start_jd + night.dark_end_jd)
+    lo, hi = ((night.dark_start_jd, middle) if part == "first_half"
+              else (middle, night.dark_end_jd))
+    moon = tuple((max(a, lo), min(b, hi)) for a, b in night.moon_up if min(b, hi) > max(a, lo))
+    return dataclasses.replace(night, dark_start_jd=lo, dark_end_jd=hi, moon_up=moon)
+
+
 def physical_setup(scenario: Scenario):
     """Site, true nights, nights shrunk to the whole-minute grid, limits, instrument, mount."""
     from planner.sky.exposure import Instrument
@@ -64,7 +75,9 @@ def physical_setup(scenario: Scenario):
     site = Site(latitude_deg=s.latitude_deg, longitude_deg=s.longitude_deg,
                 elevation_m=s.elevation_m, timezone=s.timezone,
                 min_altitude_deg=s.min_altitude_deg, max_altitude_deg=s.max_altitude_deg)
-    nights = dark_windows(site, scenario.night_dates(), scenario.run.twilight)
+    nights = tuple(_part_of_night(night, part) for night, part in zip(
+        dark_windows(site, scenario.night_dates(), scenario.run.twilight),
+        scenario.night_parts(), strict=True))
     step_d = scenario.sky.step_s / 86400.0
     epoch = math.floor(nights[0].dark_start_jd / _MINUTE_D) * _MINUTE_D
     aligned = []

@@ -77,10 +77,17 @@ class SiteConfig:
 
 @dataclass(frozen=True)
 class RunConfig:
-    """The allocated nights: the first local evening date, how many nights, and the twilight."""
+    """The allocated nights and the twilight.
 
-    first_night: str = _spec("date", what="local evening date of the first night, YYYY-MM-DD")
-    nights: int = _spec("int", lo=1, hi=60, what="number of consecutive nights")
+    Either ``first_night`` and a number of consecutive ``nights``, or ``nights`` as a list of
+    local evening dates, each optionally followed by ``first_half`` or ``second_half`` (the
+    dark window split at its middle); stored as ``((date, part), ...)``, part None for a
+    whole night.
+    """
+
+    nights: int | tuple = _spec("nights", lo=1, hi=60, what="number of consecutive nights")
+    first_night: str | None = _spec("date", None,
+                                    what="local evening date of the first night, YYYY-MM-DD")
     twilight: str | float = _spec("twilight", "nautical", what="twilight name or Sun altitude")
 
 
@@ -241,8 +248,16 @@ class Scenario:
 
     def night_dates(self) -> tuple[str, ...]:
         """Local evening dates of every night of the run, ``YYYY-MM-DD``."""
+        if not isinstance(self.run.nights, int):
+            return tuple(date for date, _ in self.run.nights)
         first = _dt.date.fromisoformat(self.run.first_night)
         return tuple((first + _dt.timedelta(days=i)).isoformat() for i in range(self.run.nights))
+
+    def night_parts(self) -> tuple[str | None, ...]:
+        """Per night, ``first_half``, ``second_half`` or None (the whole dark window)."""
+        if isinstance(self.run.nights, int):
+            return (None,) * self.run.nights
+        return tuple(part for _, part in self.run.nights)
 
     def target_exposures(self, target: TargetConfig) -> tuple[float, ...]:
         """Exposure options of one target: its own, or the scenario's."""
@@ -419,7 +434,15 @@ def _parse(text: str, path: Path) -> Scenario:
     if site.min_altitude_deg >= site.max_altitude_deg:
         raise ScenarioError(f"{where}: site.min_altitude_deg ({site.min_altitude_deg}) must be "
                             f"below site.max_altitude_deg ({site.max_altitude_deg}).")
-    _check_zone_fits_longitude(site, sections["run"].first_night, where)
+    run = sections["run"]
+    if isinstance(run.nights, int) and run.first_night is None:
+        raise ScenarioError(f"{where}: run.first_night is missing; give the local evening date "
+                            "of the first night (YYYY-MM-DD), or run.nights as a list of dates.")
+    if not isinstance(run.nights, int) and run.first_night is not None:
+        raise ScenarioError(f"{where}: run.first_night is given with run.nights as a list of "
+                            "dates; drop first_night, the list names every night.")
+    first = run.first_night if isinstance(run.nights, int) else run.nights[0][0]
+    _check_zone_fits_longitude(site, first, where)
     if sampler.min_period_d >= sampler.max_period_d:
         raise ScenarioError(f"{where}: sampler.min_period_d ({sampler.min_period_d}) must be "
                             f"below sampler.max_period_d ({sampler.max_period_d}).")
@@ -564,6 +587,10 @@ def _coerce(kind: str, value: Any, where: str, key_path: str, meta: dict, base: 
                 raise bad(_did_you_mean(value, TWILIGHT_NAMES))
             return value
         return _number(value, {"lo": -30.0, "hi": 0.0}, bad, integer=False)
+    if kind == "nights":
+        if not isinstance(value, list):
+            return _number(value, meta, bad, integer=True)
+        return _night_list(value, where, key_path, meta, base)
     if kind == "date":
         if isinstance(value, _dt.datetime) or not isinstance(value, _dt.date | str):
             raise bad()
@@ -616,6 +643,31 @@ def _window(item: Any, bad) -> tuple[float, float]:
     return jd[0], jd[1]
 
 
+#: Parts of a night a ``run.nights`` entry may name after its date.
+NIGHT_PARTS = ("first_half", "second_half")
+
+
+def _night_list(value: list, where: str, key_path: str, meta: dict, base: Path) -> tuple:
+    """``run.nights`` as a list: ``((date, part), ...)`` in increasing date order."""
+    if not 1 <= len(value) <= meta["hi"]:
+        raise ScenarioError(f"{where}: {key_path}: expected from 1 to {meta['hi']:g} nights, "
+                            f"got a list of {len(value)}.")
+    out = []
+    for i, item in enumerate(value):
+        sub = f"{key_path}[{i}]"
+        words = item.split() if isinstance(item, str) else [item]
+        if len(words) > 2 or (len(words) == 2 and words[1] not in NIGHT_PARTS):
+            raise ScenarioError(f"{where}: {sub}: expected a date YYYY-MM-DD, optionally "
+                                f"followed by first_half or second_half, got {_describe(item)}.")
+        date = _coerce("date", words[0], where, sub, {}, base)
+        out.append((date, words[1] if len(words) == 2 else None))
+        if i and date <= out[i - 1][0]:
+            raise ScenarioError(f"{where}: {sub}: the night of {date} does not come after the "
+                                f"night of {out[i - 1][0]}; list each night once, in date "
+                                "order.")
+    return tuple(out)
+
+
 def _number(value: Any, meta: dict, bad, integer: bool) -> float | int:
     if isinstance(value, bool) or not isinstance(value, int | float):
         raise bad()
@@ -647,6 +699,7 @@ def _expected(meta: dict, kind: str | None = None) -> str:
         "int": f"a whole number{span}", "bool": "true or false",
         "planets": f"a whole number{span} or auto",
         "weights": f"a list of numbers{span}",
+        "nights": f"a whole number{span} or a list of dates YYYY-MM-DD",
         "floats": f"a list of numbers{span}", "date": "a date YYYY-MM-DD",
         "twilight": "civil, nautical, astronomical or a Sun altitude from -30 to 0",
         "path": "a file path", "path_any": "a folder path", "id": "a name", "str": "a text",
