@@ -34,7 +34,7 @@ def _feasible(problem, subset):
     subset = sorted(subset, key=lambda c: problem.start[c])
     for a, b in itertools.combinations(subset, 2):
         if problem.night[a] == problem.night[b]:
-            if problem.start[b] < problem.end[a] + problem.gap_min(a, b):
+            if problem.start[b] < problem.end[a] + problem.changeover_min(a, b):
                 return False
     for s, rule in enumerate(problem.rules):
         mine = [c for c in subset if problem.target[c] == s]

@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 
 from planner.allocation.greedy import greedy_plan
-from planner.allocation.idle import idle_gaps
+from planner.allocation.idle import idle_stretches
 from planner.allocation.joint import joint_plan
 from planner.allocation.packing import (
     PACK_MARGIN_S,
@@ -107,7 +107,7 @@ def test_grid_starts_lose_a_visit_that_packing_recovers():
     moved = pack_plan(problem, surrogate, plan, refill=False).plan
     assert [v.start_jd <= w.start_jd + 1e-9 for v, w in
             zip(moved.visits, plan.visits, strict=True)] == [True] * 4
-    gaps = idle_gaps(packing.problem, moved)
+    gaps = idle_stretches(packing.problem, moved)
     assert gaps[-1].reason == "waiting for a better moment"  # a visit would still fit there
 
 

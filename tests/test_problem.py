@@ -65,8 +65,8 @@ def test_gaps_are_the_mount_slew_plus_overhead_rounded_up():
     i, j = np.meshgrid(np.arange(p.n_candidates), np.arange(p.n_candidates), indexing="ij")
     expect = np.ceil((slew_seconds(mount, p.alt_end[i], p.az_end[i], p.alt_start[j],
                                    p.az_start[j]) + 5.0) / 60.0 - 1e-9)
-    assert np.array_equal(p.gap_min(i, j), expect.astype(int))
-    assert p.min_gap_min == math.ceil((mount.overhead_s() + 5.0) / 60.0)
+    assert np.array_equal(p.changeover_min(i, j), expect.astype(int))
+    assert p.min_changeover_min == math.ceil((mount.overhead_s() + 5.0) / 60.0)
 
 
 def test_reserved_blocks_and_fixed_windows_remove_candidates():

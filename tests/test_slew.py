@@ -113,8 +113,8 @@ def test_largest_slew_over_pairs_matches_brute_force(wrap, accel):
 
 def test_problem_largest_gap_is_the_brute_force_over_pairs():
     # Reference: the same problem with the mount's model hidden behind a plain function, whose
-    # largest gap conflicts.max_gap_min finds pair by pair (all pairs of each night).
-    from planner.allocation.conflicts import max_gap_min
+    # largest gap conflicts.max_changeover_min finds pair by pair (all pairs of each night).
+    from planner.allocation.conflicts import max_changeover_min
     from planner.allocation.problem import mount_slew
     from tests.benchmarks.instances import grid_instance
 
@@ -124,4 +124,4 @@ def test_problem_largest_gap_is_the_brute_force_over_pairs():
         fast = grid_instance(14, 2, rng=np.random.default_rng(seed), slew=model, overhead_s=40.0)
         plain = grid_instance(14, 2, rng=np.random.default_rng(seed), overhead_s=40.0,
                               slew=lambda a1, z1, a2, z2: model(a1, z1, a2, z2))
-        assert max_gap_min(fast) == max_gap_min(plain) > fast.min_gap_min
+        assert max_changeover_min(fast) == max_changeover_min(plain) > fast.min_changeover_min

@@ -1,14 +1,14 @@
 """Which candidate visits cannot share a plan: time, slew and per-target rules.
 
 Candidates have fixed starts, so two visits of one night are compatible exactly when the later
-one starts no earlier than the earlier one's end plus the gap between them
+one starts no earlier than the earlier one's end plus the changeover between them
 (:meth:`planner.allocation.problem.Problem.gap_min`: slew, overhead and margin). Checking every
 pair, not
-only neighbours, loses nothing as long as gaps obey the triangle inequality up to the exposure in
-between, which holds for any slew model of the form overhead + distance / speed.
+only neighbours, loses nothing as long as changeovers obey the triangle inequality up to the
+exposure in between, which holds for any slew model of the form overhead + distance / speed.
 
-This module finds those conflicts for the strategies: the slot cliques (all candidates whose
-exposure plus the smallest possible gap covers one start time conflict with each other), the
+This module finds those conflicts for the strategies: the instant cliques (all candidates whose
+exposure plus the smallest possible changeover covers one start time conflict with each other), the
 extra pairs that conflict only through a longer slew, the per-target spacing cliques, and the
 working :class:`Schedule` greedy and cadence fill.
 """
@@ -21,10 +21,10 @@ import numpy as np
 
 from planner.allocation.problem import Problem
 
-__all__ = ["Schedule", "max_gap_min", "slew_pairs", "slot_cliques", "spacing_cliques"]
+__all__ = ["Schedule", "max_changeover_min", "slew_pairs", "instant_cliques", "spacing_cliques"]
 
 _CHUNK = 512
-_GAP_CACHE: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
+_CHANGEOVER_CACHE: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
 
 
 def _night_slices(problem: Problem):
@@ -35,14 +35,14 @@ def _night_slices(problem: Problem):
     return [part for part in np.split(order, cuts) if part.size]
 
 
-def max_gap_min(problem: Problem) -> int:
-    """Largest gap between any two candidates of the same night [min] (exact, all pairs).
+def max_changeover_min(problem: Problem) -> int:
+    """Largest changeover between any two candidates of the same night [min] (exact, all pairs).
 
     Computed once per problem (problems are immutable) and remembered.
     """
-    if problem in _GAP_CACHE:
-        return _GAP_CACHE[problem]
-    best = problem.min_gap_min
+    if problem in _CHANGEOVER_CACHE:
+        return _CHANGEOVER_CACHE[problem]
+    best = problem.min_changeover_min
     if problem.slew is not None:
         # A mount's model gives the largest slew over all pairs in O(n log n); any other
         # model is checked pair by pair.
@@ -55,20 +55,20 @@ def max_gap_min(problem: Problem) -> int:
                 continue
             for lo in range(0, idx.size, _CHUNK):
                 rows = idx[lo:lo + _CHUNK]
-                best = max(best, int(problem.gap_min(rows[:, None], idx[None, :]).max()))
-    _GAP_CACHE[problem] = best
+                best = max(best, int(problem.changeover_min(rows[:, None], idx[None, :]).max()))
+    _CHANGEOVER_CACHE[problem] = best
     return best
 
 
-def slot_cliques(problem: Problem) -> list[np.ndarray]:
-    """Maximal sets of candidates whose exposure plus the minimum gap overlap one instant.
+def instant_cliques(problem: Problem) -> list[np.ndarray]:
+    """Maximal sets of candidates whose exposure plus the minimum changeover overlap one instant.
 
     Returns
     -------
     list of ndarray of int
         Each set holds mutually conflicting candidates of one night (at most one can be chosen).
     """
-    gmin = problem.min_gap_min
+    gmin = problem.min_changeover_min
     out = []
     for idx in _night_slices(problem):
         starts = problem.start[idx]
@@ -84,15 +84,16 @@ def slot_cliques(problem: Problem) -> list[np.ndarray]:
 
 
 def slew_pairs(problem: Problem, gmax: int | None = None) -> np.ndarray:
-    """Pairs that no slot clique covers but that conflict through a slew longer than the minimum.
+    """Pairs that no instant clique covers but that conflict through a slew longer than the minimum.
 
     Returns
     -------
     ndarray of int, shape (n_pairs, 2)
-        ``(earlier, later)`` candidate pairs with ``end + min_gap <= later start < end + gap``.
+        ``(earlier, later)`` candidate pairs with
+        ``end + min_changeover <= later start < end + changeover``.
     """
-    gmin = problem.min_gap_min
-    gmax = max_gap_min(problem) if gmax is None else gmax
+    gmin = problem.min_changeover_min
+    gmax = max_changeover_min(problem) if gmax is None else gmax
     found = [np.zeros((0, 2), np.int64)]
     if gmax <= gmin:
         return found[0]
@@ -107,7 +108,7 @@ def slew_pairs(problem: Problem, gmax: int | None = None) -> np.ndarray:
         offsets = np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts)
         second = np.repeat(lo, counts) + offsets
         a, b = idx[first], idx[second]
-        bad = problem.start[b] < problem.end[a] + problem.gap_min(a, b)
+        bad = problem.start[b] < problem.end[a] + problem.changeover_min(a, b)
         found.append(np.stack([a[bad], b[bad]], axis=1))
     return np.concatenate(found)
 
@@ -144,7 +145,7 @@ class Schedule:
         self.open = np.ones(problem.n_candidates, dtype=bool)
         self.visits = np.zeros(problem.n_targets, dtype=np.int64)
         self.per_night = np.zeros((problem.n_targets, problem.n_nights), dtype=np.int64)
-        self._gmax = max_gap_min(problem)
+        self._gmax = max_changeover_min(problem)
         self._dmax = int(problem.duration.max()) if problem.n_candidates else 0
         self._key = problem.night.astype(np.int64) * 10**7 + problem.start
 
@@ -164,8 +165,8 @@ class Schedule:
         before = p.start[near] <= p.start[v]
         clash = np.where(
             before,
-            p.start[v] < p.end[near] + p.gap_min(near, v),
-            p.start[near] < p.end[v] + p.gap_min(v, near),
+            p.start[v] < p.end[near] + p.changeover_min(near, v),
+            p.start[near] < p.end[v] + p.changeover_min(v, near),
         )
         self.open[near[clash]] = False
         self.open[v] = False
@@ -179,7 +180,7 @@ class Schedule:
             self.open[mine & (np.abs(p.start - p.start[v]) < rule.min_spacing_min)] = False
 
     def added_minutes(self, candidates: np.ndarray) -> np.ndarray:
-        """Telescope minutes each candidate would add: exposure plus the change in gaps."""
+        """Telescope minutes each candidate would add: exposure plus the change in changeovers."""
         p = self.problem
         candidates = np.asarray(candidates, dtype=np.int64)
         lead = p.lead_min()
@@ -194,7 +195,7 @@ class Schedule:
             p.night[chosen[np.minimum(pos, chosen.size - 1)]] == p.night[candidates])
         prev = chosen[np.maximum(pos - 1, 0)]
         nxt = chosen[np.minimum(pos, chosen.size - 1)]
-        into = np.where(has_prev, p.gap_min(prev, candidates), lead)
-        out_of = np.where(has_next, p.gap_min(candidates, nxt), 0)
-        replaced = np.where(has_next, np.where(has_prev, p.gap_min(prev, nxt), lead), 0)
+        into = np.where(has_prev, p.changeover_min(prev, candidates), lead)
+        out_of = np.where(has_next, p.changeover_min(candidates, nxt), 0)
+        replaced = np.where(has_next, np.where(has_prev, p.changeover_min(prev, nxt), lead), 0)
         return (p.duration[candidates] + into + out_of - replaced).astype(float)

@@ -2,15 +2,15 @@
 
 Between two exposures of a night the telescope slews, settles and acquires (the next visit's
 ``slew_s``, spent just before its shutter opens); any other dark time is idle. For each idle
-stretch :func:`idle_gaps` gives one of three reasons, from the problem's timeline
+stretch :func:`idle_stretches` gives one of three reasons, from the problem's timeline
 (:class:`planner.allocation.timeline.Timeline`) and rules:
 
 * ``"window"``: the next exposure could not start earlier: its target's limits or fixed window
   open only then, or its spacing or must-do window holds it;
 * ``"waiting for a better moment"``: the next exposure could have started earlier, or another
-  visit fits in the gap, and the plan waits (its value is higher later);
+  visit fits in the opening, and the plan waits (its value is higher later);
 * ``"nothing observable"``: no target that may still take a visit can fit a whole exposure,
-  with its overheads, into the gap.
+  with its overheads, into the opening.
 """
 
 from __future__ import annotations
@@ -23,15 +23,15 @@ import numpy as np
 from planner.allocation.plan import Plan
 from planner.allocation.problem import Problem
 
-__all__ = ["REASONS", "IdleGap", "idle_gaps"]
+__all__ = ["REASONS", "IdleStretch", "idle_stretches"]
 
-#: The reasons :func:`idle_gaps` gives.
+#: The reasons :func:`idle_stretches` gives.
 REASONS = ("window", "waiting for a better moment", "nothing observable")
 _SECOND = 1.0 / 86400.0
 
 
 @dataclass(frozen=True)
-class IdleGap:
+class IdleStretch:
     """One idle stretch of dark time.
 
     Attributes
@@ -75,7 +75,7 @@ def _held(problem: Problem, visit, ready: float, visits) -> bool:
 
 
 def _anything_fits(problem: Problem, start: float, end: float, counts, tonight, cap) -> bool:
-    """Return True when a target with visits left can take a whole exposure in the gap."""
+    """Return True when a target with visits left can take a whole exposure in the opening."""
     tl = problem.timeline
     for s, rule in enumerate(problem.rules):
         if rule.max_visits is not None and counts[s] >= rule.max_visits:
@@ -105,14 +105,14 @@ def _open_pieces(start: float, stop: float, blocks) -> list[tuple[float, float]]
     return pieces
 
 
-def idle_gaps(problem: Problem, plan: Plan, min_s: float = 60.0,
-              max_per_night: int | None = None) -> tuple[IdleGap, ...]:
+def idle_stretches(problem: Problem, plan: Plan, min_s: float = 60.0,
+              max_per_night: int | None = None) -> tuple[IdleStretch, ...]:
     """Idle stretches longer than ``min_s`` of every night, with their reasons.
 
     Parameters
     ----------
     problem : Problem
-        The problem the plan was made for (with a timeline; without one, no gap is explained
+        The problem the plan was made for (with a timeline; without one, no stretch is explained
         and every reason is ``"nothing observable"`` only where no visit follows).
     plan : Plan
     min_s : float
@@ -123,7 +123,7 @@ def idle_gaps(problem: Problem, plan: Plan, min_s: float = 60.0,
 
     Returns
     -------
-    tuple of IdleGap
+    tuple of IdleStretch
         In time order. A stretch is the dark time between one exposure's end and the start of
         the next one's slew (or the dark window's edges), less the problem's reserved blocks
         (blackouts, lost time, the past and executed visits of a re-plan).
@@ -157,7 +157,7 @@ def idle_gaps(problem: Problem, plan: Plan, min_s: float = 60.0,
                     reason = "waiting for a better moment"
                 else:
                     reason = "nothing observable"
-                out.append(IdleGap(date, float(a), float(b), reason))
+                out.append(IdleStretch(date, float(a), float(b), reason))
             if v is not None:
                 cursor = max(cursor, v.end_jd)
     return tuple(out)

@@ -3,9 +3,9 @@
 The model is time-indexed: one Boolean per candidate visit (fixed start, option and target).
 Visits of one night may not overlap and must leave each slew between them:
 
-* one ``AtMostOne`` per slot clique, the candidates whose exposure plus the smallest possible gap
-  covers one start time (a clique formulation, whose linear relaxation is much stronger than one
-  NoOverlap of optional intervals);
+* one ``AtMostOne`` per instant clique, the candidates whose exposure plus the smallest
+  possible changeover covers one start time (a clique formulation, whose linear relaxation is
+  much stronger than one NoOverlap of optional intervals);
 * one clause per remaining pair that conflicts only through its real, longer slew, so the
   returned schedule respects the exact slew between every pair of neighbours.
 
@@ -29,7 +29,12 @@ from dataclasses import dataclass
 import numpy as np
 from ortools.sat.python import cp_model
 
-from planner.allocation.conflicts import max_gap_min, slew_pairs, slot_cliques, spacing_cliques
+from planner.allocation.conflicts import (
+    instant_cliques,
+    max_changeover_min,
+    slew_pairs,
+    spacing_cliques,
+)
 from planner.allocation.greedy import greedy_plan
 from planner.allocation.plan import Plan, assemble_plan
 from planner.allocation.problem import Problem
@@ -188,10 +193,10 @@ def build_model(
     """
     model = cp_model.CpModel()
     x = [model.NewBoolVar(f"x_{c}") for c in range(problem.n_candidates)]
-    cliques = slot_cliques(problem)
+    cliques = instant_cliques(problem)
     for members in cliques:
         model.AddAtMostOne(x[c] for c in members)
-    pairs = slew_pairs(problem, max_gap_min(problem))
+    pairs = slew_pairs(problem, max_changeover_min(problem))
     for a, b in pairs:
         model.AddBoolOr([x[a].Not(), x[b].Not()])
     for members in spacing_cliques(problem):
@@ -252,7 +257,7 @@ def build_model(
             model.AddHint(x[c], int(c in hint_set))
     stats = (
         ("candidates", problem.n_candidates),
-        ("slot_cliques", len(cliques)),
+        ("instant_cliques", len(cliques)),
         ("slew_pairs", len(pairs)),
         ("night_patterns", n_patterns),
     )
@@ -425,9 +430,9 @@ def _infeasible_rule(problem: Problem, surrogate: Surrogate) -> str:
                         f"{when(lo)} to {when(hi)} within the sky limits; widen the window or "
                         "drop it.")
         alone = dataclasses.replace(
-            problem.subset(mine),
+            problem.restrict(mine),
             rules=tuple(r if k == s else TargetRules() for k, r in enumerate(problem.rules)))
-        model, _ = build_model(alone, surrogate.subset(mine))
+        model, _ = build_model(alone, surrogate.restrict(mine))
         solver = cp_model.CpSolver()
         solver.parameters.max_time_in_seconds = 10.0
         solver.parameters.num_workers = 1
@@ -606,7 +611,7 @@ def joint_plan(
     keep = np.arange(problem.n_candidates)
     if keep_per_group is not None:
         keep = _best_per_group(problem, surrogate, keep_per_group, hint.candidates)
-    sub, sub_surrogate = problem.subset(keep), surrogate.subset(keep)
+    sub, sub_surrogate = problem.restrict(keep), surrogate.restrict(keep)
     position = {int(c): k for k, c in enumerate(keep)}
     model, handles = build_model(sub, sub_surrogate,
                                  hint=np.array([position[int(c)] for c in hint.candidates]))

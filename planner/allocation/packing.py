@@ -1,7 +1,7 @@
 """Packing: every exposure as soon as the slew and overheads after the previous one allow.
 
 The strategies choose among exposures that start on the run grid (5 minutes on the demo), so a
-10-minute exposure and its 2-3 minute slew take a 15-minute slot. :func:`pack_plan` takes any
+10-minute exposure and its 2-3 minute slew take 15 minutes of grid. :func:`pack_plan` takes any
 strategy's plan and, night by night, in seconds rather than grid steps:
 
 1. **Compaction (left shift).** Each exposure, in time order, starts at the earliest whole
@@ -11,7 +11,7 @@ strategy's plan and, night by night, in seconds rather than grid steps:
    it. It keeps its target's spacing from the target's earlier visit and stays inside a must-do
    window it alone serves.
 2. **Refill.** The time freed collects where a chain of exposures waits (a window opening, the
-   end of the night). Into every such gap the packer puts, greedily, the visit with the largest
+   end of the night). Into every such opening the packer puts, greedily, the visit with the largest
    exact conditional gain per second of telescope time it takes
    (:func:`planner.information.gain.conditional_bits` given the target's visits in the plan,
    Lindley's expected information), at the earliest second it fits, as long as the target's
@@ -227,7 +227,7 @@ class _Packer:
         self.reserved = problem.reserved_jd
 
     # -- geometry ------------------------------------------------------------------------
-    def gap_s(self, alt1, az1, alt2, az2) -> float:
+    def changeover_s(self, alt1, az1, alt2, az2) -> float:
         """Slew, overheads and margin between two pointings [s]."""
         moved = 0.0 if self.p.slew is None else float(
             np.asarray(self.p.slew(np.float64(alt1), np.float64(az1), np.float64(alt2),
@@ -284,7 +284,7 @@ class _Packer:
         if prev is None:
             return t
         alt, az = self.tl.position1(s, t)
-        return prev.end + self.gap_s(prev.alt_end, prev.az_end, alt, az) * _SECOND
+        return prev.end + self.changeover_s(prev.alt_end, prev.az_end, alt, az) * _SECOND
 
     def latest(self, s: int, o: int, n: int, hi: float, nxt: _Visit | None) -> float:
         """Latest whole second <= ``hi`` at which (s, o) may start before ``nxt`` (-inf: none)."""
@@ -298,7 +298,7 @@ class _Packer:
             limit = self.dark[n, 1] - exp_d
             if nxt is not None:
                 v = self.visit_at(s, o, n, t)
-                limit = nxt.start - self.gap_s(v.alt_end, v.az_end, nxt.alt_start,
+                limit = nxt.start - self.changeover_s(v.alt_end, v.az_end, nxt.alt_start,
                                                nxt.az_start) * _SECOND - exp_d
             if t <= limit + 1e-9 and self.tl.allowed1(o, s, t):
                 return t
@@ -308,12 +308,12 @@ class _Packer:
     def lead_s(self, prev: _Visit | None, v: _Visit) -> float:
         if prev is None:
             return self.p.overhead_s
-        return self.gap_s(prev.alt_end, prev.az_end, v.alt_start, v.az_start)
+        return self.changeover_s(prev.alt_end, prev.az_end, v.alt_start, v.az_start)
 
     def fits_before(self, v: _Visit, nxt: _Visit | None) -> bool:
         if nxt is None:
             return v.end <= self.dark[v.night, 1] + 1e-9
-        need = v.end + self.gap_s(v.alt_end, v.az_end, nxt.alt_start, nxt.az_start) * _SECOND
+        need = v.end + self.changeover_s(v.alt_end, v.az_end, nxt.alt_start, nxt.az_start) * _SECOND
         return need <= nxt.start + 1e-9
 
 
@@ -405,7 +405,7 @@ def _justify_right(pk: _Packer, nights: list[list[_Visit]], everyone: list[_Visi
 def _refill(pk: _Packer, nights: list[list[_Visit]], surrogate_ok) -> int:
     """Insert visits into the free time greedily by gain per second; return how many.
 
-    A gap's fits are kept until the gap or the target's visits change, and the gains of a
+    An opening's fits are kept until the opening or the target's visits change, and the gains of a
     target's new fits are computed in one call, so each insertion costs a few evaluations.
     """
     p = pk.p
@@ -426,7 +426,7 @@ def _refill(pk: _Packer, nights: list[list[_Visit]], surrogate_ok) -> int:
                 stop = pk.dark[n, 1] if nxt is None else nxt.start
                 if (stop - start) * 86400.0 < shortest:
                     continue
-                # Targets with an allowed grid start in the gap (or just before it, whose
+                # Targets with an allowed grid start in the opening (or just before it, whose
                 # bracket reaches in), per option: the others cannot fit, whatever the slews.
                 k0, _ = pk.tl.bracket(start)
                 k1, _ = pk.tl.bracket(stop)
@@ -482,7 +482,7 @@ def _columns(visits) -> dict:
 
 
 def _fit(pk: _Packer, s, o, n, start, prev, nxt, everyone):
-    """Return the earliest visit of (s, o) in a gap and the telescope seconds it takes."""
+    """Return the earliest visit of (s, o) in an opening and the telescope seconds it takes."""
     rule = pk.p.rules[s]
     t = pk.earliest(s, o, n, start, prev)
     if not math.isfinite(t):
@@ -494,9 +494,9 @@ def _fit(pk: _Packer, s, o, n, start, prev, nxt, everyone):
             w.target == s and abs(w.start - t) * 1440.0 < rule.min_spacing_min - 1e-6
             for w in everyone):
         return None
-    end_of_gap = v.end if nxt is None else v.end + pk.gap_s(
+    end_of_gap = v.end if nxt is None else v.end + pk.changeover_s(
         v.alt_end, v.az_end, nxt.alt_start, nxt.az_start) * _SECOND
-    freed = 0.0 if (prev is None or nxt is None) else pk.gap_s(
+    freed = 0.0 if (prev is None or nxt is None) else pk.changeover_s(
         prev.alt_end, prev.az_end, nxt.alt_start, nxt.az_start)
     base = start if prev is not None else max(start, t - pk.p.overhead_s * _SECOND)
     return v, max((end_of_gap - base) * 86400.0 - freed, 1.0)

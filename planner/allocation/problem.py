@@ -4,10 +4,10 @@ The solver clock counts whole minutes from ``Problem.epoch_jd`` (the first grid 
 night, differences on it are exact because the run grid's step is a whole number of minutes. A
 candidate visit is one target, one exposure option and one fixed start on the run grid; its
 exposure occupies ``duration`` minutes (the exposure rounded up to the minute) and the telescope
-needs ``gap_min(i, j)`` minutes between the end of candidate ``i`` and the start of ``j``: the
-slew from where ``i`` ends to where ``j`` starts plus the per-visit overhead plus a small safety
-margin, rounded up to the minute. Because starts are fixed, every slew between two candidates is
-known exactly before solving, so strategies can respect it pairwise.
+needs ``changeover_min(i, j)`` minutes between the end of candidate ``i`` and the start of
+``j``: the slew from where ``i`` ends to where ``j`` starts plus the per-visit overhead plus a
+small safety margin, rounded up to the minute. Because starts are fixed, every slew between two
+candidates is known exactly before solving, so strategies can respect it pairwise.
 """
 
 from __future__ import annotations
@@ -123,7 +123,7 @@ class Problem:
 
     def __post_init__(self) -> None:
         # The record is immutable, its arrays too: caches keyed on a Problem (the largest slew
-        # gap in planner.allocation.conflicts) rely on its content never changing.
+        # changeover in planner.allocation.conflicts) rely on its content never changing.
         for field_ in fields(self):
             value = getattr(self, field_.name)
             if isinstance(value, np.ndarray) and value.flags.writeable:
@@ -175,24 +175,24 @@ class Problem:
         moved = self.slew(self.alt_end[i], self.az_end[i], self.alt_start[j], self.az_start[j])
         return self.overhead_s + np.asarray(moved, dtype=float)
 
-    def gap_min(self, i, j) -> np.ndarray:
+    def changeover_min(self, i, j) -> np.ndarray:
         """Whole minutes the telescope needs between the end of ``i`` and the start of ``j``."""
         return self.minutes(self.slew_seconds(i, j))
 
     def minutes(self, seconds) -> np.ndarray:
-        """Whole minutes of a gap of slew plus overhead ``seconds`` (margin added, rounded up)."""
+        """Whole minutes of a changeover of ``seconds`` (margin added, rounded up)."""
         total = np.asarray(seconds, dtype=float) + self._margin()
         return np.ceil(total / 60.0 - 1e-9).astype(np.int64)
 
     @property
-    def min_gap_min(self) -> int:
-        """A lower bound on every gap [min]: the overhead and margin alone (slews are >= 0)."""
+    def min_changeover_min(self) -> int:
+        """A lower bound on every changeover [min]: overhead and margin alone (slews >= 0)."""
         return int(math.ceil((self.overhead_s + self._margin()) / 60.0 - 1e-9))
 
     def _margin(self) -> float:
         return self.slew_margin_s if self.slew is not None else 0.0
 
-    def subset(self, idx) -> Problem:
+    def restrict(self, idx) -> Problem:
         """Return the same problem restricted to candidates ``idx`` (in the given order)."""
         idx = np.asarray(idx, dtype=np.int64)
         per_candidate = {name: getattr(self, name)[idx] for name in _PER_CANDIDATE}
@@ -200,7 +200,7 @@ class Problem:
 
     def lead_min(self) -> int:
         """Minutes before the first exposure of a night taken by its overhead."""
-        return self.min_gap_min
+        return self.min_changeover_min
 
 
 def _thin(values: np.ndarray, keep: int, spacing: int) -> np.ndarray:
@@ -483,7 +483,8 @@ def mount_slew(mount) -> SlewModel:
     """Return the slew model of a :class:`planner.sky.slew.Mount` (motion only, no overhead).
 
     The model (a :class:`planner.sky.slew.MountSlew`) also gives the exact largest slew over all
-    pairs of two sets of positions, which :func:`planner.allocation.conflicts.max_gap_min` uses.
+    pairs of two sets of positions, which
+    :func:`planner.allocation.conflicts.max_changeover_min` uses.
     """
     from planner.sky.slew import MountSlew
 

@@ -49,7 +49,7 @@ import numpy as np
 
 from planner.allocation.problem import Problem
 from planner.errors import PlanError
-from planner.information.visit_sets import enumerate_subsets, pattern_bits
+from planner.information.visit_sets import enumerate_visit_sets, pattern_bits
 
 __all__ = ["CountValues", "Surrogate", "additive_surrogate", "build_surrogate",
            "gaussian_redundancy", "slot_bit"]
@@ -189,8 +189,8 @@ class Surrogate:
         """
         return self.slots[:, :, 0]
 
-    def subset(self, idx) -> Surrogate:
-        """Return the same objective on ``Problem.subset(idx)`` (only candidate values move)."""
+    def restrict(self, idx) -> Surrogate:
+        """Return the same objective on ``Problem.restrict(idx)`` (only candidate values move)."""
         return Surrogate(self.scale, self.unary[np.asarray(idx, dtype=np.int64)], self.slots,
                          self.patterns, self.rho)
 
@@ -309,7 +309,7 @@ def _pattern_values(k_white: np.ndarray, exact: np.ndarray, top: int, requires=N
     single = 0.5 * np.log2(1.0 + np.diag(k_white))
     values = {0: 0.0}
     by_size = {}
-    for mask, cols in enumerate_subsets(requires, top):
+    for mask, cols in enumerate_visit_sets(requires, top):
         if cols:
             by_size.setdefault(len(cols), []).append((mask, cols))
     for size, group in by_size.items():
@@ -395,7 +395,7 @@ def _columns(problem: Problem, s: int, reps: dict, cap: int):
                 cols.append(reps[n][k])
                 keys.append(slot_bit(n, k, problem.n_nights))
     top = len(cols) if rule.max_visits is None else min(len(cols), rule.max_visits)
-    count = sum(1 for _ in itertools.islice(enumerate_subsets(requires, top), MAX_PATTERNS + 1))
+    count = sum(1 for _ in itertools.islice(enumerate_visit_sets(requires, top), MAX_PATTERNS + 1))
     if count > MAX_PATTERNS:
         count = None
     return np.array(cols, dtype=np.int64), keys, requires, top, count
@@ -708,7 +708,7 @@ def additive_surrogate(problem: Problem, *, scale: int = 1000) -> Surrogate:
                                         present))
             continue
         table = {}
-        for _, members in enumerate_subsets(requires, top):
+        for _, members in enumerate_visit_sets(requires, top):
             table[sum(keys[j] for j in members)] = int(unary[cols[list(members)]].sum())
         patterns.append(table)
     return Surrogate(scale=int(scale), unary=unary, slots=slots, patterns=tuple(patterns))

@@ -9,7 +9,7 @@ every slew with :func:`planner.sky.slew.slew_seconds`. A plan passes when
 * each exposure lies inside its night's dark window, lasts its exposure time, and keeps its
   target inside the altitude, airmass and Moon limits at every sampled instant (start, end, and
   at most ``sample_s`` apart in between);
-* no two exposures overlap, the gap before each exposure covers the slew and overhead from the
+* no two exposures overlap, the time before each exposure covers the slew and overhead from the
   previous one of the night, and no exposure or overhead falls in a blackout or reserved block;
 * the per-target rules hold (visit counts per run and per night, spacing, fixed and must-do
   windows).

@@ -39,7 +39,7 @@ __all__ = ["LN2", "VOID_SIGMAS", "InformationError", "mixture_entropy_bits"]
 VOID_SIGMAS = 14.0
 #: Grid padding beyond the outermost centres, in the largest total standard deviation.
 _PAD_SIGMAS = 7.0
-#: Columns needing more bins than this are sorted and gap-compressed first.
+#: Columns needing more bins than this are sorted and their voids shrunk first.
 _COMPRESS_BINS = 3072
 #: Largest ratio between neighbouring total-variance nodes.
 _NODE_RATIO = 1.35
@@ -339,12 +339,12 @@ def _column_weights(weights, n_s, n_c):
 class _Grid:
     """Where each column's density grid lies: bins, rungs, compression and chunk size."""
 
-    x: np.ndarray  # centres, sorted and gap-compressed in the `wide` columns
+    x: np.ndarray  # centres, sorted and void-shrunk in the `wide` columns
     level: np.ndarray  # (n_cols,) ladder rung of each column's smallest extra variance
     h: np.ndarray  # (n_cols,) bin width [m/s]
     n_bins: np.ndarray  # (n_cols,) bins needed
     mid: np.ndarray  # (n_cols,) grid centre [m/s]
-    wide: np.ndarray  # indices of the gap-compressed columns
+    wide: np.ndarray  # indices of the void-shrunk columns
     order: np.ndarray | None  # the sort order of the wide columns' centres
     c_top: float  # largest per-component variance left (0 when none)
     per_chunk: int  # columns per chunk
@@ -352,7 +352,7 @@ class _Grid:
 
 
 def _grid_layout(x, comp, extra, wanted, bin_fraction) -> _Grid:
-    """Each column's bin width, bin count and centre, compressing columns with wide gaps."""
+    """Each column's bin width, bin count and centre, shrinking wide voids."""
     n_s = x.shape[0]
     x_max, x_min = x.max(axis=0), x.min(axis=0)
     e_min = np.where(wanted, np.nanmin(np.where(np.isfinite(extra), extra, np.inf), axis=0), 0.0)

@@ -17,7 +17,7 @@ from planner.information.entropy import InformationError
 
 __all__ = [
     "MIN_MODE_SHARE",
-    "MODE_GAP",
+    "MODE_VOID",
     "PARAMETERS",
     "Labelling",
     "default_label_count",
@@ -27,7 +27,7 @@ __all__ = [
 ]
 
 #: Gap in ln(period) between neighbouring sorted samples that separates two period modes.
-MODE_GAP = 0.02
+MODE_VOID = 0.02
 #: Least share of the samples a period mode keeps; smaller runs join their nearer neighbour.
 MIN_MODE_SHARE = 0.01
 #: Orbit parameters that can be labelled (per Keplerian signal unless per instrument).
@@ -92,19 +92,19 @@ def _values(values, what):
     return x
 
 
-def period_modes(period, gap=MODE_GAP, min_share=MIN_MODE_SHARE, max_modes=None):
-    """Label the samples by period mode: runs of sorted ln(period) split at wide gaps.
+def period_modes(period, void=MODE_VOID, min_share=MIN_MODE_SHARE, max_modes=None):
+    """Label the samples by period mode: runs of sorted ln(period) split at wide voids.
 
     Parameters
     ----------
     period : array_like, shape (n_samples,)
         Period of each sample [d], > 0.
-    gap : float, optional
-        A gap in ln(period) wider than this between neighbouring sorted samples ends a mode
+    void : float, optional
+        A void in ln(period) wider than this between neighbouring sorted samples ends a mode
         (0.02: periods 2 % apart).
     min_share : float, optional
         A run holding fewer than this share of the samples joins the neighbour across its
-        narrower gap, smallest run first (sparse tails of one broad mode stay in it).
+        narrower void, smallest run first (sparse tails of one broad mode stay in it).
     max_modes : int, optional
         Runs are also joined, smallest first, until at most this many remain; default
         :func:`default_label_count`. The finite-sample error of the information grows with
@@ -120,8 +120,8 @@ def period_modes(period, gap=MODE_GAP, min_share=MIN_MODE_SHARE, max_modes=None)
         raise InformationError("period must be positive [d]; check the posterior samples.")
     order = np.argsort(p, kind="stable")
     lp = np.log(p[order])
-    gaps = np.diff(lp)
-    cuts = list(np.flatnonzero(gaps > gap) + 1)
+    voids = np.diff(lp)
+    cuts = list(np.flatnonzero(voids > void) + 1)
     need = max(1, math.ceil(min_share * p.size))
     most = default_label_count(p.size) if max_modes is None else max(1, int(max_modes))
     while cuts:
@@ -130,8 +130,8 @@ def period_modes(period, gap=MODE_GAP, min_share=MIN_MODE_SHARE, max_modes=None)
         small = int(np.argmin(counts))
         if counts[small] >= need and counts.size <= most:
             break
-        left = gaps[bounds[small] - 1] if small > 0 else np.inf
-        right = gaps[bounds[small + 1] - 1] if small < len(counts) - 1 else np.inf
+        left = voids[bounds[small] - 1] if small > 0 else np.inf
+        right = voids[bounds[small + 1] - 1] if small < len(counts) - 1 else np.inf
         del cuts[small - 1 if left <= right else small]
     sorted_labels = np.zeros(p.size, dtype=np.int64)
     sorted_labels[cuts] = 1

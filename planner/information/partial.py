@@ -275,7 +275,8 @@ def run_label_bits(run, about="period", targets=None, jobs=1):
     from planner.sky.tracks import mid_exposure_columns
 
     if about not in ABOUT:
-        raise InformationError(f"unknown subset {about!r}; choose one of {', '.join(ABOUT)}.")
+        raise InformationError(
+            f"unknown parameter group {about!r}; choose one of {', '.join(ABOUT)}.")
     wanted = set(targets or [t.id for t in run.scenario.targets])
     chosen = [s for s, t in enumerate(run.scenario.targets)
               if t.id in wanted and run.observable[:, s].any()]

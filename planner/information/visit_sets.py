@@ -18,11 +18,11 @@ import numpy as np
 from planner.information.entropy import LN2
 from planner.information.gain import simulate_outcomes
 
-__all__ = ["enumerate_subsets", "pattern_bits"]
+__all__ = ["enumerate_visit_sets", "pattern_bits"]
 
 
 
-def enumerate_subsets(requires: Sequence[int], top: int):
+def enumerate_visit_sets(requires: Sequence[int], top: int):
     """Column bitmasks of every subset of at most ``top`` columns closed under ``requires``.
 
     Column ``j`` may be in a subset only with column ``requires[j]`` (or freely when it is -1);
@@ -92,7 +92,7 @@ def pattern_bits(predicted, sigma, requires, top, rng, n_outcomes=256):
     buf = np.empty((m, n_s), dtype=np.float32)
     rows = np.arange(m)
     log_n = math.log(n_s)
-    for mask, cols in enumerate_subsets(requires, top):
+    for mask, cols in enumerate_visit_sets(requires, top):
         if mask == 0:
             continue
         total = logs[len(cols)]

@@ -192,7 +192,7 @@ def run_strategy(run: PreparedRun, strategy: str, time_limit_s=None, candidates=
     keep = None
     if candidates is not None:
         keep = np.unique(np.asarray(candidates, dtype=np.int64))
-        problem, surrogate = problem.subset(keep), surrogate.subset(keep)
+        problem, surrogate = problem.restrict(keep), surrogate.restrict(keep)
     if strategy == "joint":
         focus = JOINT_FOCUS_PER_GROUP if keep is None else None
         plan = joint_plan(problem, surrogate, limit=_as_limit(run.scenario, time_limit_s),

@@ -92,7 +92,7 @@ def _night_spans(run: PreparedRun, night, now_jd):
     return text(lost), text(past)
 
 
-def _idle_by_night(run: PreparedRun, plan, idle_gaps) -> dict:
+def _idle_by_night(run: PreparedRun, plan, idle_stretches) -> dict:
     """Idle stretches with their reasons per night, stretched to the true dark window.
 
     The plan uses each night's dark window shrunk to the whole-minute run grid; the minute or
@@ -102,7 +102,7 @@ def _idle_by_night(run: PreparedRun, plan, idle_gaps) -> dict:
 
     cap = 1 if plan.strategy == "cadence" else None
     gaps: dict = {}
-    for gap in idle_gaps(run.problem, plan, max_per_night=cap):
+    for gap in idle_stretches(run.problem, plan, max_per_night=cap):
         gaps.setdefault(gap.night, []).append([gap.start_jd, gap.end_jd, gap.reason])
     out = {}
     for true, grid in zip(run.nights, run.aligned, strict=True):
@@ -126,11 +126,11 @@ def build_plan_file(run: PreparedRun, plan, marginals, target_bits, total_bits, 
     """Turn a plan into the plan file, with the exact pointing at start and end.
 
     The record is :class:`planner.workflow.outputs.PlanFile`; each night carries its idle
-    stretches with their reasons (:func:`planner.allocation.idle.idle_gaps`, on the planned
+    stretches with their reasons (:func:`planner.allocation.idle.idle_stretches`, on the planned
     part of the night) and, after a re-plan at ``now_jd``, the part already past;
     ``provenance`` is what reproduces it (:func:`planner.workflow.provenance.plan_provenance`).
     """
-    from planner.allocation.idle import idle_gaps
+    from planner.allocation.idle import idle_stretches
     from planner.sky.tracks import pointing_at
     from planner.workflow.accounting import account_targets, left_out
     from planner.workflow.outputs import NightSummary, PlanFile, ScheduledVisit, format_utc
@@ -154,7 +154,7 @@ def build_plan_file(run: PreparedRun, plan, marginals, target_bits, total_bits, 
                 dec_deg=float(dec[k])))
     kept = [v for v in run.done]
     all_visits = sorted(kept + visits, key=lambda v: v.start_utc)
-    idle = _idle_by_night(run, plan, idle_gaps)
+    idle = _idle_by_night(run, plan, idle_stretches)
     nights = []
     for n in run.nights:
         lost, past = _night_spans(run, n, now_jd)

@@ -233,7 +233,7 @@ def curves_figure(run, targets=None):
     _clock_axis(ax, zone, dates=True)
     ax.set_xlabel(f"local date and time ({run.site.timezone})")
     ax.set_ylabel("expected bits of one velocity")
-    ax.set_title("best one-visit information per star (gaps: not observable)", fontsize=10)
+    ax.set_title("best one-visit information per star (breaks: not observable)", fontsize=10)
     if len(chosen) <= 20:
         ax.legend(fontsize=7, ncol=1 + len(chosen) // 10, loc="upper left",
                   bbox_to_anchor=(1.005, 1.0), frameon=False)

@@ -135,8 +135,8 @@ def render_schedule(plan: PlanFile) -> str:
         day = date.strftime("%a %Y-%m-%d")
         before = _dt.date.fromisoformat(plan.nights[index - 2].date) if index > 1 else None
         after = 1 if before is None else (date - before).days
-        gap = f"{after} days after the previous night " if after > 1 else ""
-        out.append(f"== night {index} of {n_nights}: evening of {day} {gap}"
+        apart = f"{after} days after the previous night " if after > 1 else ""
+        out.append(f"== night {index} of {n_nights}: evening of {day} {apart}"
                    f"{_past(plan, night, zone)}".ljust(WIDTH, "="))
         out.append(f"sunset {_both(night.sunset_utc, zone)}   sunrise "
                    f"{_both(night.sunrise_utc, zone)}")
@@ -323,7 +323,7 @@ def _night_body(night, visits, running, zone):
         lines.append(f"{'':1}{_hms(moment, zone):>8} {'':>8} {_hms(moment):>8}  {label} {length}"
                      f" until {_hms(datetime_from_jd(b), zone)}{tail}")
 
-    def gap(start: float, end: float) -> None:
+    def lost_or_idle(start: float, end: float) -> None:
         """Lost and idle lines from ``start`` to ``end`` (lost cut at every local hour)."""
         cuts = sorted({start, end, *(t for a, b in lost + past for t in (a, b) if start < t < end)})
         for a, b in zip(cuts[:-1], cuts[1:], strict=True):
@@ -345,7 +345,7 @@ def _night_body(night, visits, running, zone):
     for visit in visits:
         start = parse_utc(visit.start_utc)
         slew_start = start - visit.slew_s / 86400.0
-        gap(cursor, slew_start)
+        lost_or_idle(cursor, slew_start)
         separator(slew_start)
         running += visit.expected_bits
         bits += visit.expected_bits
@@ -357,7 +357,7 @@ def _night_body(night, visits, running, zone):
                      f"{airmass:>9}  {visit.moon_separation_deg:>4.0f}  {visit.slew_s:>5.0f}  "
                      f"{visit.expected_bits:>7.3f}  {running:>8.3f}")
         cursor = max(cursor, parse_utc(visit.end_utc))
-    gap(cursor, parse_utc(night.dark_end_utc))
+    lost_or_idle(cursor, parse_utc(night.dark_end_utc))
     lines.append("-" * len(_COLUMNS))
     lines.extend(_night_total(night, visits, bits))
     return lines, running

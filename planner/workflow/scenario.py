@@ -367,9 +367,9 @@ class _UniqueKeyLoader(yaml.SafeLoader):
         return super().construct_mapping(node, deep=deep)
 
 
-#: Largest gap allowed between a site's UTC offset and its longitude / 15 deg per hour [h].
+#: Largest difference allowed between a site's UTC offset and its longitude / 15 deg per hour [h].
 #: Civil time zones stray from solar time by up to about 3.5 h (common practice: western
-#: China on UTC+8); a larger gap is a zone from the other side of the world.
+#: China on UTC+8); a larger difference is a zone from the other side of the world.
 ZONE_SLACK_H = 5.0
 
 
@@ -378,11 +378,11 @@ def _check_zone_fits_longitude(site, first_night: str, where: str) -> None:
     moment = _dt.datetime.fromisoformat(first_night).replace(hour=21)
     offset = moment.replace(tzinfo=ZoneInfo(site.timezone)).utcoffset().total_seconds() / 3600
     solar = site.longitude_deg / 15.0
-    gap = (offset - solar + 12.0) % 24.0 - 12.0  # across the date line, the short way round
-    if abs(gap) > ZONE_SLACK_H:
+    off = (offset - solar + 12.0) % 24.0 - 12.0  # across the date line, the short way round
+    if abs(off) > ZONE_SLACK_H:
         raise ScenarioError(
             f"{where}: site.timezone: {site.timezone!r} is UTC{offset:+g} h on the first night, "
-            f"{abs(gap):.1f} h from the solar time of longitude {site.longitude_deg:g} deg "
+            f"{abs(off):.1f} h from the solar time of longitude {site.longitude_deg:g} deg "
             f"(UTC{solar:+.1f} h); give the site's own IANA zone, or check the sign of "
             "longitude_deg (east is positive).")
 

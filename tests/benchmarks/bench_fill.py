@@ -103,7 +103,7 @@ def main() -> None:
           f"{problem.n_targets}; visits {visits.sum()} of at most "
           f"{int(np.minimum(caps, 10**4).sum())}")
     start, end = problem.start_jd_grid, problem.end_jd(np.arange(problem.n_candidates))
-    lead = problem.min_gap_min / 1440.0
+    lead = problem.min_changeover_min / 1440.0
     print("joint idle stretches >= 15 min: night, start UTC hour, minutes, candidates inside, "
           "of targets the rules still allow")
     for n, a, b in _stretches(joint, problem):
