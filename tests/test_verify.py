@@ -147,9 +147,9 @@ def test_each_check_is_triggered_by_a_plan_built_to_break_it(case):
     assert any("below its minimum" in p for p in text)
     text = problems(_rules(inst.problem, s, max_visits=len(mine) - 1))
     assert any("above its maximum" in p for p in text)
-    gap_min = int(np.ceil((mine[1] - mine[0]) * 1440.0)) + 1
+    spacing_min = int(np.ceil((mine[1] - mine[0]) * 1440.0)) + 1
     assert any("closer than" in p for p in problems(_rules(inst.problem, s,
-                                                           min_spacing_min=gap_min)))
+                                                           min_spacing_min=spacing_min)))
     outside = ((v.end_jd + 0.01, v.end_jd + 0.02),)
     assert any("outside the target's fixed windows" in p
                for p in problems(_rules(inst.problem, s, windows_jd=outside)))

@@ -2,7 +2,7 @@
 
 Candidates have fixed starts, so two visits of one night are compatible exactly when the later
 one starts no earlier than the earlier one's end plus the changeover between them
-(:meth:`planner.allocation.problem.Problem.gap_min`: slew, overhead and margin). Checking every
+(:meth:`planner.allocation.problem.Problem.changeover_min`: slew, overhead, margin). Checking every
 pair, not
 only neighbours, loses nothing as long as changeovers obey the triangle inequality up to the
 exposure in between, which holds for any slew model of the form overhead + distance / speed.
