@@ -22,6 +22,7 @@ import json
 import math
 import os
 from dataclasses import MISSING, asdict, dataclass, fields
+from enum import StrEnum
 from pathlib import Path
 from typing import Any
 
@@ -39,6 +40,7 @@ from planner.workflow.file_set import (
 )
 
 __all__ = [
+    "VisitStatus",
     "FORMAT_VERSION",
     "NightSummary",
     "PlanFile",
@@ -476,9 +478,19 @@ def read_plan(path: str | Path) -> PlanFile:
     return PlanFile(**top, nights=nights, visits=visits)
 
 
-#: What a visit's status may be: planned, executed (``done``), or executed with its velocity
-#: folded in (``measured``).
-VISIT_STATUSES = ("planned", "done", "measured")
+class VisitStatus(StrEnum):
+    """What a scheduled visit in plan.json is; a ``StrEnum``, stored as its lower-case value."""
+
+    #: Still to be observed.
+    PLANNED = "planned"
+    #: Executed, its velocity not yet folded into the posterior.
+    DONE = "done"
+    #: Executed, with its velocity folded in (a re-plan with ``--rvs``).
+    MEASURED = "measured"
+
+
+#: The statuses a visit may have, in their order of life.
+VISIT_STATUSES = tuple(VisitStatus)
 
 
 def _check_visit(visit: ScheduledVisit, where: str, targets: dict) -> None:

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from planner.workflow.outputs import VisitStatus
 from planner.workflow.prepared import PreparedRun, visit_predictions
 
 __all__ = ["build_plan_file", "exact_marginals"]
@@ -55,7 +56,7 @@ def exact_marginals(run: PreparedRun, plan, n_outcomes: int = 2048):
         cand = np.array([plan.visits[k].candidate for k in mine])
         pred = predictor.velocities(problem.bjd_mid[cand])
         sig = np.sqrt(problem.sigma[cand][None, :] ** 2 + predictor.jitter[:, None] ** 2)
-        pending = [v for v in run.done if v.target == target.id and v.status == "done"]
+        pending = [v for v in run.done if v.target == target.id and v.status == VisitStatus.DONE]
         if pending:
             p0, s0 = visit_predictions(scenario, run.sky, run.instrument, predictor, s,
                                         pending, parse_utc)

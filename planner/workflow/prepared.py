@@ -17,6 +17,7 @@ import numpy as np
 
 from planner.errors import ScenarioError
 from planner.sky.tracks import mid_exposure_columns
+from planner.workflow.outputs import VisitStatus
 from planner.workflow.rungrid import RunGrid, fill_bjd, physical_setup, run_grid
 from planner.workflow.saved_curves import reusable_curves
 from planner.workflow.scenario import Scenario
@@ -276,7 +277,7 @@ def _bits(scenario, sky, instrument, predictors, exposures, observable, sigma, d
     bits = np.zeros(observable.shape)
     pending = {}
     for visit in done:
-        if visit.status == "done":
+        if visit.status == VisitStatus.DONE:
             pending.setdefault(visit.target, []).append(visit)
     saved = saved or {}
     for s, target_bits in saved.items():

@@ -35,6 +35,7 @@ from zoneinfo import ZoneInfo
 import numpy as np
 
 from planner.clock import J2000_JD, datetime_from_jd
+from planner.workflow.outputs import VisitStatus
 
 __all__ = ["COORDINATE_EPOCH", "queue_table", "queue_text"]
 
@@ -68,7 +69,7 @@ def queue_table(plan_file, v_mag: dict):
     from planner.workflow.outputs import parse_utc
 
     zone = ZoneInfo(plan_file.site["timezone"])
-    visits = sorted((v for v in plan_file.visits if v.status == "planned"),
+    visits = sorted((v for v in plan_file.visits if v.status == VisitStatus.PLANNED),
                     key=lambda v: parse_utc(v.start_utc))
     opened = np.array([parse_utc(v.start_utc) for v in visits], dtype=float)
     closed = np.array([parse_utc(v.end_utc) for v in visits], dtype=float)

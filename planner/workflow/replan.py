@@ -31,7 +31,7 @@ from pathlib import Path
 import numpy as np
 
 from planner.errors import PlanError
-from planner.workflow.outputs import PlanFile, ScheduledVisit, format_utc, parse_utc
+from planner.workflow.outputs import PlanFile, ScheduledVisit, VisitStatus, format_utc, parse_utc
 
 __all__ = ["LATER_PER_GROUP", "ReplanRequest", "ReplanResult", "check_scenario_matches",
            "focus_candidates", "parse_request", "read_new_velocities", "recorded_scenario",
@@ -417,7 +417,7 @@ def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=
             raise PlanError(f"--now {now}: the plan was already re-planned as of "
                             f"{old.now_utc}; give a later time.")
         now_jd = before if now_jd is None else max(now_jd, before)
-    done = [v for v in old.visits if v.status != "planned"]
+    done = [v for v in old.visits if v.status != VisitStatus.PLANNED]
     if done_file:
         done += _done_rows(Path(done_file), old)
     if now_jd is not None:
@@ -425,8 +425,8 @@ def parse_request(old: PlanFile, scenario, *, lost=(), done_file=None, rv_files=
     unique = {(v.target, v.start_utc): v for v in done}
     kept = sorted((v for v in unique.values() if not _in_lost(v, spans)),
                   key=lambda v: v.start_utc)
-    kept = tuple(dataclasses.replace(v, status="done") if v.status == "planned" else v
-                 for v in kept)
+    kept = tuple(dataclasses.replace(v, status=VisitStatus.DONE)
+                 if v.status == VisitStatus.PLANNED else v for v in kept)
     new_data = {}
     for path in rv_files:
         for target, data in read_new_velocities(path, scenario).items():
@@ -494,7 +494,7 @@ def replan(scenario, posteriors: dict, old: PlanFile, request: ReplanRequest, *,
                                   streams.star("update", target_id),
                                   settings=pipeline.sampler_settings(scenario))
         posteriors[target_id], updates[target_id] = update.posterior, update
-    done = tuple(dataclasses.replace(v, status="measured") if v.target in request.new_data
+    done = tuple(dataclasses.replace(v, status=VisitStatus.MEASURED) if v.target in request.new_data
                  else v for v in request.done)
     run = pipeline.prepare(scenario, posteriors, lost_jd=request.lost_jd, done=done,
                            strict=False, reuse=reuse, now_jd=request.now_jd,
@@ -569,7 +569,7 @@ def focus_candidates(run, old: PlanFile, now_jd: float | None,
         keep[later[order[rank < per_group]]] = True
     index = {name: s for s, name in enumerate(problem.target_names)}
     for visit in old.visits:
-        if visit.status != "planned" or visit.target not in index:
+        if visit.status != VisitStatus.PLANNED or visit.target not in index:
             continue
         start = parse_utc(visit.start_utc)
         match = np.flatnonzero((problem.target == index[visit.target])

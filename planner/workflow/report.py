@@ -27,7 +27,7 @@ from zoneinfo import ZoneInfo
 import numpy as np
 
 from planner.clock import datetime_from_jd, jd_from_datetime
-from planner.workflow.outputs import PlanFile, ScheduledVisit, parse_utc
+from planner.workflow.outputs import PlanFile, ScheduledVisit, VisitStatus, parse_utc
 
 __all__ = [
     "CAUTION",
@@ -149,7 +149,7 @@ def render_schedule(plan: PlanFile) -> str:
         out.extend(_wrap(moon, "     "))
         out.extend(body)
         out.append("")
-    done = sum(v.status != "planned" for v in plan.visits)
+    done = sum(v.status != VisitStatus.PLANNED for v in plan.visits)
     bound = f"; {bound_sentence(plan)}"
     summary = (f"run total: {len(plan.visits)} exposures over {n_nights} nights"
                f"{f' ({done} executed)' if done else ''}, {running:.2f} bits by the visit "
@@ -184,7 +184,7 @@ def _account(night, visits) -> dict[str, float]:
     named = dict(layers)
     for v in visits:
         start, end = parse_utc(v.start_utc), parse_utc(v.end_utc)
-        done = "executed " if v.status != "planned" else ""
+        done = "executed " if v.status != VisitStatus.PLANNED else ""
         named[done + "exposing"].append((start, end))
         named[done + "overheads"].append((start - v.slew_s / 86400.0, start))
     layers.append(("lost", _spans(night.lost)))
@@ -217,7 +217,7 @@ def _night_total(night, visits, bits: float) -> list[str]:
     """Return the night's total lines: count and bits, then the dark window's parts."""
     parts = _account(night, visits)
     minutes = _split_minutes(parts)
-    planned = [v for v in visits if v.status == "planned"]
+    planned = [v for v in visits if v.status == VisitStatus.PLANNED]
     executed = len(visits) - len(planned)
     plural = "s" if len(planned) != 1 else ""
     head = f"night total: {len(planned)} planned exposure{plural}"
@@ -349,7 +349,7 @@ def _night_body(night, visits, running, zone):
         separator(slew_start)
         running += visit.expected_bits
         bits += visit.expected_bits
-        mark = " " if visit.status == "planned" else "*"
+        mark = " " if visit.status == VisitStatus.PLANNED else "*"
         moment = datetime_from_jd(start)
         airmass = f"{visit.airmass_start:.2f}>{visit.airmass_end:.2f}"
         lines.append(f"{mark}{_hms(datetime_from_jd(slew_start), zone):>8} {_hms(moment, zone):>8} "
@@ -536,7 +536,8 @@ def target_summary_lines(plan: PlanFile) -> list[str]:
                            "marginal bits per minute of exposure and slew. 'in time': the "
                            "visit is worth more than that, but its open times went to visits "
                            "worth more.", "  "))
-        planned = [v for v in plan.visits if v.status == "planned" and v.exposure_s + v.slew_s]
+        planned = [v for v in plan.visits
+                   if v.status == VisitStatus.PLANNED and v.exposure_s + v.slew_s]
         if planned:
             last = min(planned, key=lambda v: v.expected_bits / (v.exposure_s + v.slew_s))
             zone = ZoneInfo(plan.site["timezone"])
