@@ -157,7 +157,8 @@ def main() -> None:
         truth = {"target": name, "kind": kind, "instrument": INSTRUMENT, "offset_ms": offset,
                  "jitter_ms": jitter, "planets": planets}
         atomic_write_text(OUT / "truth" / f"{slug}.json", json.dumps(truth, indent=2) + "\n")
-        n_fit = 2 if kind == "two planets" else 1
+        # Stars with no planet or two: how many planets is itself a question (docs/priors.md).
+        n_fit = "auto" if kind in ("two planets", "no planet") else 1
         targets.append((name, ra, dec, v_mag, slug, n_fit, kind))
     atomic_write_text(OUT / "demo.yaml", _yaml(targets))
 

@@ -115,3 +115,24 @@ def test_bad_parameters_are_one_clear_error(kwargs):
     base.update(kwargs)
     with pytest.raises(InformationError):
         Predictor.from_parameters(**base)
+
+
+def test_a_posterior_without_planet_predicts_its_offset():
+    # With no planet the model is the offset alone (docs/priors.md): every sample predicts its
+    # own offset at every time, on the fast and the exact route.
+    from inference.data import RVData
+    from inference.model import ModelSpec
+    from inference.sample import fit
+    from inference.settings import SamplerSettings
+
+    rng = np.random.default_rng(4)
+    t = 2460000.0 + np.sort(rng.uniform(0.0, 300.0, 15))
+    data = RVData.from_arrays(t, 5.0 + rng.normal(0.0, 2.0, 15), np.full(15, 2.0))
+    post = fit(data, ModelSpec.for_data(data, n_planets=0), SamplerSettings(n_samples=100), rng=1)
+    pred = Predictor.from_posterior(post, data.instruments[0])
+    times = np.linspace(2460300.0, 2460400.0, 7)
+    offset = post.param(f"offset_{data.instruments[0]}")
+    for exact in (False, True):
+        v = pred.velocities(times, exact=exact)
+        assert v.shape == (100, 7)
+        np.testing.assert_array_equal(v, np.repeat(offset[:, None], 7, axis=1))

@@ -266,7 +266,8 @@ def run_label_bits(run, about="period", targets=None, jobs=1):
     Returns
     -------
     bits : ndarray, shape (n_options, n_targets, n_sky)
-        Like ``run.bits``: zero where a start is not observable. Velocities are predicted at
+        Like ``run.bits``: zero where a start is not observable, and for a star whose
+        posterior has no planet (there is no period to learn about). Velocities are predicted at
         the sky-grid time nearest mid-exposure within the night (as the full curves are), all
         exposure options of a target in one pass; no executed visits are conditioned on.
     """
@@ -278,8 +279,9 @@ def run_label_bits(run, about="period", targets=None, jobs=1):
         raise InformationError(
             f"unknown parameter group {about!r}; choose one of {', '.join(ABOUT)}.")
     wanted = set(targets or [t.id for t in run.scenario.targets])
-    chosen = [s for s, t in enumerate(run.scenario.targets)
-              if t.id in wanted and run.observable[:, s].any()]
+    chosen = [s for s, t in enumerate(run.scenario.targets)  # a star without planet: no period
+              if t.id in wanted and run.observable[:, s].any()
+              and run.predictors[s].period.shape[1] > 0]
     work = []
     for s in chosen:
         starts = [np.flatnonzero(run.observable[o, s]) for o in range(len(run.exposures))]

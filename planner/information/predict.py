@@ -258,8 +258,10 @@ class Predictor:
                     f"instruments {tuple(posterior.model.instruments)}."
                 )
         n_pl = int(posterior.model.n_planets)
-        cols = {
+        n_s = posterior.samples.shape[0]
+        cols = {  # (n_samples, 0) for a model with no planet: offset and jitter alone
             q: np.column_stack([posterior.param(f"{q}_{i}") for i in range(1, n_pl + 1)])
+            if n_pl else np.zeros((n_s, 0))
             for q in ("period", "semi_amplitude", "eccentricity", "omega", "time_periastron")
         }
         trend = posterior.param("trend") if "trend" in names else None
@@ -295,8 +297,8 @@ class Predictor:
             tb = t[a : a + step]
             block = out[a : a + step]
             tables = self._tables
-            first = tables[0]
-            if not exact and first.with_offset:
+            if not exact and tables and tables[0].with_offset:
+                first = tables[0]
                 # The first planet's table carries the offset: its values fill the block.
                 _hermite(tb, self.period[:, 0], self.time_periastron[:, 0], first, out=block)
                 tables = tables[1:]

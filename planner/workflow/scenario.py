@@ -539,9 +539,9 @@ def _coerce(kind: str, value: Any, where: str, key_path: str, meta: dict, base: 
             return value
         return _number(value, meta, bad, integer=True)
     if kind == "weights":
-        if not isinstance(value, list) or not value:
+        if not isinstance(value, list):
             raise bad()
-        return tuple(_number(item, meta, bad, integer=False) for item in value)
+        return tuple(_number(item, meta, bad, integer=False) for item in value)  # [] = default
     if kind == "minutes":
         number = _number(value, meta, bad, integer=False)
         if not float(number / 60.0).is_integer():
