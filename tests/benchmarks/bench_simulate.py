@@ -19,11 +19,11 @@ ROOT = Path(__file__).resolve().parents[2]
 if str(ROOT) not in sys.path:
     sys.path.insert(0, str(ROOT))
 
-from planner.workflow import pipeline  # noqa: E402
 from planner.cli.simulate import render_tables  # noqa: E402
 from planner.simulation.experiment import STRATEGIES, build_setup, run_strategy  # noqa: E402
 from planner.simulation.scoreboard import Experiment, summarise  # noqa: E402
 from planner.simulation.truth import read_truths  # noqa: E402
+from planner.workflow import pipeline  # noqa: E402
 
 
 def main():

@@ -24,12 +24,12 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from planner.workflow import pipeline  # noqa: E402
 from planner.allocation.cadence import cadence_plan  # noqa: E402
 from planner.allocation.greedy import greedy_plan  # noqa: E402
 from planner.allocation.joint import build_model, joint_plan  # noqa: E402
 from planner.allocation.score import score_plan  # noqa: E402
 from planner.allocation.surrogate import build_surrogate, slot_bit  # noqa: E402
+from planner.workflow import pipeline  # noqa: E402
 
 
 def decompose(surrogate, problem, s, mine):
