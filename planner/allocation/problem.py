@@ -265,47 +265,35 @@ def build_problem(
     ----------
     times_jd : ndarray, shape (n_times,)
         Run grid, JD UTC [d], increasing; inside each night spaced by whole minutes.
-    night_index : ndarray of int, shape (n_times,)
-        Night of each grid time (negative: not in any night).
-    dark_jd : ndarray, shape (n_nights, 2)
-        Dark window of each night, JD UTC [d].
-    night_dates : sequence of str, length n_nights
-        Night names, ``YYYY-MM-DD``.
-    target_names : sequence of str, length n_targets
-        Target names.
+    night_index, dark_jd : ndarray, shapes (n_times,) and (n_nights, 2)
+        Night of each grid time (negative: none) and each night's dark window, JD UTC [d].
+    night_dates, target_names : sequence of str
+        Night names (``YYYY-MM-DD``) and target names.
     rules : sequence of TargetRules, length n_targets
-        Per-target rules.
     exposure_s : sequence of float, length n_options
         Exposure time of each option [s].
     observable : ndarray of bool, shape (n_options, n_targets, n_times)
         True where an exposure of that option starting at that time lies inside every limit.
-    bits : ndarray, shape (n_options, n_targets, n_times)
-        One-visit expected information [bit].
-    sigma : ndarray, shape (n_options, n_targets, n_times)
-        Measurement noise without jitter [m/s].
-    airmass, altitude_deg, azimuth_deg : ndarray, shape (n_targets, n_times)
-        Airmass, altitude [deg] and azimuth [deg] of each target on the grid.
-    bjd_tdb : ndarray, shape (n_targets, n_times)
-        Barycentric time of each target on the grid, BJD_TDB [d].
+    bits, sigma : ndarray, shape (n_options, n_targets, n_times)
+        One-visit expected information [bit] and measurement noise without jitter [m/s].
+    airmass, altitude_deg, azimuth_deg, bjd_tdb : ndarray, shape (n_targets, n_times)
+        Airmass, altitude [deg], azimuth [deg] and BJD_TDB [d] of each target on the grid.
     slew : callable or None
         Slew model ``(alt1, az1, alt2, az2) -> s`` in degrees; None: overhead only.
-    overhead_s : float
-        Per-visit overhead before each exposure [s].
+    overhead_s, slew_margin_s : float
+        Per-visit overhead before each exposure, and the safety margin added to each slew
+        before rounding up [s].
     reserved_jd : sequence of (float, float)
         Blocks when the telescope is not ours, JD UTC.
     default_option : int
         Option the cadence plan uses.
-    keep_per_night : int
-        Starts kept per (target, night, option): the best by ``bits``, thinned.
-    thin_spacing_min : int
-        Minimum spacing between kept starts of one (target, night, option) [min].
-    slew_margin_s : float
-        Safety margin added to each slew before rounding up [s].
+    keep_per_night, thin_spacing_min : int
+        Starts kept per (target, night, option), the best by ``bits``, at least
+        ``thin_spacing_min`` minutes apart.
 
     Returns
     -------
     Problem
-        The candidate visits.
 
     Raises
     ------

@@ -449,12 +449,7 @@ def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000
     caps = _caps(problem)
     slots = np.zeros((problem.n_targets, n_n, max(caps, default=1)))
     rho = np.ones(problem.n_targets)
-    if rng is not None and streams is not None:
-        raise ValueError("give at most one of rng and streams.")
-    if streams is not None:
-        streams = [streams.star("surrogate", name) for name in problem.target_names]
-    else:
-        streams = [None] * problem.n_targets if rng is None else rng.spawn(problem.n_targets)
+    streams = _star_streams(problem, rng, streams)
     jobs, layout = [], []
     for s in range(problem.n_targets):
         rule = problem.rules[s]
@@ -469,13 +464,7 @@ def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000
                      streams[s], n_outcomes, problem.target_names[s],
                      None if count is not None else _count_layout(reps, cols, caps[s])))
         layout.append((reps, cols, keys))
-    # The patterns' sums and exponentials run in numpy without the GIL: one thread per core.
-    threads = max(1, min(workers or os.cpu_count() or 1, len(jobs)))
-    if threads > 1:
-        with ThreadPoolExecutor(threads) as pool:
-            found = iter(list(pool.map(_target_values, jobs)))
-    else:
-        found = iter([_target_values(job) for job in jobs])
+    found = iter(_run_values(jobs, workers))
     patterns = []
     for s, here in enumerate(layout):
         if here is None:
@@ -509,6 +498,27 @@ def build_surrogate(problem: Problem, predictors: Sequence, *, scale: int = 1000
         patterns=tuple(patterns),
         rho=rho,
     )
+
+
+def _star_streams(problem: Problem, rng, streams) -> list:
+    """One random source per target: from the run's streams, spawned from ``rng``, or None."""
+    if rng is not None and streams is not None:
+        raise ValueError("give at most one of rng and streams.")
+    if streams is not None:
+        return [streams.star("surrogate", name) for name in problem.target_names]
+    return [None] * problem.n_targets if rng is None else rng.spawn(problem.n_targets)
+
+
+def _run_values(jobs: list, workers) -> list:
+    """Return each target's pattern values, one thread per core.
+
+    The patterns' sums and exponentials run in numpy without the GIL.
+    """
+    threads = max(1, min(workers or os.cpu_count() or 1, len(jobs)))
+    if threads > 1:
+        with ThreadPoolExecutor(threads) as pool:
+            return list(pool.map(_target_values, jobs))
+    return [_target_values(job) for job in jobs]
 
 
 def _count_layout(reps: dict, cols: np.ndarray, cap: int) -> list:

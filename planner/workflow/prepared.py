@@ -154,14 +154,12 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
     PreparedRun
     """
     from planner.allocation.problem import build_problem, mount_slew
-    from planner.allocation.rules import TargetRules
     from planner.allocation.surrogate import build_surrogate
     from planner.information.predict import Predictor
     from planner.information.streams import Streams
     from planner.sky.exposure import grid_sigma
-    from planner.sky.observability import Constraints, observable_starts
+    from planner.sky.observability import Constraints
     from planner.sky.tracks import compute_sky
-    from planner.workflow.outputs import parse_utc
 
     report = progress or (lambda done, total, label: None)
     report(0, 4, "sky and limits")
@@ -170,17 +168,12 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
     sky = compute_sky(site, aligned, [t.ra_deg for t in targets], [t.dec_deg for t in targets],
                       step_s=scenario.sky.step_s, names=[t.id for t in targets])
     grid = run_grid(sky, aligned)
-    busy = [(parse_utc(v.start_utc) - v.slew_s / 86400.0, parse_utc(v.end_utc)) for v in done]
-    past = () if now_jd is None else ((min(n.sunset_jd for n in nights) - 1.0, float(now_jd)),)
-    closed = tuple(scenario.constraints.blackouts) + tuple(lost_jd) + past + tuple(busy)
-    airmass_limits = tuple(t.max_airmass or scenario.constraints.max_airmass for t in targets)
-    constraints = Constraints(max_airmass=airmass_limits, moon_table=moon_table,
-                              blackouts=closed,
-                              target_windows=tuple(t.windows or None for t in targets))
-    exposures = tuple(sorted({e for t in targets for e in scenario.target_exposures(t)}))
-    offered = np.array([[e in scenario.target_exposures(t) for t in targets] for e in exposures])
-    observable = np.stack([observable_starts(sky, constraints, e) for e in exposures])
-    observable &= offered[:, :, None]
+    closed = _closed_time(scenario, nights, lost_jd, done, now_jd)
+    constraints = Constraints(
+        max_airmass=tuple(t.max_airmass or scenario.constraints.max_airmass for t in targets),
+        moon_table=moon_table, blackouts=closed,
+        target_windows=tuple(t.windows or None for t in targets))
+    exposures, observable = _observable(scenario, sky, constraints)
     excluded = _excluded(scenario, sky, constraints, strict)
     v_mag = np.array([t.v_mag for t in targets])
     sigma = grid_sigma(instrument, sky, v_mag, exposures)
@@ -191,17 +184,7 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
     saved = reusable_curves(reuse, scenario, sky, exposures, observable, posteriors)
     bits, exact_bits = _bits(scenario, sky, instrument, predictors, exposures, observable, sigma,
                              done, streams, jobs, saved)
-    # Executed visits count against a star's visits in the run (not against its visits per
-    # night: the rule has one limit for every night).
-    kept = {t.id: 0 for t in targets}
-    for visit in done:
-        kept[visit.target] = kept.get(visit.target, 0) + 1
-    rules = tuple(TargetRules(
-        min_visits=max(0, t.min_visits - kept[t.id]),
-        max_visits=None if t.max_visits is None else max(0, t.max_visits - kept[t.id]),
-        max_per_night=t.max_visits_per_night,
-        min_spacing_min=int(round(t.min_gap_h * 60.0)), weight=t.weight,
-        windows_jd=tuple(t.windows), must_windows_jd=tuple(t.must_windows)) for t in targets)
+    rules = _run_rules(targets, done)
     report(2, 4, "candidate visits")
     default = scenario.exposures.options_s[0]
     problem = build_problem(
@@ -227,6 +210,48 @@ def prepare(scenario: Scenario, posteriors: dict, *, lost_jd=(), done=(), strict
                        bits=bits, sigma=sigma, problem=problem, surrogate=surrogate,
                        lost_jd=tuple(lost_jd), done=tuple(done), excluded=excluded,
                        exact_bits=exact_bits, now_jd=None if now_jd is None else float(now_jd))
+
+
+def _closed_time(scenario, nights, lost_jd, done, now_jd) -> tuple:
+    """Telescope time closed to new visits: blackouts, lost time, the past, executed visits."""
+    from planner.workflow.outputs import parse_utc
+
+    busy = [(parse_utc(v.start_utc) - v.slew_s / 86400.0, parse_utc(v.end_utc)) for v in done]
+    past = () if now_jd is None else ((min(n.sunset_jd for n in nights) - 1.0, float(now_jd)),)
+    return tuple(scenario.constraints.blackouts) + tuple(lost_jd) + past + tuple(busy)
+
+
+def _observable(scenario, sky, constraints):
+    """Return the exposure options and where each target may start the ones it offers.
+
+    Returns (exposures [s], observable of shape (n_options, n_targets, n_sky_times)).
+    """
+    from planner.sky.observability import observable_starts
+
+    targets = scenario.targets
+    exposures = tuple(sorted({e for t in targets for e in scenario.target_exposures(t)}))
+    offered = np.array([[e in scenario.target_exposures(t) for t in targets] for e in exposures])
+    observable = np.stack([observable_starts(sky, constraints, e) for e in exposures])
+    return exposures, observable & offered[:, :, None]
+
+
+def _run_rules(targets, done) -> tuple:
+    """Return each target's rules for the rest of the run.
+
+    Executed visits count against a star's visits in the run (not against its visits per
+    night: the rule has one limit for every night).
+    """
+    from planner.allocation.rules import TargetRules
+
+    kept = {t.id: 0 for t in targets}
+    for visit in done:
+        kept[visit.target] = kept.get(visit.target, 0) + 1
+    return tuple(TargetRules(
+        min_visits=max(0, t.min_visits - kept[t.id]),
+        max_visits=None if t.max_visits is None else max(0, t.max_visits - kept[t.id]),
+        max_per_night=t.max_visits_per_night,
+        min_spacing_min=int(round(t.min_gap_h * 60.0)), weight=t.weight,
+        windows_jd=tuple(t.windows), must_windows_jd=tuple(t.must_windows)) for t in targets)
 
 
 def _excluded(scenario, sky, constraints, strict: bool) -> tuple:
