@@ -25,6 +25,7 @@ __all__ = [
     "check_bjd",
     "check_file_size",
     "read_rv_csv",
+    "separator_hint",
 ]
 
 #: Instrument name given to every row of a file without an ``instrument`` column.
@@ -47,6 +48,22 @@ MAX_VELOCITY_MS = 1.0e6
 #: mistaken file (a whole survey, a binary) from taking minutes and gigabytes to refuse.
 MAX_RV_FILE_BYTES = 8_000_000
 MAX_VELOCITIES = 20_000
+
+
+def separator_hint(names):
+    """Return a hint if a header's names look separated by semicolons or tabs, else "".
+
+    Parameters
+    ----------
+    names : iterable of str
+        The column names a comma-separated reader found.
+    """
+    header = ",".join(str(name) for name in names)
+    for sep, kind in ((";", "semicolon"), ("\t", "tab")):
+        if sep in header:
+            return (f" (the header looks {kind}-separated: save the file with commas between "
+                    "the columns and points as decimal marks)")
+    return ""
 
 
 def check_file_size(path, limit, what, fix="give one star's velocities per file"):
@@ -115,14 +132,14 @@ def _validate(time, rv, rv_err, instrument, where):
         bad = np.flatnonzero(~np.isfinite(values))
         if bad.size:
             raise RVDataError(
-                f"{where(bad[0], column)} holds {values[bad[0]]!r}, not a finite number: "
+                f"{where(bad[0], column)} holds {float(values[bad[0]])!r}, not a finite number: "
                 "replace it with a finite value or delete the row."
             )
     bad = np.flatnonzero(rv_err <= 0.0)
     if bad.size:
         raise RVDataError(
-            f"{where(bad[0], 'rv_err')} holds {rv_err[bad[0]]!r}, but measurement errors must be "
-            "positive: give the velocity's 1-sigma uncertainty in m/s."
+            f"{where(bad[0], 'rv_err')} holds {float(rv_err[bad[0]])!r}, but measurement errors "
+            "must be positive: give the velocity's 1-sigma uncertainty in m/s."
         )
     empty = [i for i, name in enumerate(instrument) if not name.strip()]
     if empty:
@@ -334,10 +351,7 @@ def read_rv_csv(path):
     frame.columns = names
     for column in REQUIRED_COLUMNS:
         if column not in frame.columns:
-            header = ",".join(frame.columns)
-            seps = [name for sep, name in ((";", "semicolon"), ("\t", "tab")) if sep in header]
-            hint = (f" (the header looks {seps[0]}-separated: save the file with commas between "
-                    "the columns and points as decimal marks)") if seps else ""
+            hint = separator_hint(frame.columns)
             raise RVDataError(
                 f"{path}, line 1 (header) has no column '{column}': the header must name the "
                 f"columns time, rv, rv_err (and optionally instrument){hint}."

@@ -242,3 +242,61 @@ def test_a_huge_done_file_is_refused(planned, tmp_path, capsys):
     line = _one_sentence(capsys, ["replan", "--plan", str(plan), "--done", str(done),
                                   "--out", str(tmp_path / "o")])
     assert f"--done {done} is" in line and "MB allowed for --done files" in line
+
+
+# A new user's slips, found by running the catalogue of faults again: each one sentence.
+def test_a_folder_given_for_the_scenario_or_the_plan_is_named_as_a_folder(tmp_path, capsys):
+    line = _one_sentence(capsys, ["fit", str(tmp_path)])
+    assert line == (f"nightbits fit: scenario file {tmp_path} is a folder; give the scenario's "
+                    "YAML file itself.")
+    line = _one_sentence(capsys, ["replan", "--plan", str(tmp_path), "--out", str(tmp_path / "o")])
+    assert line == (f"nightbits replan: plan file {tmp_path} is a folder; give the plan.json in "
+                    f"it ({tmp_path / 'plan.json'}).")
+
+
+def test_a_scenario_that_is_not_utf8_names_the_byte(tmp_path, capsys):
+    path = _edited_tiny(tmp_path, "name: tiny test run", "name: cafe run", "l1.yaml")
+    path.write_bytes(path.read_bytes().replace(b"cafe", b"caf\xe9"))  # a Latin-1 e-acute
+    line = _one_sentence(capsys, ["fit", str(path)])
+    offset = path.read_bytes().index(b"\xe9")
+    assert line.endswith(f"is not UTF-8 text (byte 0xe9 at offset {offset}); save it as UTF-8.")
+
+
+def test_an_rv_file_that_is_a_folder_is_named_as_a_folder(tmp_path, capsys):
+    path = _edited_tiny(tmp_path, "rv/gamur-7.csv", "rv", "folder.yaml")
+    line = _one_sentence(capsys, ["fit", str(path)])
+    assert f"targets[0].rv_file: {path.parent / 'rv'} is a folder; give the file itself" in line
+
+
+def test_a_zero_error_is_printed_as_a_plain_number(tmp_path):
+    path = tmp_path / "star.csv"
+    path.write_text("time,rv,rv_err\n2461288.5,1.0,0.5\n2461289.5,2.0,0\n")
+    with pytest.raises(RVDataError) as info:
+        read_rv_csv(path)
+    assert str(info.value) == (
+        f"{path}, line 3, column 'rv_err' holds 0.0, but measurement errors must be positive: "
+        "give the velocity's 1-sigma uncertainty in m/s.")
+
+
+@pytest.mark.parametrize("option, header", [("--done", "target;start_utc"),
+                                            ("--rvs", "target;time;rv;rv_err")])
+def test_a_semicolon_separated_done_or_rvs_file_gets_a_hint(planned, tmp_path, capsys, option,
+                                                            header):
+    _, _, plan, _ = planned
+    path = tmp_path / "log.csv"
+    path.write_text(f"{header}\nGamur-7;2027-10-05T01:00:00Z\n")
+    line = _one_sentence(capsys, ["replan", "--plan", str(plan), option, str(path),
+                                  "--out", str(tmp_path / "o")])
+    assert line.startswith(f"nightbits replan: {option} {path}: needs")
+    assert line.endswith("(the header looks semicolon-separated: save the file with commas "
+                         "between the columns and points as decimal marks).")
+
+
+def test_an_unknown_target_in_rvs_names_the_file_and_line(planned, tmp_path, capsys):
+    _, _, plan, _ = planned
+    path = tmp_path / "new.csv"
+    path.write_text("target,time,rv,rv_err\nGamur-7,2461390.1,5,1\nGamur7,2461390.2,5,1\n")
+    line = _one_sentence(capsys, ["replan", "--plan", str(plan), "--rvs", str(path),
+                                  "--out", str(tmp_path / "o")])
+    assert line == (f"nightbits replan: --rvs {path} line 3: there is no target 'Gamur7' (did "
+                    "you mean 'Gamur-7'?); use one of the ids under targets.")

@@ -451,6 +451,9 @@ def read_plan(path: str | Path) -> PlanFile:
     except FileNotFoundError:
         raise PlanError(f"plan file {path} does not exist; give the plan.json that "
                         "`nightbits plan` wrote.") from None
+    except IsADirectoryError:
+        raise PlanError(f"plan file {path} is a folder; give the plan.json in it "
+                        f"({path / 'plan.json'}).") from None
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
         raise PlanError(f"plan file {path} is not readable JSON ({exc}).") from None
     where = path.name

@@ -30,7 +30,8 @@ from pathlib import Path
 
 import numpy as np
 
-from planner.errors import PlanError
+from inference.data import separator_hint
+from planner.errors import PlanError, ScenarioError
 from planner.workflow.outputs import PlanFile, ScheduledVisit, VisitStatus, format_utc, parse_utc
 
 __all__ = ["LATER_PER_GROUP", "ReplanRequest", "ReplanResult", "check_scenario_matches",
@@ -233,7 +234,7 @@ def _done_rows(path: Path, old: PlanFile) -> list[ScheduledVisit]:
     rows = _csv_rows(path, "--done")
     if rows and not {"target", "start_utc"} <= set(rows[0]):
         raise PlanError(f"--done {path}: needs the columns target and start_utc (copy the rows "
-                        "of plan.csv that were observed).")
+                        f"of plan.csv that were observed){separator_hint(rows[0])}.")
     done = []
     for line, row in enumerate(rows, start=2):
         t = parse_utc(row["start_utc"], f"--done {path} line {line}")
@@ -272,13 +273,16 @@ def read_new_velocities(path: str | Path, scenario) -> dict:
     if not ({"target", "rv", "rv_err"} <= columns and columns & {"time", "mid_utc"}):
         raise PlanError(f"--rvs {path}: needs a header with the columns target, rv and rv_err "
                         "(m/s) and a time, either time (BJD_TDB) or mid_utc (UTC mid-exposure), "
-                        "and at least one row.")
+                        f"and at least one row{separator_hint(rows[0] if rows else {})}.")
     zone = scenario.site.timezone
     groups: dict[str, list] = {}
     for line, row in enumerate(rows, start=2):
         if not (row.get("rv") or "").strip():
             continue  # an exposure without a velocity yet (an observing-log row)
-        target = scenario.target(row["target"])  # a ScenarioError with a did-you-mean
+        try:
+            target = scenario.target(row["target"])
+        except ScenarioError as exc:  # the file and line, then the scenario's did-you-mean
+            raise PlanError(f"--rvs {path} line {line}: {str(exc).split(': ', 1)[-1]}") from None
         try:
             rv, err = float(row["rv"]), float(row["rv_err"])
             bjd = float(row["time"]) if (row.get("time") or "").strip() else None

@@ -318,8 +318,16 @@ def load_scenario(path: str | Path) -> Scenario:
         text = path.read_text(encoding="utf-8")
     except FileNotFoundError:
         raise ScenarioError(f"scenario file {path} does not exist; check the path.") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ScenarioError(f"scenario file {path} cannot be read as UTF-8 text ({exc}).") from None
+    except IsADirectoryError:
+        raise ScenarioError(f"scenario file {path} is a folder; give the scenario's YAML file "
+                            "itself.") from None
+    except UnicodeDecodeError as exc:
+        raise ScenarioError(f"scenario file {path} is not UTF-8 text (byte "
+                            f"{exc.object[exc.start]:#04x} at offset {exc.start}); save it as "
+                            "UTF-8.") from None
+    except OSError as exc:
+        raise ScenarioError(f"scenario file {path} cannot be read "
+                            f"({exc.strerror or exc}).") from None
     return parse_scenario(text, path)
 
 
@@ -617,6 +625,9 @@ def _coerce(kind: str, value: Any, where: str, key_path: str, meta: dict, base: 
         if "\x00" in value:
             raise bad()
         resolved = (base / Path(value).expanduser()).resolve()
+        if kind == "path" and resolved.is_dir():
+            raise ScenarioError(f"{where}: {key_path}: {resolved} is a folder; give the file "
+                                "itself (paths are relative to the scenario file's folder).")
         if kind == "path" and not resolved.is_file():
             raise ScenarioError(f"{where}: {key_path}: the file {resolved} does not exist; "
                                 "paths are relative to the scenario file's folder.")
