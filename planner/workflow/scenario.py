@@ -573,17 +573,7 @@ def _coerce(kind: str, value: Any, where: str, key_path: str, meta: dict, base: 
             raise bad()
         return value
     if kind == "floats":
-        items = [value] if isinstance(value, int | float) and not isinstance(value, bool) else value
-        if not isinstance(items, list):
-            raise bad()
-        numbers = set()
-        for i, item in enumerate(items):
-            def bad_item(note: str = "", i=i, item=item) -> ScenarioError:
-                return ScenarioError(f"{where}: {key_path}[{i}]: expected "
-                                     f"{_expected(meta, 'float')}, got {_describe(item)}{note}.")
-
-            numbers.add(_number(item, meta, bad_item, integer=False))
-        return tuple(sorted(numbers))
+        return _floats(value, where, key_path, meta, bad)
     if kind.startswith("choice:"):
         choices = kind.split(":", 1)[1].split(",")
         if not isinstance(value, str) or value not in choices:
@@ -609,6 +599,26 @@ def _coerce(kind: str, value: Any, where: str, key_path: str, meta: dict, base: 
         if not 1900 <= date.year <= 2200:
             raise bad(" (outside the years 1900-2200)")
         return date.isoformat()
+    return _text(kind, value, where, key_path, base, bad)
+
+
+def _floats(value, where, key_path, meta, bad) -> tuple:
+    """Check a number or list of numbers; return them sorted, a bad item named by index."""
+    items = [value] if isinstance(value, int | float) and not isinstance(value, bool) else value
+    if not isinstance(items, list):
+        raise bad()
+    numbers = set()
+    for i, item in enumerate(items):
+        def bad_item(note: str = "", i=i, item=item) -> ScenarioError:
+            return ScenarioError(f"{where}: {key_path}[{i}]: expected "
+                                 f"{_expected(meta, 'float')}, got {_describe(item)}{note}.")
+
+        numbers.add(_number(item, meta, bad_item, integer=False))
+    return tuple(sorted(numbers))
+
+
+def _text(kind, value, where, key_path, base, bad):
+    """Check a non-empty text: an id, a time zone, a path (resolved) or plain text."""
     if not isinstance(value, str) or not value.strip():
         raise bad()
     if kind == "id":
