@@ -253,6 +253,9 @@ def population_monte_carlo(prep, settings, rng, seeds, span, frequencies=None):
         if weights:
             mix = Mixture.build(defensive, weights, means, covs, settings.dof, frequencies,
                                 jitters)
+        elif not mix.weights.size:  # no planet: the defensive share is all, its jitters adapt
+            mix = Mixture(mix.defensive, mix.weights, mix.means, mix.chols, mix.dof,
+                          frequencies, jitters)
         # Good weights but too few of them: draw enough next time (with a 30% margin).
         if k_hat <= K_HAT_LIMIT and n_born == 0 and ess > 0:
             n = int(min(max(settings.draws, 1.3 * settings.min_ess * n / ess),

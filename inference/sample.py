@@ -41,7 +41,7 @@ logger = logging.getLogger(__name__)
 #: to this module or the ones it calls gives different samples for the same data, model,
 #: settings and seed, so that older fits are refitted instead of silently reused.
 #: 2: population Monte Carlo over a defensive Student-t mixture, then resample-move.
-SAMPLER_VERSION = "2"
+SAMPLER_VERSION = "2.1"
 
 
 def _systematic(weights, n, rng):

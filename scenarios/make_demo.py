@@ -157,8 +157,9 @@ def main() -> None:
         truth = {"target": name, "kind": kind, "instrument": INSTRUMENT, "offset_ms": offset,
                  "jitter_ms": jitter, "planets": planets}
         atomic_write_text(OUT / "truth" / f"{slug}.json", json.dumps(truth, indent=2) + "\n")
-        # Stars with no planet or two: how many planets is itself a question (docs/priors.md).
-        n_fit = "auto" if kind in ("two planets", "no planet") else 1
+        # Stars with no planet: whether there is one is itself the question (docs/priors.md);
+        # they compare no planet with one (max_planets 1).
+        n_fit = {"two planets": 2, "no planet": "auto"}.get(kind, 1)
         targets.append((name, ra, dec, v_mag, slug, n_fit, kind))
     atomic_write_text(OUT / "demo.yaml", _yaml(targets))
 
@@ -214,6 +215,8 @@ targets:
         row = (f"  - id: {name}   # {kind}\n    ra_deg: {ra:.4f}\n    dec_deg: {dec:.4f}\n"
                f"    v_mag: {v_mag:.2f}\n    rv_file: rv/{slug}.csv\n    planets: {n_fit}\n"
                f"    max_visits: 8\n    max_visits_per_night: 2\n    min_gap_h: 2\n")
+        if n_fit == "auto":
+            row += "    max_planets: 1\n"
         if v_mag < 7.0:
             row += "    exposures_s: [300, 600]\n"
         rows.append(row)
